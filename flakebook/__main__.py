@@ -1,0 +1,5 @@
+"""Allow ``python -m flakebook``."""
+
+from flakebook.cli import main
+
+raise SystemExit(main())

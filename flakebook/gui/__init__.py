@@ -1,0 +1,1 @@
+"""The desktop program (PySide6, pyqtgraph). The only package besides render/ that imports Qt."""

@@ -1,0 +1,1 @@
+"""Figures and PDFs drawn offscreen with Qt (reports, exports, flake cards)."""

@@ -1,0 +1,1 @@
+"""What a report says: content, tables and methods text (no Qt)."""

@@ -1,0 +1,1 @@
+"""Spectra: file I/O and units, baselines, peak fits, Raman and PL layer evidence. Pure numpy/scipy."""

@@ -1,0 +1,1 @@
+"""The project file (SQLite): schema, migrations, lock, records and catalogue queries."""

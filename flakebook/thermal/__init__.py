@@ -1,0 +1,1 @@
+"""Raman thermometry: coefficients, heat-conduction model, thermal-conductivity inversion and uncertainty."""
