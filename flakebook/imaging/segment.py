@@ -346,6 +346,7 @@ def segment(
     min_area_um2: float = 20.0,
     background: Background | None = None,
     exclude: np.ndarray | None = None,
+    holes: list[tuple[float, float, float]] | None = None,
     work: np.ndarray | None = None,
     factor: int | None = None,
     threshold_sigma: float = 6.0,
@@ -360,7 +361,11 @@ def segment(
         um_per_px: the image scale.
         min_area_um2: flakes and terraces smaller than this are left out.
         background: the background correction (default: a degree-2 polynomial fitted here).
-        exclude: optional bool working-resolution mask of pixels that are not flake (bare holes).
+        exclude: optional bool working-resolution mask of pixels that are not flake.
+        holes: hole disks ``(x, y, radius)`` in full-resolution pixels. Pixels of a bare hole
+            (those whose contrast lies between the substrate's and that of the holes with bare
+            substrate around them) are not flake; a terrace lying over a hole is kept even when
+            smaller than ``min_area_um2`` (a membrane).
         work, factor: a working copy of the raw intensity and its factor, if the caller has one.
         threshold_sigma: a pixel is non-substrate where its smoothed contrast exceeds this many
             noise standard deviations in some channel (and ``min_contrast``).
@@ -430,6 +435,11 @@ def segment(
     fg = np.any(np.abs(cs) > thr, axis=2) & valid
     if exclude is not None:
         fg &= ~exclude[:wr, :wc]
+    hole_w = [
+        (float(_grid.to_work(x, f)), float(_grid.to_work(y, f)), r / f) for x, y, r in holes or ()
+    ]
+    bare_mask, bare_c = _bare_hole_pixels(cs, sub_mask, hole_w, thr)
+    fg &= ~bare_mask
     fg = cv2.morphologyEx(
         fg.astype(np.uint8), cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (3, 3))
     )
@@ -486,12 +496,14 @@ def segment(
         rids = []
         for t in range(len(centres)):
             tm = (tl == t + 1).astype(np.uint8)
-            if np.count_nonzero(tm) < min_px_work:
+            if np.count_nonzero(tm) < min(min_px_work, 6):
                 continue
             tm = cv2.morphologyEx(tm, cv2.MORPH_OPEN, kernel)
             n2, lab2, st2, _ = cv2.connectedComponentsWithStats(tm, connectivity=8)
             for j in range(1, n2):
-                if st2[j, cv2.CC_STAT_AREA] < min_px_work:
+                if st2[j, cv2.CC_STAT_AREA] < min_px_work and not _over_hole(
+                    st2[j], x0, y0, hole_w
+                ):
                     continue
                 rx, ry, rw, rh = (int(v) for v in st2[j, :4])
                 rmask = lab2[ry : ry + rh, rx : rx + rw] == j
@@ -547,6 +559,65 @@ def segment(
         um_per_px=float(um_per_px),
         warnings=tuple(warnings),
     )
+
+
+def _bare_hole_pixels(
+    cs: np.ndarray, sub_mask: np.ndarray, hole_w: list, thr: np.ndarray
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Pixels of bare holes (working grid) and the bare holes' contrast vector."""
+    mask = np.zeros(cs.shape[:2], bool)
+    if not hole_w:
+        return mask, None
+    rows, cols = mask.shape
+    inner, bare = [], []
+    for x, y, r in hole_w:
+        x0, x1 = max(0, int(x - 1.6 * r - 3)), min(cols, int(x + 1.6 * r + 4))
+        y0, y1 = max(0, int(y - 1.6 * r - 3)), min(rows, int(y + 1.6 * r + 4))
+        if x1 <= x0 or y1 <= y0:
+            inner.append(None)
+            continue
+        yy, xx = np.ogrid[y0:y1, x0:x1]
+        d = np.hypot(xx - x, yy - y)
+        core = d < 0.6 * r
+        ring = (d > r + 1.5) & (d < 1.5 * r + 1.5)
+        if not core.any():
+            inner.append(None)
+            continue
+        c = np.median(cs[y0:y1, x0:x1][core], axis=0)
+        inner.append(c)
+        if ring.any() and np.mean(sub_mask[y0:y1, x0:x1][ring]) > 0.9:
+            bare.append(c)
+    if not bare:
+        return mask, None
+    cb = np.median(np.array(bare), axis=0)
+    # Distance of each pixel's contrast from the segment [0, cb] (mixtures of substrate and bare
+    # hole at the edge), in units of the detection threshold.
+    nb = float(np.dot(cb / thr, cb / thr))
+    for x, y, r in hole_w:
+        x0, x1 = max(0, int(x - r - 3)), min(cols, int(x + r + 4))
+        y0, y1 = max(0, int(y - r - 3)), min(rows, int(y + r + 4))
+        if x1 <= x0 or y1 <= y0:
+            continue
+        yy, xx = np.ogrid[y0:y1, x0:x1]
+        disk = np.hypot(xx - x, yy - y) <= r + 2.0
+        v = cs[y0:y1, x0:x1] / thr
+        t = np.clip((v @ (cb / thr)) / max(nb, 1e-12), 0, 1)
+        dist = np.sqrt(((v - t[..., None] * (cb / thr)) ** 2).sum(-1))
+        mask[y0:y1, x0:x1] |= disk & (dist < 1.5)
+    return mask, cb
+
+
+def _over_hole(stat: np.ndarray, x0: int, y0: int, hole_w: list) -> bool:
+    """Whether a small component (crop stats) lies over a hole and fills a good part of it."""
+    if not hole_w:
+        return False
+    cx = x0 + stat[0] + stat[2] / 2.0
+    cy = y0 + stat[1] + stat[3] / 2.0
+    area = float(stat[cv2.CC_STAT_AREA])
+    for x, y, r in hole_w:
+        if np.hypot(cx - x, cy - y) < r and area >= max(6.0, 0.2 * np.pi * r * r):
+            return True
+    return False
 
 
 def _work_gain(bg: Background, wr: int, wc: int, f: int) -> np.ndarray:
