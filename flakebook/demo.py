@@ -1,0 +1,693 @@
+"""The demo campaign: an invented exfoliation run, rendered from flakebook's own models.
+
+``build_demo(folder)`` writes a project file, its micrographs and its spectra into ``folder``,
+deterministically (fixed seeds, a fixed clock). Everything here is invented for the demo: the
+chips "K7-north" and "K7-south", the flake IDs and every value. The micrographs are rendered from
+the thin-film contrast model (flakebook.optics) with noise, vignetting and a dark offset, and then
+surveyed with flakebook.imaging exactly as a user's images would be; the spectra are drawn from
+simple line shapes at plausible positions (the spectra issue will fit them).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+import threading
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from flakebook.errors import InputError, check_cancel
+
+PROJECT_NAME = "k7-campaign.flakebook"
+MATERIAL = "MoSe2"
+OXIDE_NM = 285.0
+LASER_NM = 532.0
+DARK_OFFSET = 0.012  # fraction of full scale, the invented camera's black level
+HOLE_DIAMETER_UM = 5.0
+HOLE_PITCH_UM = 12.0
+HOLE_DEPTH_NM = 250.0  # air gap from the membrane down to the gold at the hole's bottom
+OBJECTIVES = {"10x": (0.345, 0.30), "50x": (0.069, 0.80)}  # um/px, objective NA (examples)
+NA_ILLUMINATION = 0.3
+START = _dt.datetime(2026, 3, 9, 9, 0, 0, tzinfo=_dt.UTC)
+
+
+@dataclass(frozen=True)
+class DemoFlake:
+    """A flake of the invented scenario: its layer number and a cleaved outline on the chip."""
+
+    label: str
+    sample: str
+    layers: int
+    center_um: tuple[float, float]  # chip coordinates (x right, y down), um
+    radius_um: float  # rough half-size of the outline
+    angle_deg: float  # orientation of the crystal edges
+    step_layers: int | None = None  # a thicker terrace beyond a step edge, if any
+    tags: tuple[str, ...] = ()
+    notes: str = ""
+
+
+# Chip coordinates: the K7-south hole lattice has a hole centre at (0, 0), square, pitch 12 um.
+FLAKES: tuple[DemoFlake, ...] = (
+    DemoFlake("K7N-01", "K7-north", 1, (-120.0, -60.0), 11.0, 8.0, step_layers=3),
+    DemoFlake("K7N-02", "K7-north", 2, (40.0, -90.0), 9.0, 37.0),
+    DemoFlake("K7N-03", "K7-north", 3, (130.0, 20.0), 10.0, 71.0, step_layers=6),
+    DemoFlake("K7N-04", "K7-north", 5, (-60.0, 80.0), 9.5, 112.0),
+    DemoFlake("K7N-05", "K7-north", 8, (70.0, 95.0), 10.0, 150.0, notes="thick reference flake"),
+    DemoFlake("K7N-06", "K7-north", 1, (-150.0, 70.0), 7.0, 22.0),
+    DemoFlake("K7S-01", "K7-south", 1, (-108.0, -72.0), 9.5, 15.0, tags=("raman-next",)),
+    DemoFlake("K7S-02", "K7-south", 2, (36.0, -84.0), 10.5, 48.0, step_layers=4),
+    DemoFlake("K7S-03", "K7-south", 3, (120.0, 24.0), 10.0, 80.0, tags=("raman-next",)),
+    DemoFlake("K7S-04", "K7-south", 4, (-48.0, 60.0), 9.0, 101.0),
+    DemoFlake("K7S-05", "K7-south", 6, (84.0, 96.0), 11.0, 133.0),
+    DemoFlake("K7S-06", "K7-south", 2, (-144.0, 84.0), 8.5, 5.0, tags=("raman-next",)),
+)
+
+# Flakes that go through thermometry (suspended over a hole), with an invented "true" kappa
+# used to draw their power series.
+THERMOMETRY = {"K7S-01": 42.0, "K7S-03": 31.0, "K7S-06": 36.0}
+CHI_T_CM1_PER_K = -0.0108  # invented A1g temperature coefficient for the drawn series
+BEAM_RADIUS_UM = 0.42
+
+
+def _clock() -> Callable[[], _dt.datetime]:
+    """A clock that starts at START and advances 20 s a call: reproducible timestamps."""
+    state = {"t": START}
+    lock = threading.Lock()
+
+    def now() -> _dt.datetime:
+        with lock:
+            t = state["t"]
+            state["t"] = t + _dt.timedelta(seconds=20)
+            return t
+
+    return now
+
+
+# ---- geometry ------------------------------------------------------------------------------
+
+
+def flake_polygon_um(flake: DemoFlake) -> np.ndarray:
+    """A cleaved outline: a hexagon-like polygon with edges along the crystal's 60-degree
+    directions, at seeded random distances (um, chip coordinates)."""
+    rng = np.random.default_rng(abs(hash_label(flake.label)))
+    angles = np.deg2rad(flake.angle_deg + 60.0 * np.arange(6))
+    dist = flake.radius_um * rng.uniform(0.55, 1.15, size=6)
+    # Vertices are the intersections of consecutive edge lines n_i . p = d_i.
+    pts = []
+    for i in range(6):
+        a1, a2 = angles[i], angles[(i + 1) % 6]
+        m = np.array([[math.cos(a1), math.sin(a1)], [math.cos(a2), math.sin(a2)]])
+        pts.append(np.linalg.solve(m, [dist[i], dist[(i + 1) % 6]]))
+    poly = np.array(pts) + np.asarray(flake.center_um)
+    return poly
+
+
+def hash_label(label: str) -> int:
+    """A stable integer from a label (Python's hash() is salted per process)."""
+    h = 2166136261
+    for ch in label.encode():
+        h = ((h ^ ch) * 16777619) & 0xFFFFFFFF
+    return h
+
+
+def step_line(flake: DemoFlake) -> tuple[np.ndarray, float]:
+    """The step edge of a terraced flake: points p with n . p > c are the thicker terrace."""
+    a = math.radians(flake.angle_deg + 30.0)
+    n = np.array([math.cos(a), math.sin(a)])
+    c = float(n @ np.asarray(flake.center_um)) + 0.35 * flake.radius_um
+    return n, c
+
+
+def hole_centres_um(x0: float, x1: float, y0: float, y1: float) -> np.ndarray:
+    """Centres of the K7-south lattice holes in a chip window (um)."""
+    i = np.arange(math.floor(x0 / HOLE_PITCH_UM) - 1, math.ceil(x1 / HOLE_PITCH_UM) + 2)
+    j = np.arange(math.floor(y0 / HOLE_PITCH_UM) - 1, math.ceil(y1 / HOLE_PITCH_UM) + 2)
+    gx, gy = np.meshgrid(i * HOLE_PITCH_UM, j * HOLE_PITCH_UM)
+    return np.column_stack([gx.ravel(), gy.ravel()])
+
+
+# ---- rendering -----------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class View:
+    """A camera frame on the chip."""
+
+    name: str
+    sample: str
+    objective: str
+    center_um: tuple[float, float]
+    width_px: int
+    height_px: int
+
+    @property
+    def um_per_px(self) -> float:
+        return OBJECTIVES[self.objective][0]
+
+    def to_px(self, pts_um: np.ndarray) -> np.ndarray:
+        """Chip um to pixel (x, y) with the origin at the top-left pixel's centre."""
+        cx, cy = self.center_um
+        s = self.um_per_px
+        return np.column_stack(
+            [
+                (pts_um[:, 0] - cx) / s + (self.width_px - 1) / 2,
+                (pts_um[:, 1] - cy) / s + (self.height_px - 1) / 2,
+            ]
+        )
+
+    def window_um(self) -> tuple[float, float, float, float]:
+        cx, cy = self.center_um
+        hw, hh = self.width_px * self.um_per_px / 2, self.height_px * self.um_per_px / 2
+        return cx - hw, cx + hw, cy - hh, cy + hh
+
+
+def _contrast_tables(has_holes: bool, max_n: int = 9):
+    """Model contrast per channel for N = 0..max_n, supported and (with holes) suspended."""
+    from flakebook.optics.materials import get_material
+    from flakebook.optics.microscope import Microscope, channel_contrast
+
+    mat = get_material(MATERIAL)
+    sub = _substrate()
+    mic = Microscope(na_illumination=NA_ILLUMINATION)
+    layers = np.arange(0, max_n + 1)
+    sup = channel_contrast(mat, layers, sub, mic)
+    out = {"supported": sup.contrast, "reference": sup.reflectance_reference[0]}
+    if has_holes:
+        sus = channel_contrast(mat, layers, sub, mic, geometry="suspended", hole=_hole())
+        out["suspended"] = sus.contrast
+    return out
+
+
+def _substrate():
+    from flakebook.optics.substrate import Substrate
+
+    return Substrate.from_oxide(OXIDE_NM)
+
+
+def _hole():
+    from flakebook.optics.substrate import Hole
+
+    return Hole("au", HOLE_DEPTH_NM)
+
+
+def render_view(view: View, flakes: tuple[DemoFlake, ...], rng: np.random.Generator) -> np.ndarray:
+    """An 8-bit sRGB micrograph (rows, cols, RGB) of ``view``, from the contrast model.
+
+    Each pixel's linear intensity is base x (1 - C(N, geometry)) per channel, supersampled 3x for
+    anti-aliased edges, times a vignetting falloff, plus the dark offset and camera noise.
+    """
+    import cv2
+
+    from flakebook.imaging.io import linear_to_srgb
+
+    holes = view.sample == "K7-south"
+    tables = _contrast_tables(holes)
+    ss = 3
+    h, w = view.height_px * ss, view.width_px * ss
+    layer_map = np.zeros((h, w), np.uint8)
+    hole_map = np.zeros((h, w), np.uint8)
+    shift = 4  # fixed-point bits for cv2's sub-pixel polygon filling
+
+    def to_ss(pts_um: np.ndarray) -> np.ndarray:
+        px = view.to_px(pts_um)
+        # supersampled pixel centres: ss*x + (ss-1)/2
+        q = (px * ss + (ss - 1) / 2) * (1 << shift)
+        return np.round(q).astype(np.int32)
+
+    for fl in flakes:
+        if fl.sample != view.sample:
+            continue
+        poly = flake_polygon_um(fl)
+        cv2.fillPoly(layer_map, [to_ss(poly)], int(fl.layers), lineType=cv2.LINE_8, shift=shift)
+        if fl.step_layers:
+            n, c = step_line(fl)
+            inside = np.array([p for p in _clip_halfplane(poly, n, c)])
+            if len(inside) >= 3:
+                cv2.fillPoly(layer_map, [to_ss(inside)], int(fl.step_layers), shift=shift)
+    if holes:
+        x0, x1, y0, y1 = view.window_um()
+        r_ss = HOLE_DIAMETER_UM / 2 / view.um_per_px * ss
+        for c in to_ss(hole_centres_um(x0, x1, y0, y1)):
+            cv2.circle(
+                hole_map, (int(c[0]), int(c[1])), int(round(r_ss * (1 << shift))), 1, -1,
+                lineType=cv2.LINE_8, shift=shift,
+            )  # fmt: skip
+
+    ref = tables["reference"]
+    levels = [np.ones_like(tables["supported"]) - tables["supported"]]
+    if holes:
+        levels.append(1.0 - tables["suspended"])
+    brightest = max(float((lv * ref[None, :]).max()) for lv in levels)
+    exposure = 0.82 / brightest  # the brightest thing in view sits at 82% of full scale
+    lin = np.empty((h, w, 3), np.float32)
+    for ch in range(3):
+        lut_sup = (ref[ch] * exposure * (1.0 - tables["supported"][:, ch])).astype(np.float32)
+        val = lut_sup[layer_map]
+        if holes:
+            lut_sus = (ref[ch] * exposure * (1.0 - tables["suspended"][:, ch])).astype(np.float32)
+            val = np.where(hole_map.astype(bool), lut_sus[layer_map], val)
+        lin[:, :, ch] = val
+    lin = cv2.resize(lin, (view.width_px, view.height_px), interpolation=cv2.INTER_AREA)
+    # Vignetting: a smooth radial falloff of 12% at the corners.
+    yy, xx = np.mgrid[0 : view.height_px, 0 : view.width_px].astype(np.float32)
+    r2 = ((xx - view.width_px / 2) / (view.width_px / 2)) ** 2 + (
+        (yy - view.height_px / 2) / (view.height_px / 2)
+    ) ** 2
+    lin *= (1.0 - 0.06 * r2)[:, :, None]
+    # Camera noise: 1% shot-like plus read noise, slightly correlated (optics blur).
+    noise = rng.normal(0.0, 1.0, lin.shape).astype(np.float32)
+    noise = cv2.GaussianBlur(noise, (0, 0), 0.8) * 1.6
+    lin = lin + noise * (0.01 * lin + 0.002) + DARK_OFFSET
+    enc = linear_to_srgb(np.clip(lin, 0.0, 1.0))
+    return np.clip(np.round(enc * 255.0), 0, 255).astype(np.uint8)
+
+
+def _clip_halfplane(poly: np.ndarray, n: np.ndarray, c: float) -> list[np.ndarray]:
+    """The part of a convex polygon with n . p >= c (Sutherland-Hodgman, one edge)."""
+    out = []
+    k = len(poly)
+    for i in range(k):
+        p, q = poly[i], poly[(i + 1) % k]
+        dp, dq = n @ p - c, n @ q - c
+        if dp >= 0:
+            out.append(p)
+        if (dp >= 0) != (dq >= 0):
+            t = dp / (dp - dq)
+            out.append(p + t * (q - p))
+    return out
+
+
+# ---- spectra -------------------------------------------------------------------------------
+
+
+def _lorentz(x: np.ndarray, x0: float, fwhm: float, height: float) -> np.ndarray:
+    return height / (1.0 + ((x - x0) / (fwhm / 2.0)) ** 2)
+
+
+# Invented line positions for the demo's drawn MoSe2 Raman spectra (cm^-1): A1g stiffens and
+# E2g(1) softens with N; B2g(1) appears from 2 layers on; the Si line is attenuated by the flake.
+def a1g_position_cm1(layers: int) -> float:
+    """The demo's A1g position for N layers (drawn data, not a model)."""
+    return 242.6 - 1.9 / layers
+
+
+def raman_spectrum(layers: int, rng: np.random.Generator, *, a1g_shift_cm1: float = 0.0):
+    """A drawn Raman spectrum (x in cm^-1, counts) of an N-layer flake on SiO2/Si."""
+    x = np.linspace(100.0, 600.0, 1340)
+    a1g = a1g_position_cm1(layers) + a1g_shift_cm1
+    e2g = 287.4 - 0.35 * min(layers, 6)
+    y = _lorentz(x, a1g, 4.2, 1800.0 * min(layers, 4) ** 0.6)
+    y += _lorentz(x, e2g, 5.0, 260.0 * min(layers, 4) ** 0.5)
+    if layers >= 2:
+        y += _lorentz(x, 352.8, 4.5, 120.0 * min(layers - 1, 4) ** 0.7)
+    y += _lorentz(x, 520.7, 3.6, 4200.0 * math.exp(-0.12 * layers))
+    y += 60.0 + 0.05 * (x - 100.0)  # a gentle background
+    y = rng.poisson(np.maximum(y, 0)).astype(float)
+    return x, y
+
+
+def pl_spectrum(layers: int, rng: np.random.Generator):
+    """A drawn PL spectrum (x in nm, counts): strong direct-gap emission for 1L only."""
+    x = np.linspace(700.0, 950.0, 1024)
+    ev = 1239.84198 / x
+    if layers == 1:
+        y = 9000.0 * np.exp(-0.5 * ((ev - 1.570) / 0.022) ** 2)
+    else:
+        y = 350.0 / layers * np.exp(-0.5 * ((ev - 1.545) / 0.03) ** 2)
+        y += 120.0 / layers * np.exp(-0.5 * ((ev - 1.40 + 0.02 * layers) / 0.06) ** 2)
+    y += 40.0
+    return x, rng.poisson(y).astype(float)
+
+
+def _write_spectrum(path: Path, x: np.ndarray, y: np.ndarray, unit: str) -> None:
+    head = "raman_shift_cm1,counts" if unit == "cm-1" else "wavelength_nm,counts"
+    lines = [head] + [f"{a:.4f},{b:.0f}" for a, b in zip(x, y)]
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+def _fit_peak_centre(x: np.ndarray, y: np.ndarray, lo: float, hi: float) -> tuple[float, float]:
+    """Centre and its standard error of one Lorentzian on a linear background in [lo, hi]."""
+    from scipy.optimize import curve_fit
+
+    sel = (x >= lo) & (x <= hi)
+    xs, ys = x[sel], y[sel]
+
+    def model(x, x0, fwhm, h, a, b):
+        return _lorentz(x, x0, fwhm, h) + a + b * (x - lo)
+
+    p0 = [xs[np.argmax(ys)], 4.0, ys.max() - ys.min(), ys.min(), 0.0]
+    sigma = np.sqrt(np.maximum(ys, 1.0))
+    p, cov = curve_fit(model, xs, ys, p0=p0, sigma=sigma, absolute_sigma=True, maxfev=20000)
+    return float(p[0]), float(math.sqrt(cov[0, 0]))
+
+
+def _slope(x: np.ndarray, y: np.ndarray, yerr: np.ndarray) -> tuple[float, float]:
+    """Weighted straight-line slope and its standard error."""
+    w = 1.0 / yerr**2
+    a = np.column_stack([np.ones_like(x), x])
+    cov = np.linalg.inv(a.T @ (a * w[:, None]))
+    coef = cov @ (a.T @ (w * y))
+    return float(coef[1]), float(math.sqrt(cov[1, 1]))
+
+
+# ---- the project ---------------------------------------------------------------------------
+
+
+def build_demo(
+    folder: str | Path,
+    *,
+    progress: Callable[[float, str], None] | None = None,
+    cancel: threading.Event | None = None,
+) -> Path:
+    """Write the demo campaign into ``folder`` (created; must not hold a project already).
+
+    Returns the path of the project file. Deterministic: the same flakebook gives the same rows
+    and the same files.
+    """
+    from flakebook.evidence import combine
+    from flakebook.imaging.survey import survey_image
+    from flakebook.optics.absorptance import absorptance
+    from flakebook.optics.materials import get_material
+    from flakebook.optics.microscope import Microscope
+    from flakebook.store import Project
+
+    def report(frac: float, text: str) -> None:
+        if progress is not None:
+            progress(frac, text)
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / PROJECT_NAME
+    if path.exists():
+        raise InputError(f"{path} already exists; accepted: a folder without a demo project")
+    (folder / "images").mkdir(exist_ok=True)
+    (folder / "spectra").mkdir(exist_ok=True)
+    rng = np.random.default_rng(20260309)
+    mat = get_material(MATERIAL)
+    spacing = mat.layer_spacing_nm
+
+    project = Project.create(path, clock=_clock(), user="demo")
+    try:
+        north = project.add_sample("K7-north", MATERIAL, oxide_nm=OXIDE_NM, notes="plain chip")
+        south = project.add_sample(
+            "K7-south",
+            MATERIAL,
+            oxide_nm=OXIDE_NM,
+            hole_pattern={
+                "bottom": "au",
+                "diameter_um": HOLE_DIAMETER_UM,
+                "pitch_um": HOLE_PITCH_UM,
+                "lattice": "square",
+                "angle_deg": 0.0,
+                "depth_nm": HOLE_DEPTH_NM,
+            },
+            notes="holey chip: square lattice of gold-bottomed holes",
+        )
+        samples = {"K7-north": north, "K7-south": south}
+        for s in samples.values():
+            project.add_calibration(
+                s,
+                oxide_nm=OXIDE_NM,
+                oxide_err_nm=3.0,
+                dark_offset={"r": DARK_OFFSET, "g": DARK_OFFSET, "b": DARK_OFFSET},
+                dark_offset_err={"r": 0.001, "g": 0.001, "b": 0.001},
+                contrast_scale={"r": 1.0, "g": 1.0, "b": 1.0},
+                contrast_scale_err={"r": 0.02, "g": 0.02, "b": 0.02},
+                method="nominal (chip datasheet oxide, camera black level)",
+            )
+        flakes = {f.label: project.add_flake(samples[f.sample], f.label, tags=f.tags,
+                                             notes=f.notes) for f in FLAKES}  # fmt: skip
+
+        views: list[View] = []
+        for name in ("K7-north", "K7-south"):
+            views.append(View(f"{name}_10x_overview", name, "10x", (0.0, 0.0), 1100, 760))
+        for f in FLAKES:
+            views.append(View(f"{f.label}_50x", f.sample, "50x", f.center_um, 800, 600))
+
+        mic = Microscope(na_illumination=NA_ILLUMINATION)
+        for k, view in enumerate(views):
+            check_cancel(cancel)
+            report(0.05 + 0.6 * k / len(views), f"rendering {view.name}")
+            img = render_view(view, FLAKES, rng)
+            import cv2
+
+            file = folder / "images" / f"{view.name}.png"
+            cv2.imwrite(str(file), img[:, :, ::-1])
+            um_px, na_obj = OBJECTIVES[view.objective]
+            image = project.add_image(
+                samples[view.sample],
+                file,
+                pixel_size_um=um_px,
+                objective=view.objective,
+                na_objective=na_obj,
+                na_illumination=NA_ILLUMINATION,
+                illumination="halogen",
+                camera={"bit_depth": 8, "encoding": "srgb", "exposure_ms": 12.0},
+                stage_x_um=view.center_um[0],
+                stage_y_um=view.center_um[1],
+                width_px=view.width_px,
+                height_px=view.height_px,
+            )
+            holey = view.sample == "K7-south"
+            result = survey_image(
+                file,
+                material=MATERIAL,
+                substrate=_substrate(),
+                microscope=mic,
+                scale_um_per_px=um_px,
+                min_area_um2=20.0 if view.objective == "50x" else 30.0,
+                dark_offset=DARK_OFFSET,
+                oxide_err_nm=3.0,
+                find_holes=holey,
+                hole_radius_um=HOLE_DIAMETER_UM / 2 if holey else None,
+                hole=_hole() if holey else None,
+            )
+            _store_survey(project, image, view, result, flakes, combine)
+
+        report(0.7, "spectra")
+        _add_spectra(project, folder, flakes, rng)
+        report(0.8, "thermometry")
+        _add_thermometry(project, folder, flakes, rng, mat, spacing, absorptance)
+        project.add_external_result(
+            flakes["K7S-03"],
+            kappa_w_mk=29.5,
+            kappa_p16_w_mk=24.0,
+            kappa_p84_w_mk=35.5,
+            method="finite-element heat model with interface conductance (colleague's analysis)",
+            note="sent back after the hand-off; includes the supported region",
+            source_file="handoff-results.csv",
+        )
+        report(1.0, "done")
+    except BaseException:
+        project.close()
+        raise
+    project.close()
+    return path
+
+
+def _store_survey(project, image, view, result, flakes, combine) -> None:
+    """Link the survey's flakes in one image to the scenario's flakes and store them."""
+    from flakebook.imaging.holes import signed_distance
+
+    holes_by_index = {}
+    for i, h in enumerate(result.holes):
+        holes_by_index[i] = project.add_hole(
+            image,
+            h.center_px,
+            h.radius_px,
+            radius_um=h.radius_um,
+            radius_err_um=h.radius_err_um,
+            source="detected" if h.detected else "lattice",
+        )
+    here = [f for f in FLAKES if f.sample == view.sample]
+    centres = view.to_px(np.array([f.center_um for f in here]))
+    by_survey_flake: dict[int, DemoFlake] = {}
+    for sf in result.flakes:
+        for f, c in zip(here, centres):
+            if signed_distance(sf.outline_px, (float(c[0]), float(c[1]))) > 0:
+                by_survey_flake[sf.id] = f
+                break
+    for sf in result.flakes:
+        demo = by_survey_flake.get(sf.id)
+        if demo is None:
+            continue  # a partial flake at the frame's edge, or a neighbour's corner
+        flake = flakes[demo.label]
+        app = project.add_appearance(flake, image, sf.outline_px)
+        regions = [r for r in result.regions if r.region.flake_id == sf.id]
+        likelihoods = []
+        for r in sorted(regions, key=lambda r: r.region.id):
+            terrace = project.add_terrace(
+                app,
+                r.region.outline_px,
+                label=f"{r.geometry} {r.region.id}",
+            )
+            if r.likelihood is None:
+                continue
+            project.add_evidence(
+                flake,
+                r.likelihood,
+                method="contrast-likelihood",
+                terrace=terrace,
+                inputs=[image, app],
+                parameters={
+                    "contrast": dict(r.region.contrast),
+                    "contrast_err": dict(r.region.contrast_err),
+                    "geometry": r.geometry,
+                    "objective": view.objective,
+                    "na_illumination": NA_ILLUMINATION,
+                    "oxide_nm": OXIDE_NM,
+                    "oxide_err_nm": 3.0,
+                },
+                source=result.provenance.get("optical_constants", "")
+                if isinstance(result.provenance, dict)
+                else "",
+                reason=r.decider,
+            )
+            likelihoods.append((r, terrace))
+        for link in result.coverage:
+            if link.flake_id != sf.id:
+                continue
+            cov = link.coverage
+            project.link_flake_hole(
+                flake,
+                holes_by_index[link.hole_index],
+                covered_fraction=cov.covered_fraction,
+                fully_covered=cov.fully_covered,
+                margin_um=cov.margin_um,
+            )
+        if view.objective == "50x" and likelihoods:
+            # The flake's layer number: the primary terrace (over a hole if any, else largest).
+            over = [lt for lt in likelihoods if lt[0].geometry == "suspended"]
+            r, terrace = max(over or likelihoods, key=lambda lt: lt[0].region.area_um2)
+            project.update(flake, primary_terrace_id=terrace.id)
+            post = combine([r.likelihood])
+            evid = project.evidence_of(flake, terrace)
+            project.add_assignment(
+                flake,
+                post.layers,
+                terrace_id=terrace.id,
+                probability=post.probability,
+                ambiguous_with=post.ambiguous_with,
+                posterior=post.posterior,
+                method="combined-evidence",
+                inputs=evid,
+            )
+
+
+def _add_spectra(project, folder: Path, flakes, rng) -> None:
+    for f in FLAKES:
+        flake = flakes[f.label]
+        x, y = raman_spectrum(f.layers, rng)
+        name = f"{f.label}_raman_532.csv"
+        _write_spectrum(folder / "spectra" / name, x, y, "cm-1")
+        project.add_spectrum(
+            flake, x, y, kind="raman", x_unit="cm-1", laser_nm=LASER_NM, power_mw=0.25,
+            polarization="parallel", stage_temperature_k=295.0, integration_s=30.0,
+            metadata={"grating_l_per_mm": 1800, "objective": "100x"},
+            source_path=f"spectra/{name}",
+        )  # fmt: skip
+        x, y = pl_spectrum(f.layers, rng)
+        name = f"{f.label}_pl_532.csv"
+        _write_spectrum(folder / "spectra" / name, x, y, "nm")
+        project.add_spectrum(
+            flake, x, y, kind="pl", x_unit="nm", laser_nm=LASER_NM, power_mw=0.1,
+            stage_temperature_k=295.0, integration_s=5.0,
+            metadata={"grating_l_per_mm": 300, "objective": "100x"},
+            source_path=f"spectra/{name}",
+        )  # fmt: skip
+
+
+def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptance) -> None:
+    """Temperature and power series of the suspended flakes, and a first kappa estimate.
+
+    The power series are drawn from the Gaussian-beam disk result of REFERENCES.md (the
+    intensity-weighted temperature rise R_m = [ln(R/W) + gamma/2] / (2 pi kappa t) per absorbed
+    watt) with an invented kappa; the estimate inverts the same formula from fitted A1g centres.
+    """
+    beam = project.add_beam_profile(
+        "100x", LASER_NM, BEAM_RADIUS_UM, radius_err_um=0.03, method="knife-edge scan",
+        notes="demo: invented spot",
+    )  # fmt: skip
+    radius_um = HOLE_DIAMETER_UM / 2
+    for label, kappa_true in THERMOMETRY.items():
+        demo = next(f for f in FLAKES if f.label == label)
+        flake = flakes[label]
+        covered = project.holes_covered_by(flake)
+        hole_id = covered[0][1].id if covered else None
+        n = demo.layers
+        t_m = n * spacing * 1e-9
+        a = absorptance(
+            mat, n, LASER_NM, _substrate(), geometry="suspended", hole=_hole(), na_objective=0.5
+        ).absorptance_flake
+        r_m = (math.log(radius_um / BEAM_RADIUS_UM) + 0.5772156649) / (2 * math.pi * kappa_true * t_m)
+        chi_p_true = CHI_T_CM1_PER_K * a * r_m * 1e-3  # cm^-1 per mW incident
+
+        ts = project.add_thermometry_series(
+            flake, "temperature", laser_nm=LASER_NM, mode="A1g", beam_profile_id=beam.id,
+            hole_id=hole_id, notes="stage heated in a nitrogen-flushed cell; 0.05 mW probe",
+        )  # fmt: skip
+        temps = np.array([295.0, 315.0, 335.0, 355.0, 375.0])
+        centres, errs = [], []
+        for k, temp in enumerate(temps):
+            x, y = raman_spectrum(n, rng, a1g_shift_cm1=CHI_T_CM1_PER_K * (temp - 295.0))
+            name = f"{label}_T{int(temp)}K.csv"
+            _write_spectrum(folder / "spectra" / name, x, y, "cm-1")
+            project.add_spectrum(
+                flake, x, y, kind="raman", x_unit="cm-1", laser_nm=LASER_NM, power_mw=0.05,
+                stage_temperature_k=float(temp), integration_s=60.0, series_id=ts.id,
+                source_path=f"spectra/{name}", metadata={"step": k},
+            )  # fmt: skip
+            c, e = _fit_peak_centre(x, y, 225.0, 262.0)
+            centres.append(c)
+            errs.append(e)
+        chi_t, chi_t_err = _slope(temps, np.array(centres), np.array(errs))
+
+        ps = project.add_thermometry_series(
+            flake, "power", laser_nm=LASER_NM, mode="A1g", beam_profile_id=beam.id,
+            hole_id=hole_id, notes="power ramped up then down at 295 K",
+        )  # fmt: skip
+        powers = np.array([0.1, 0.2, 0.3, 0.4, 0.5, 0.4, 0.2])
+        pc, pe = [], []
+        for k, p in enumerate(powers):
+            x, y = raman_spectrum(n, rng, a1g_shift_cm1=chi_p_true * p)
+            name = f"{label}_P{k:02d}_{int(round(p * 1000))}uW.csv"
+            _write_spectrum(folder / "spectra" / name, x, y, "cm-1")
+            project.add_spectrum(
+                flake, x, y, kind="raman", x_unit="cm-1", laser_nm=LASER_NM, power_mw=float(p),
+                stage_temperature_k=295.0, integration_s=60.0, series_id=ps.id,
+                source_path=f"spectra/{name}", metadata={"step": k},
+            )  # fmt: skip
+            c, e = _fit_peak_centre(x, y, 225.0, 262.0)
+            pc.append(c)
+            pe.append(e)
+        chi_p, chi_p_err = _slope(powers, np.array(pc), np.array(pe))
+
+        geom = math.log(radius_um / BEAM_RADIUS_UM) + 0.5772156649
+        kappa = chi_t * a * geom / (2 * math.pi * t_m * chi_p * 1e3)
+        rel = math.hypot(chi_t_err / chi_t, chi_p_err / chi_p)
+        project.add_thermometry_result(
+            flake,
+            layers=n,
+            thickness_nm=n * spacing,
+            layer_spacing_nm=spacing,
+            kappa_w_mk=kappa,
+            kappa_median_w_mk=kappa,
+            kappa_p16_w_mk=kappa * math.exp(-rel),
+            kappa_p84_w_mk=kappa * math.exp(rel),
+            chi_t_cm1_per_k=chi_t,
+            chi_t_err_cm1_per_k=chi_t_err,
+            chi_p_cm1_per_mw=chi_p,
+            chi_p_err_cm1_per_mw=chi_p_err,
+            absorptance=a,
+            method="gaussian-disk closed form (first estimate; chi_T and chi_P errors only)",
+            inputs=[ts, ps, beam],
+            details={
+                "hole_radius_um": radius_um,
+                "beam_radius_um": BEAM_RADIUS_UM,
+                "weighting": "intensity",
+                "source": "Gaussian-beam disk conduction, intensity-weighted mean temperature",
+            },
+        )
