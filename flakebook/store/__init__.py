@@ -36,6 +36,7 @@ from flakebook.store.records import (
     ThermometryResult,
     ThermometrySeries,
     layer_spacing_nm,
+    record_to_dict,
 )
 from flakebook.store.schema import SCHEMA_VERSION
 from flakebook.substrate import SubstrateLayer, parse_substrate
@@ -77,4 +78,5 @@ __all__ = [
     "ImageCheck",
     "RecomputeReport",
     "parse_substrate",
+    "record_to_dict",
 ]

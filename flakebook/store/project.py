@@ -61,6 +61,7 @@ from flakebook.store.records import (
     ThermometryResult,
     ThermometrySeries,
     layer_spacing_nm,
+    record_to_dict,
     record_type,
 )
 from flakebook.substrate import SubstrateLayer, check_stack, oxide_stack, parse_substrate
@@ -1581,9 +1582,9 @@ class Project:
                         }
                         for link, hole in self.holes_covered_by(flake)
                     ],
-                    "spectra": [_public(s) for s in self.spectra_of(flake)],
-                    "thermometry_series": [_public(s) for s in series],
-                    "thermometry_results": [_public(r) for r in results],
+                    "spectra": [record_to_dict(s) for s in self.spectra_of(flake)],
+                    "thermometry_series": [record_to_dict(s) for s in series],
+                    "thermometry_results": [record_to_dict(r) for r in results],
                 }
             )
         return {
@@ -1673,21 +1674,6 @@ def _canonical_value(value: Any) -> Any:
         data = bytes(value)
         return {"sha256": hashlib.sha256(data).hexdigest(), "bytes": len(data)}
     return value
-
-
-def _public(rec: Record) -> dict[str, Any]:
-    """A record as JSON-able data (arrays as lists, inputs as [kind, id, revision])."""
-    out = {}
-    for f in dataclasses.fields(rec):
-        v = getattr(rec, f.name)
-        if hasattr(v, "tolist"):
-            v = v.tolist()
-        elif f.name == "inputs":
-            v = [[r.kind, r.id, r.revision] for r in v]
-        elif isinstance(v, tuple):
-            v = list(v)
-        out[f.name] = v
-    return out
 
 
 def _construct(cls: type[Record], kwargs: dict[str, Any]) -> Record:

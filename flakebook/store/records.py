@@ -724,6 +724,25 @@ def record_type(kind: str | type[Record] | Record) -> type[Record]:
         ) from None
 
 
+def record_to_dict(rec: Record) -> dict:
+    """A record as JSON-able data (arrays as lists, inputs as ``[kind, id, revision]``)."""
+    out = {}
+    for f in fields(rec):
+        v = getattr(rec, f.name)
+        if hasattr(v, "tolist"):
+            v = v.tolist()
+        elif f.name == "inputs":
+            v = [[r.kind, r.id, r.revision] for r in v]
+        elif isinstance(v, HolePattern):
+            v = v.to_dict()
+        elif f.name == "substrate":
+            v = [layer.to_dict() for layer in v]
+        elif isinstance(v, tuple):
+            v = list(v)
+        out[f.name] = v
+    return out
+
+
 @dataclass(frozen=True)
 class CatalogueRow:
     """One flake in the catalogue with its latest assignment and whether anything is stale."""
@@ -797,6 +816,7 @@ __all__ = [
     "KINDS",
     "DERIVED_KINDS",
     "record_type",
+    "record_to_dict",
     "layer_spacing_nm",
     "polygon_area",
 ]
