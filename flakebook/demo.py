@@ -622,7 +622,9 @@ def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptan
         a = absorptance(
             mat, n, LASER_NM, _substrate(), geometry="suspended", hole=_hole(), na_objective=0.5
         ).absorptance_flake
-        r_m = (math.log(radius_um / BEAM_RADIUS_UM) + 0.5772156649) / (2 * math.pi * kappa_true * t_m)
+        r_m = (math.log(radius_um / BEAM_RADIUS_UM) + 0.5772156649) / (
+            2 * math.pi * kappa_true * t_m
+        )
         chi_p_true = CHI_T_CM1_PER_K * a * r_m * 1e-3  # cm^-1 per mW incident
 
         ts = project.add_thermometry_series(

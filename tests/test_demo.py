@@ -51,13 +51,16 @@ def test_regenerating_gives_the_committed_sample_project(fresh):
     not SQLite bytes)."""
     committed = SAMPLE / demo.PROJECT_NAME
     assert committed.exists(), "sample_project/ is missing; run: flakebook demo sample_project"
-    with Project.open(committed, read_only=True) as a, Project.open(
-        fresh / demo.PROJECT_NAME, read_only=True
-    ) as b:
+    with (
+        Project.open(committed, read_only=True) as a,
+        Project.open(fresh / demo.PROJECT_NAME, read_only=True) as b,
+    ):
         dump_a, dump_b = a.canonical_dump(), b.canonical_dump()
     # Which flakebook wrote the rows is not content.
     for d in (dump_a, dump_b):
-        d["tables"]["meta"]["rows"] = [r for r in d["tables"]["meta"]["rows"] if r[0] != "created_with"]
+        d["tables"]["meta"]["rows"] = [
+            r for r in d["tables"]["meta"]["rows"] if r[0] != "created_with"
+        ]
     _close(dump_a, dump_b)
     assert _hashes(SAMPLE) == _hashes(fresh)
 
