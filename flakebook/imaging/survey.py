@@ -269,6 +269,7 @@ def survey_image(
         cancel=cancel,
     )
     warnings.extend(w for w in seg.warnings if w not in warnings)
+    bg = seg.background or bg
     check_cancel(cancel)
 
     lattice = None
