@@ -24,6 +24,7 @@ import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
+from scipy.stats import chi2 as chi2_dist
 
 from flakebook import evidence
 from flakebook.errors import InputError
@@ -271,7 +272,7 @@ def layer_likelihood(
     model_c = contrast_scale * nominal
     resid = (meas[None, :] - model_c) / tot_err
     best_chi2 = float(np.min(np.sum(resid**2, axis=1)))
-    if len(use) >= 1 and best_chi2 > 9.0 * len(use) + 16.0:
+    if best_chi2 > float(chi2_dist.isf(1e-3, len(use))):
         warnings.append(
             f"no layer number explains the measured contrast within its errors "
             f"(best chi-square {best_chi2:.1f} over {len(use)} channel(s)): check the substrate, "
