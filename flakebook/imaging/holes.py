@@ -146,6 +146,8 @@ def refine_hole(
     offset: tuple[int, int] = (0, 0),
     n_angles: int | None = None,
     iterations: int = 3,
+    max_rms_px: float = 0.3,
+    max_rms_rel: float = 0.03,
 ) -> tuple[float, float, float, float, float, int] | None:
     """Sub-pixel centre and radius of a hole from radial intensity profiles.
 
@@ -154,6 +156,8 @@ def refine_hole(
             (x, y) in the full image).
         cx, cy, r: rough centre and radius in full-image pixels.
         n_angles: rays (default: about one per pixel of circumference, 24 to 360).
+        max_rms_px, max_rms_rel: the largest rms scatter of edge points about the circle
+            accepted (pixels, plus a fraction of the radius); rounder shapes only.
 
     Returns:
         (cx, cy, r, center_err, radius_err, n_points) or None when no clear edge is found.
@@ -197,13 +201,17 @@ def refine_hole(
         # Leave out rays that a flake edge or dust disturbs.
         mad = 1.4826 * np.median(np.abs(res - np.median(res)))
         good = np.abs(res) <= max(3 * mad, 0.15)
-        if np.count_nonzero(good) >= 8 and not good.all():
+        if np.count_nonzero(good) < 0.7 * k:
+            return None  # too many rays off the circle: not a round hole
+        if not good.all():
             ncx, ncy, nr, res = fit_circle(ex[good], ey[good])
         if not (np.isfinite(nr) and nr > 0.5 and math.hypot(ncx - cx, ncy - cy) < 0.5 * r + 2):
             return None
         cx, cy, r = ncx, ncy, nr
     n = len(res)
     sd = float(np.sqrt(np.sum(res**2) / max(n - 3, 1)))
+    if sd > max_rms_px + max_rms_rel * r:
+        return None  # the edge is not a circle (a flake corner, dust)
     return cx, cy, r, sd * math.sqrt(2.0 / n), sd / math.sqrt(n), n
 
 
@@ -528,8 +536,14 @@ def hole_coverage(
     poly = np.asarray(outline_px, np.float64).reshape(-1, 2)
     if len(poly) < 3:
         return Coverage(0.0, False, float("nan"), float("nan"))
-    frac = circle_polygon_area(poly, center, r) / (math.pi * r * r)
-    frac = float(min(max(frac, 0.0), 1.0))
-    margin = signed_distance(poly, center) - r
+    sd = signed_distance(poly, center)
+    margin = sd - r
+    if sd >= r:
+        frac = 1.0  # wholly inside: no edge within the disk
+    elif sd <= -r:
+        frac = 0.0  # wholly outside
+    else:
+        frac = circle_polygon_area(poly, center, r) / (math.pi * r * r)
+        frac = float(min(max(frac, 0.0), 1.0))
     full = bool(margin >= 0 and frac > 1 - 1e-9)
     return Coverage(frac, full, margin, margin * um_per_px)

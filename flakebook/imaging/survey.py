@@ -12,7 +12,6 @@ INTERFACE.md's survey JSON.
 
 from __future__ import annotations
 
-import math
 import os
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -27,7 +26,6 @@ from flakebook.imaging.holes import (
     Coverage,
     Hole,
     Lattice,
-    circle_polygon_area,
     detect_holes,
     fit_lattice,
     hole_coverage,
@@ -158,6 +156,24 @@ def _mono(image: Micrograph) -> Micrograph:
     return replace(image, intensity=lin, channels=("mono",))
 
 
+def _share_over_hole(seg: Segmentation, reg: Region, hole: Hole) -> float:
+    """Fraction of a region's pixels that lie over a hole (working grid)."""
+    f = seg.factor
+    x0, y0, x1, y1 = reg.bbox_px
+    cx, cy, r = hole.center_px[0], hole.center_px[1], hole.radius_px
+    if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
+        return 0.0
+    wx0, wy0 = int(x0 // f), int(y0 // f)
+    wx1, wy1 = int(x1 // f) + 1, int(y1 // f) + 1
+    lab = seg.labels[wy0:wy1, wx0:wx1] == reg.id
+    n = int(np.count_nonzero(lab))
+    if n == 0:
+        return 0.0
+    yy, xx = np.nonzero(lab)
+    d = np.hypot(_grid.to_full(xx + wx0, f) - cx, _grid.to_full(yy + wy0, f) - cy)
+    return float(np.count_nonzero(d <= r)) / n
+
+
 def survey_image(
     source,
     *,
@@ -269,6 +285,7 @@ def survey_image(
         cancel=cancel,
     )
     warnings.extend(w for w in seg.warnings if w not in warnings)
+    bg = seg.background or bg
     check_cancel(cancel)
 
     lattice = None
@@ -300,13 +317,7 @@ def survey_image(
         check_cancel(cancel)
         geometry, hidx = "supported", None
         for k, h in enumerate(holes):
-            if (
-                math.hypot(reg.centroid_px[0] - h.center_px[0], reg.centroid_px[1] - h.center_px[1])
-                > h.radius_px
-            ):
-                continue
-            inside = circle_polygon_area(reg.outline_px, h.center_px, h.radius_px)
-            if inside >= 0.5 * min(reg.area_px, math.pi * h.radius_px**2):
+            if _share_over_hole(seg, reg, h) >= 0.5:
                 geometry, hidx = "suspended", k
                 break
         rwarn: list[str] = []

@@ -296,17 +296,30 @@ def repeated_film_reflectance(
     yj = q if pol == "s" else eps / q
     e1 = _phase_factor((2.0 * k0 * float(unit_thickness_nm)) * q)
     counts = np.asarray(counts, dtype=int)
-    if counts.ndim != 1 or np.any(counts < 0):
-        raise InputError("counts must be a 1-d list of whole numbers >= 0")
-    top = int(counts.max()) if counts.size else 0
+    if counts.ndim != 1 or counts.size == 0 or np.any(counts < 0):
+        raise InputError("counts must be a non-empty 1-d list of whole numbers >= 0")
     shape = np.broadcast_shapes(np.shape(e1), np.shape(y_below), np.shape(yj))
-    powers = np.empty((top + 1, *shape), dtype=complex)
-    powers[0] = 1.0
-    if top:
-        powers[1:] = np.broadcast_to(e1, shape)
-        np.cumprod(powers[1:], axis=0, out=powers[1:])
-    y = _on_top(y_below, yj, powers[counts])
-    return reflectance_from_admittance(y, n_ambient, sin_theta, pol)
+    e1 = np.broadcast_to(e1, shape)
+    lo, hi = int(counts.min()), int(counts.max())
+    # e1**N by repeated multiplication: one cumulative product over lo..hi.
+    run = np.empty((hi - lo + 1, *shape), dtype=complex)
+    run[0] = e1**lo if lo != 1 else e1
+    if hi > lo:
+        run[1:] = e1
+        np.cumprod(run, axis=0, out=run)
+    contiguous = counts.size == hi - lo + 1 and np.all(np.diff(counts) == 1)
+    e = run if contiguous else run[counts - lo]
+    # r = (Y0 - Y)/(Y0 + Y) with Y = yj (a + b e)/(a - b e), a = Yb + yj, b = Yb - yj:
+    # r = ((Y0 - yj) a - (Y0 + yj) b e) / ((Y0 + yj) a + (yj - Y0) b e).
+    _, y0 = _ambient(n_ambient, sin_theta, pol)
+    a = y_below + yj
+    b = y_below - yj
+    p_ = (y0 - yj) * a
+    q_ = (y0 + yj) * a
+    u = (y0 + yj) * b
+    v = (yj - y0) * b
+    r = (p_ - u * e) / (q_ + v * e)
+    return r.real**2 + r.imag**2
 
 
 def cone_nodes(na: float, n_angles: int = 16, n_ambient: float = 1.0):
