@@ -23,7 +23,10 @@ from flakebook.errors import InputError, check_cancel
 
 PROJECT_NAME = "k7-campaign.flakebook"
 MATERIAL = "MoSe2"
-OXIDE_NM = 285.0
+OXIDE_NM = 285.0  # the chips' nominal oxide (what the project records)
+# The oxide the micrographs are rendered with: the chips are a few nm off their nominal value,
+# as real wafers are, so the demo shows what a nominal oxide with its uncertainty does.
+TRUE_OXIDE_NM = {"K7-north": 288.0, "K7-south": 283.0}
 LASER_NM = 532.0
 DARK_OFFSET = 0.012  # fraction of full scale, the invented camera's black level
 HOLE_DIAMETER_UM = 5.0
@@ -164,13 +167,13 @@ class View:
         return cx - hw, cx + hw, cy - hh, cy + hh
 
 
-def _contrast_tables(has_holes: bool, max_n: int = 9):
+def _contrast_tables(sample: str, has_holes: bool, max_n: int = 9):
     """Model contrast per channel for N = 0..max_n, supported and (with holes) suspended."""
     from flakebook.optics.materials import get_material
     from flakebook.optics.microscope import Microscope, channel_contrast
 
     mat = get_material(MATERIAL)
-    sub = _substrate()
+    sub = _substrate(TRUE_OXIDE_NM[sample])
     mic = Microscope(na_illumination=NA_ILLUMINATION)
     layers = np.arange(0, max_n + 1)
     sup = channel_contrast(mat, layers, sub, mic)
@@ -181,10 +184,10 @@ def _contrast_tables(has_holes: bool, max_n: int = 9):
     return out
 
 
-def _substrate():
+def _substrate(oxide_nm: float = OXIDE_NM):
     from flakebook.optics.substrate import Substrate
 
-    return Substrate.from_oxide(OXIDE_NM)
+    return Substrate.from_oxide(oxide_nm)
 
 
 def _hole():
@@ -204,7 +207,7 @@ def render_view(view: View, flakes: tuple[DemoFlake, ...], rng: np.random.Genera
     from flakebook.imaging.io import linear_to_srgb
 
     holes = view.sample == "K7-south"
-    tables = _contrast_tables(holes)
+    tables = _contrast_tables(view.sample, holes)
     ss = 3
     h, w = view.height_px * ss, view.width_px * ss
     layer_map = np.zeros((h, w), np.uint8)
@@ -467,6 +470,13 @@ def build_demo(
             )
             _store_survey(project, image, view, result, flakes, combine)
 
+        project.assign(
+            flakes["K7N-03"],
+            3,
+            reason="contrast in r, g and b says 3L; the B2g(1) mode is present and the A1g sits "
+            "between the 2L and 4L flakes' positions",
+            who="demo",
+        )
         report(0.7, "spectra")
         _add_spectra(project, folder, flakes, rng)
         report(0.8, "thermometry")
@@ -491,6 +501,7 @@ def build_demo(
 def _store_survey(project, image, view, result, flakes, combine) -> None:
     """Link the survey's flakes in one image to the scenario's flakes and store them."""
     from flakebook.imaging.holes import signed_distance
+    from flakebook.imaging.terraces import terrace_groups
 
     holes_by_index = {}
     for i, h in enumerate(result.holes):
@@ -516,37 +527,45 @@ def _store_survey(project, image, view, result, flakes, combine) -> None:
             continue  # a partial flake at the frame's edge, or a neighbour's corner
         flake = flakes[demo.label]
         app = project.add_appearance(flake, image, sf.outline_px)
-        regions = [r for r in result.regions if r.region.flake_id == sf.id]
-        likelihoods = []
-        for r in sorted(regions, key=lambda r: r.region.id):
+        by_id = {r.region.id: r for r in result.regions}
+        terraces = []  # (terrace record, [survey regions], suspended?, area)
+        for group in terrace_groups(result):
+            regs = [by_id[i] for i in group if by_id[i].region.flake_id == sf.id]
+            if not regs:
+                continue
+            head = regs[0]
             terrace = project.add_terrace(
                 app,
-                r.region.outline_px,
-                label=f"{r.geometry} {r.region.id}",
+                head.region.outline_px,
+                label="over a hole" if len(regs) > 1 or head.geometry == "suspended" else "",
             )
-            if r.likelihood is None:
-                continue
-            project.add_evidence(
-                flake,
-                r.likelihood,
-                method="contrast-likelihood",
-                terrace=terrace,
-                inputs=[image, app],
-                parameters={
-                    "contrast": dict(r.region.contrast),
-                    "contrast_err": dict(r.region.contrast_err),
-                    "geometry": r.geometry,
-                    "objective": view.objective,
-                    "na_illumination": NA_ILLUMINATION,
-                    "oxide_nm": OXIDE_NM,
-                    "oxide_err_nm": 3.0,
-                },
-                source=result.provenance.get("optical_constants", "")
-                if isinstance(result.provenance, dict)
-                else "",
-                reason=r.decider,
-            )
-            likelihoods.append((r, terrace))
+            for r in regs:
+                if r.likelihood is None:
+                    continue
+                project.add_evidence(
+                    flake,
+                    r.likelihood,
+                    method="contrast-likelihood",
+                    terrace=terrace,
+                    inputs=[image, app],
+                    parameters={
+                        "contrast": dict(r.region.contrast),
+                        "contrast_err": dict(r.region.contrast_err),
+                        "geometry": r.geometry,
+                        "area_um2": r.region.area_um2,
+                        "objective": view.objective,
+                        "na_illumination": NA_ILLUMINATION,
+                        "oxide_nm": OXIDE_NM,
+                        "oxide_err_nm": 3.0,
+                    },
+                    source=str(result.provenance.get("optical_constants", ""))
+                    if isinstance(result.provenance, dict)
+                    else "",
+                    reason=r.decider,
+                )
+            suspended = any(r.geometry == "suspended" for r in regs)
+            area = sum(r.region.area_um2 for r in regs)
+            terraces.append((terrace, regs, suspended, area))
         for link in result.coverage:
             if link.flake_id != sf.id:
                 continue
@@ -558,13 +577,16 @@ def _store_survey(project, image, view, result, flakes, combine) -> None:
                 fully_covered=cov.fully_covered,
                 margin_um=cov.margin_um,
             )
-        if view.objective == "50x" and likelihoods:
-            # The flake's layer number: the primary terrace (over a hole if any, else largest).
-            over = [lt for lt in likelihoods if lt[0].geometry == "suspended"]
-            r, terrace = max(over or likelihoods, key=lambda lt: lt[0].region.area_um2)
+        if view.objective == "50x" and terraces:
+            # The flake's layer number: its primary terrace (over a hole if any, else the
+            # largest), from every piece of evidence on that terrace.
+            over = [t for t in terraces if t[2]]
+            terrace = max(over or terraces, key=lambda t: t[3])[0]
             project.update(flake, primary_terrace_id=terrace.id)
-            post = combine([r.likelihood])
             evid = project.evidence_of(flake, terrace)
+            if not evid:
+                continue
+            post = combine([e.likelihood for e in evid])
             project.add_assignment(
                 flake,
                 post.layers,
