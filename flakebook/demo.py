@@ -370,7 +370,6 @@ def build_demo(
     Returns the path of the project file. Deterministic: the same flakebook gives the same rows
     and the same files.
     """
-    from flakebook.evidence import combine
     from flakebook.imaging.survey import survey_image
     from flakebook.optics.absorptance import absorptance
     from flakebook.optics.materials import get_material
@@ -468,7 +467,7 @@ def build_demo(
                 hole_radius_um=HOLE_DIAMETER_UM / 2 if holey else None,
                 hole=_hole() if holey else None,
             )
-            _store_survey(project, image, view, result, flakes, combine)
+            _store_survey(project, image, view, result, flakes)
 
         project.assign(
             flakes["K7N-03"],
@@ -498,105 +497,29 @@ def build_demo(
     return path
 
 
-def _store_survey(project, image, view, result, flakes, combine) -> None:
-    """Link the survey's flakes in one image to the scenario's flakes and store them."""
+def _store_survey(project, image, view, result, flakes) -> None:
+    """Record the survey of one image, its flakes matched to the scenario's by position."""
     from flakebook.imaging.holes import signed_distance
-    from flakebook.imaging.terraces import terrace_groups
+    from flakebook.pipeline import store_survey
 
-    holes_by_index = {}
-    for i, h in enumerate(result.holes):
-        holes_by_index[i] = project.add_hole(
-            image,
-            h.center_px,
-            h.radius_px,
-            radius_um=h.radius_um,
-            radius_err_um=h.radius_err_um,
-            source="detected" if h.detected else "lattice",
-        )
     here = [f for f in FLAKES if f.sample == view.sample]
     centres = view.to_px(np.array([f.center_um for f in here]))
-    by_survey_flake: dict[int, DemoFlake] = {}
-    for sf in result.flakes:
+
+    def flake_for(sf):
+        # A partial flake at the frame's edge or a neighbour's corner matches none.
         for f, c in zip(here, centres):
             if signed_distance(sf.outline_px, (float(c[0]), float(c[1]))) > 0:
-                by_survey_flake[sf.id] = f
-                break
-    for sf in result.flakes:
-        demo = by_survey_flake.get(sf.id)
-        if demo is None:
-            continue  # a partial flake at the frame's edge, or a neighbour's corner
-        flake = flakes[demo.label]
-        app = project.add_appearance(flake, image, sf.outline_px)
-        by_id = {r.region.id: r for r in result.regions}
-        terraces = []  # (terrace record, [survey regions], suspended?, area)
-        for group in terrace_groups(result):
-            regs = [by_id[i] for i in group if by_id[i].region.flake_id == sf.id]
-            if not regs:
-                continue
-            head = regs[0]
-            terrace = project.add_terrace(
-                app,
-                head.region.outline_px,
-                label="over a hole" if len(regs) > 1 or head.geometry == "suspended" else "",
-            )
-            for r in regs:
-                if r.likelihood is None:
-                    continue
-                project.add_evidence(
-                    flake,
-                    r.likelihood,
-                    method="contrast-likelihood",
-                    terrace=terrace,
-                    inputs=[image, app],
-                    parameters={
-                        "contrast": dict(r.region.contrast),
-                        "contrast_err": dict(r.region.contrast_err),
-                        "geometry": r.geometry,
-                        "area_um2": r.region.area_um2,
-                        "objective": view.objective,
-                        "na_illumination": NA_ILLUMINATION,
-                        "oxide_nm": OXIDE_NM,
-                        "oxide_err_nm": 3.0,
-                    },
-                    source=str(result.provenance.get("optical_constants", ""))
-                    if isinstance(result.provenance, dict)
-                    else "",
-                    reason=r.decider,
-                )
-            suspended = any(r.geometry == "suspended" for r in regs)
-            area = sum(r.region.area_um2 for r in regs)
-            terraces.append((terrace, regs, suspended, area))
-        for link in result.coverage:
-            if link.flake_id != sf.id:
-                continue
-            cov = link.coverage
-            project.link_flake_hole(
-                flake,
-                holes_by_index[link.hole_index],
-                covered_fraction=cov.covered_fraction,
-                fully_covered=cov.fully_covered,
-                margin_um=cov.margin_um,
-            )
-        if view.objective == "50x" and terraces:
-            # The flake's layer number: its primary terrace (over a hole if any, else the
-            # largest), from every piece of evidence on that terrace.
-            over = [t for t in terraces if t[2]]
-            terrace = max(over or terraces, key=lambda t: t[3])[0]
-            project.update(flake, primary_terrace_id=terrace.id)
-            evid = project.evidence_of(flake, terrace)
-            if not evid:
-                continue
-            post = combine([e.likelihood for e in evid])
-            project.add_assignment(
-                flake,
-                post.layers,
-                terrace_id=terrace.id,
-                probability=post.probability,
-                ambiguous_with=post.ambiguous_with,
-                posterior=post.posterior,
-                method="combined-evidence",
-                inputs=evid,
-            )
+                return flakes[f.label]
+        return None
+
+    store_survey(
+        project,
+        image,
+        result,
+        flake_for=flake_for,
+        assign=view.objective == "50x",
+        parameters={"objective": view.objective},
+    )
 
 
 def _add_spectra(project, folder: Path, flakes, rng) -> None:

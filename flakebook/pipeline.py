@@ -1,0 +1,283 @@
+"""Core computations recorded in a project: the one place where a survey becomes records.
+
+The desktop program, the command line and the demo all store a micrograph's survey through
+:func:`store_survey` and recompute stale layer evidence through the recomputers registered here,
+so a flake's evidence means the same whichever of them made it. No Qt here.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+from flakebook.errors import InputError
+from flakebook.store import (
+    Assignment,
+    Evidence,
+    Flake,
+    Image,
+    Project,
+    Sample,
+    register_recomputer,
+)
+from flakebook.substrate import format_substrate
+
+CONTRAST_METHOD = "optical contrast (thin-film model)"
+COMBINED_METHOD = "combined evidence"
+OPTICS_SOURCE = "optical constants of flakebook.optics.materials (see flakebook materials)"
+
+
+def optics_inputs(sample: Sample, image: Image):
+    """(material, substrate, microscope) of the optics model for an image of a sample."""
+    from flakebook.optics.materials import get_material
+    from flakebook.optics.microscope import Illumination, Microscope
+    from flakebook.optics.substrate import parse_substrate
+
+    material = get_material(sample.material)
+    substrate = parse_substrate(format_substrate(sample.substrate))
+    illumination = (
+        Illumination.parse(image.illumination) if image.illumination else Illumination.halogen()
+    )
+    microscope = Microscope(
+        na_illumination=float(image.na_illumination or 0.0), illumination=illumination
+    )
+    return material, substrate, microscope
+
+
+def optics_hole(sample: Sample):
+    """The optics model's hole for a sample's hole pattern (None without one)."""
+    if sample.hole_pattern is None:
+        return None
+    from flakebook.optics.substrate import Hole as OpticsHole
+
+    hp = sample.hole_pattern
+    return OpticsHole(bottom=hp.bottom, depth_nm=hp.depth_nm)
+
+
+def calibration_of(project: Project, sample: Sample, image: Image | None = None) -> dict:
+    """The optics calibration that applies to an image: the newest one of that image, else the
+    newest one of its sample; as keyword arguments for the survey (empty without one)."""
+    cals = project.calibrations_of(sample)
+    mine = [c for c in cals if image is not None and c.image_id == image.id]
+    chosen = (mine or [c for c in cals if c.image_id is None] or [None])[-1]
+    if chosen is None:
+        return {}
+    out: dict = {}
+    if chosen.dark_offset:
+        out["dark_offset"] = dict(chosen.dark_offset)
+    if chosen.oxide_err_nm is not None:
+        out["oxide_err_nm"] = float(chosen.oxide_err_nm)
+    scales = list((chosen.contrast_scale or {}).values())
+    errs = list((chosen.contrast_scale_err or {}).values())
+    if scales:
+        out["contrast_scale"] = float(sum(scales) / len(scales))
+    if errs:
+        out["contrast_scale_err"] = float(max(errs))
+    return out
+
+
+def contrast_reason(contrast: dict, contrast_err: dict, geometry: str, stack: str) -> str:
+    """One line saying what a contrast likelihood was computed from."""
+    parts = [f"{ch} {c:+.3f}±{contrast_err.get(ch, 0):.3f}" for ch, c in contrast.items()]
+    where = "over a hole (suspended model)" if geometry == "suspended" else "on the substrate"
+    return f"contrast {', '.join(parts)} {where}, against the thin-film model of {stack}"
+
+
+@dataclass
+class StoredSurvey:
+    """Records a survey added to a project (their ids), for undo and for reporting."""
+
+    flakes: list[int] = field(default_factory=list)
+    new_flakes: list[int] = field(default_factory=list)
+    appearances: list[int] = field(default_factory=list)
+    holes: list[int] = field(default_factory=list)
+    assignments: list[int] = field(default_factory=list)
+
+
+def store_survey(
+    project: Project,
+    image: Image,
+    result,
+    *,
+    flake_for: Callable[[object], Flake | None] | None = None,
+    new_label: Callable[[], str] | None = None,
+    assign: bool = True,
+    parameters: dict | None = None,
+) -> StoredSurvey:
+    """Record a survey of ``image`` (a ``flakebook.imaging.survey.SurveyResult``), in one
+    transaction.
+
+    Each surveyed flake becomes an appearance of the flake ``flake_for(survey_flake)`` returns
+    (an existing flake seen again), or of a new flake labelled ``new_label()``; flakes for which
+    ``flake_for`` returns None and there is no ``new_label`` are skipped. Regions become terraces
+    (a suspended region and the supported region around its hole are one terrace: same
+    thickness), each region's likelihood a piece of contrast evidence on its terrace, and with
+    ``assign`` the flake gets an assignment combining its primary terrace's evidence (the
+    terrace over a hole if any, else the largest). Holes and flake-hole coverage are recorded.
+    """
+    from flakebook.imaging.terraces import terrace_groups
+
+    sample = project.get(Sample, image.sample_id)
+    stack = format_substrate(sample.substrate)
+    extra = dict(parameters or {})
+    out = StoredSurvey()
+    with project.transaction():
+        hole_ids: dict[int, int] = {}
+        for i, h in enumerate(result.holes):
+            rec = project.add_hole(
+                image,
+                h.center_px,
+                h.radius_px,
+                radius_um=h.radius_um,
+                radius_err_um=h.radius_err_um,
+                source="detected" if h.detected else "lattice",
+            )
+            hole_ids[i] = rec.id
+            out.holes.append(rec.id)
+        by_id = {r.region.id: r for r in result.regions}
+        groups = terrace_groups(result)
+        for sf in result.flakes:
+            flake = flake_for(sf) if flake_for is not None else None
+            if flake is None:
+                if new_label is None:
+                    continue
+                flake = project.add_flake(sample, new_label())
+                out.new_flakes.append(flake.id)
+            out.flakes.append(flake.id)
+            app = project.add_appearance(flake, image, sf.outline_px)
+            out.appearances.append(app.id)
+            terraces = []  # (terrace, evidence records, over a hole, area)
+            for group in groups:
+                regs = [by_id[i] for i in group if by_id[i].region.flake_id == sf.id]
+                if not regs:
+                    continue
+                suspended = any(r.geometry == "suspended" for r in regs)
+                head = regs[0]
+                terrace = project.add_terrace(
+                    app,
+                    head.region.outline_px,
+                    label=f"T{head.region.id}" + (" (over a hole)" if suspended else ""),
+                )
+                evidence = []
+                for r in regs:
+                    if r.likelihood is None:
+                        continue
+                    reg = r.region
+                    evidence.append(
+                        project.add_evidence(
+                            flake,
+                            r.likelihood,
+                            method=CONTRAST_METHOD,
+                            terrace=terrace,
+                            inputs=[sample, image, app],
+                            parameters={
+                                "contrast": dict(reg.contrast),
+                                "contrast_err": dict(reg.contrast_err),
+                                "geometry": r.geometry,
+                                "area_um2": reg.area_um2,
+                                "image_id": image.id,
+                                "decider": r.decider,
+                                "target_probability": r.target_probability,
+                                **extra,
+                            },
+                            source=OPTICS_SOURCE,
+                            reason=contrast_reason(
+                                reg.contrast, reg.contrast_err, r.geometry, stack
+                            ),
+                        )
+                    )
+                area = sum(r.region.area_um2 for r in regs)
+                terraces.append((terrace, evidence, suspended, area))
+            for link in result.coverage:
+                if link.flake_id != sf.id or link.coverage.covered_fraction <= 0:
+                    continue
+                c = link.coverage
+                project.link_flake_hole(
+                    flake,
+                    hole_ids[link.hole_index],
+                    covered_fraction=c.covered_fraction,
+                    fully_covered=c.fully_covered,
+                    margin_um=c.margin_um,
+                )
+            if assign and terraces:
+                over = [t for t in terraces if t[2]]
+                terrace, evidence, _, _ = max(over or terraces, key=lambda t: t[3])
+                project.update(project.get(Flake, flake.id), primary_terrace_id=terrace.id)
+                if evidence:
+                    out.assignments.append(add_combined(project, flake, terrace, evidence).id)
+    return out
+
+
+def add_combined(project: Project, flake, terrace, evidence: list[Evidence]) -> Assignment:
+    """A computed assignment of a terrace from its evidence (flat prior)."""
+    from flakebook.evidence import combine
+
+    post = combine([e.likelihood for e in evidence])
+    return project.add_assignment(
+        flake,
+        int(post.layers),
+        terrace_id=terrace.id if terrace is not None else None,
+        probability=float(post.probability),
+        ambiguous_with=tuple(int(n) for n in post.ambiguous_with),
+        posterior=post.posterior,
+        method=COMBINED_METHOD,
+        inputs=list(evidence),
+    )
+
+
+# ---- recomputing stale records ------------------------------------------------------------
+
+
+def _recompute_contrast(project: Project, rec: Evidence):
+    from flakebook.optics.layers import layer_likelihood
+
+    sample = project.get(Sample, project.get(Flake, rec.flake_id).sample_id)
+    image_id = rec.parameters.get("image_id")
+    if image_id is None:
+        raise InputError("the evidence does not name the image its contrast was measured in")
+    img = project.get(Image, image_id)
+    material, substrate, microscope = optics_inputs(sample, img)
+    kw = dict(calibration_of(project, sample, img))
+    kw.pop("dark_offset", None)  # already subtracted from the measured contrast
+    if rec.parameters.get("geometry") == "suspended":
+        kw.update(geometry="suspended", hole=optics_hole(sample))
+    lk = layer_likelihood(
+        dict(rec.parameters["contrast"]),
+        dict(rec.parameters.get("contrast_err") or {}) or None,
+        material=material,
+        substrate=substrate,
+        microscope=microscope,
+        max_layers=rec.max_layers,
+        **kw,
+    )
+    params = dict(rec.parameters)
+    params["decider"] = lk.decider
+    return {
+        "likelihood": lk.likelihood,
+        "parameters": params,
+        "reason": contrast_reason(
+            params["contrast"],
+            params.get("contrast_err") or {},
+            params.get("geometry", "supported"),
+            format_substrate(sample.substrate),
+        ),
+    }
+
+
+def _recompute_combined(project: Project, rec: Assignment):
+    from flakebook.evidence import combine
+
+    evidence = [project.get(Evidence, ref.id) for ref in rec.inputs if ref.kind == "evidence"]
+    if not evidence:
+        raise InputError("the assignment names no evidence to combine")
+    post = combine([e.likelihood for e in evidence])
+    return {
+        "layers": int(post.layers),
+        "probability": float(post.probability),
+        "ambiguous_with": tuple(int(n) for n in post.ambiguous_with),
+        "posterior": post.posterior,
+    }
+
+
+register_recomputer(CONTRAST_METHOD, _recompute_contrast)
+register_recomputer(COMBINED_METHOD, _recompute_combined)
