@@ -423,11 +423,13 @@ def build_demo(
         flakes = {f.label: project.add_flake(samples[f.sample], f.label, tags=f.tags,
                                              notes=f.notes) for f in FLAKES}  # fmt: skip
 
+        # The 50x shots first (each names its flake), then the overviews, whose flakes are
+        # linked to those by stage position.
         views: list[View] = []
-        for name in ("K7-north", "K7-south"):
-            views.append(View(f"{name}_10x_overview", name, "10x", (0.0, 0.0), 1100, 760))
         for f in FLAKES:
             views.append(View(f"{f.label}_50x", f.sample, "50x", f.center_um, 800, 600))
+        for name in ("K7-north", "K7-south"):
+            views.append(View(f"{name}_10x_overview", name, "10x", (0.0, 0.0), 1100, 760))
 
         mic = Microscope(na_illumination=NA_ILLUMINATION)
         for k, view in enumerate(views):
@@ -500,8 +502,12 @@ def build_demo(
 def _store_survey(project, image, view, result, flakes) -> None:
     """Record the survey of one image, its flakes matched to the scenario's by position."""
     from flakebook.imaging.holes import signed_distance
-    from flakebook.pipeline import store_survey
+    from flakebook.pipeline import link_by_stage, store_survey
 
+    if view.objective == "10x":
+        store_survey(project, image, result, flake_for=link_by_stage(project, image), assign=False,
+                     parameters={"objective": view.objective})  # fmt: skip
+        return
     here = [f for f in FLAKES if f.sample == view.sample]
     centres = view.to_px(np.array([f.center_um for f in here]))
 

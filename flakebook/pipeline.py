@@ -76,6 +76,48 @@ def calibration_of(project: Project, sample: Sample, image: Image | None = None)
     return out
 
 
+def link_by_stage(project: Project, image: Image, *, min_score: float = 0.5):
+    """A ``flake_for`` for :func:`store_survey`: the known flake of the same sample whose outline
+    in another image best overlaps the new one on the chip (through both images' stage positions
+    and pixel sizes), if the match scores at least ``min_score``; None otherwise, and always
+    None for an image without a stage position or pixel size."""
+    from flakebook.imaging.linking import suggest_links, to_chip_um
+
+    def chip(img: Image, outline_px):
+        return to_chip_um(
+            outline_px,
+            um_per_px=img.pixel_size_um,
+            stage_um=(img.stage_x_um, img.stage_y_um),
+            shape=(img.height_px, img.width_px),
+        )
+
+    def placed(img: Image) -> bool:
+        return (
+            img.pixel_size_um is not None
+            and img.stage_x_um is not None
+            and img.stage_y_um is not None
+            and img.width_px is not None
+            and img.height_px is not None
+        )
+
+    if not placed(image):
+        return lambda survey_flake: None
+    candidates = []
+    for other in project.images_of(image.sample_id):
+        if other.id == image.id or not placed(other):
+            continue
+        for flake in project.flakes_of(image.sample_id):
+            for app in project.appearances_of(flake):
+                if app.image_id == other.id:
+                    candidates.append((flake.id, chip(other, app.outline_px)))
+
+    def flake_for(survey_flake):
+        got = suggest_links(chip(image, survey_flake.outline_px), candidates, min_score=min_score)
+        return project.get(Flake, got[0].key) if got else None
+
+    return flake_for
+
+
 def contrast_reason(contrast: dict, contrast_err: dict, geometry: str, stack: str) -> str:
     """One line saying what a contrast likelihood was computed from."""
     parts = [f"{ch} {c:+.3f}±{contrast_err.get(ch, 0):.3f}" for ch, c in contrast.items()]
