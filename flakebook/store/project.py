@@ -72,7 +72,8 @@ _SQLITE_MAGIC = b"SQLite format 3\x00"
 _ACCEPTED = "accepted: a .flakebook project file written by flakebook"
 _TIMESTAMP_COLUMNS = frozenset({"computed_at", "assigned_at", "imported_at"})
 _TIMESTAMP_META = frozenset({"created_at"})
-# Columns that are no dataclass field: kept in step with the record on every write.
+# Columns that are no dataclass field (area_um2; terraces.flake_id, appearances.pixel_size_um):
+# kept in step with the records on every write, for the catalogue's speed.
 _AREA_TABLES = frozenset({"appearances", "terraces"})
 
 Clock = Callable[[], datetime | str]
@@ -582,6 +583,15 @@ class Project:
         values.pop("revision")
         if rec.TABLE in _AREA_TABLES:
             values["area_um2"] = rec.area_um2
+        if isinstance(rec, Terrace):
+            row = self._db.execute(
+                "SELECT flake_id FROM appearances WHERE id = ?", (rec.appearance_id,)
+            ).fetchone()
+            if row is None:
+                raise InputError(f"{self._path.name} has no appearance with id {rec.appearance_id}")
+            values["flake_id"] = row[0]
+        elif isinstance(rec, Appearance):
+            values["pixel_size_um"] = self._pixel_size(rec.image_id)
         return values
 
     def _from_row(self, cls: type[Record], row: Sequence[Any]) -> Record:
@@ -779,9 +789,18 @@ class Project:
         return self._pixel_size(self.get(Appearance, rec.appearance_id).image_id)
 
     def _after_update(self, old: Record, new: Record) -> None:
-        """A new pixel size rescales what was measured in um on that image."""
+        """Keep the catalogue's columns in step; a new pixel size rescales what was measured in
+        um on that image."""
+        if isinstance(new, Appearance) and new.flake_id != old.flake_id:
+            self._db.execute(
+                "UPDATE terraces SET flake_id = ? WHERE appearance_id = ?", (new.flake_id, new.id)
+            )
         if not isinstance(new, Image) or new.pixel_size_um == old.pixel_size_um:
             return
+        self._db.execute(
+            "UPDATE appearances SET pixel_size_um = ? WHERE image_id = ?",
+            (new.pixel_size_um, new.id),
+        )
         size = new.pixel_size_um
         if size is None:
             return
@@ -1315,25 +1334,23 @@ class Project:
         """The flakes (of one sample, or all) with their latest assignment, area (from the
         finest-pixel image), fully covered holes and whether anything of theirs is stale."""
         sid = _id_of(sample)
-        rows = self._db.execute(_CATALOGUE_SQL, (sid, sid)).fetchall()
+        con = self._db
+        # Few flakes cover holes or have stale records: two small queries, looked up per row.
+        covered = dict(con.execute(_COVERED_SQL).fetchall())
+        stale = {r[0] for r in con.execute(_STALE_SQL)}
+        make = CatalogueRow._make
         return [
-            CatalogueRow(
-                flake_id=r[0],
-                label=r[1],
-                sample_id=r[2],
-                sample=r[3],
-                material=r[4],
-                status=r[5],
-                tags=tuple(json.loads(r[6])),
-                area_um2=r[7],
-                primary_terrace_id=r[8],
-                layers=r[9],
-                probability=r[10],
-                manual=bool(r[11]),
-                holes_covered=r[12],
-                stale=bool(r[13]),
+            make(
+                (
+                    *r[:6],
+                    _tags(r[6]),
+                    *r[7:11],
+                    bool(r[11]),
+                    covered.get(r[0], 0),
+                    r[0] in stale,
+                )
             )
-            for r in rows
+            for r in con.execute(_CATALOGUE_SQL, (sid, sid))
         ]
 
     def export_rows(self, sample: RecordRef | None = None) -> list[dict[str, Any]]:
@@ -1665,6 +1682,10 @@ class Project:
         return out
 
 
+def _tags(text: str) -> tuple:
+    return () if text == "[]" else tuple(json.loads(text))
+
+
 def _same_array(a, b) -> bool:
     return a is b or (a is not None and b is not None and np.array_equal(a, b))
 
@@ -1740,11 +1761,10 @@ _PRIMARY_TERRACE = """COALESCE(
     (SELECT fh.terrace_id FROM flake_holes fh
       WHERE fh.flake_id = f.id AND fh.terrace_id IS NOT NULL
       ORDER BY fh.fully_covered DESC, fh.covered_fraction DESC, fh.id LIMIT 1),
-    (SELECT t.id FROM appearances a JOIN terraces t ON t.appearance_id = a.id
-      WHERE a.flake_id = f.id ORDER BY t.area_um2 DESC, t.id LIMIT 1))"""
+    (SELECT t.id FROM terraces t WHERE t.flake_id = f.id ORDER BY t.area_um2 DESC, t.id LIMIT 1))"""
 
 _CATALOGUE_SQL = f"""
-WITH base AS (
+WITH base AS MATERIALIZED (
     SELECT f.id, f.label, f.sample_id, f.status, f.tags, {_PRIMARY_TERRACE} AS tid
     FROM flakes f WHERE (? IS NULL OR f.sample_id = ?)
 ), latest AS (
@@ -1755,18 +1775,19 @@ WITH base AS (
     FROM base b
 )
 SELECT l.id, l.label, l.sample_id, s.name, s.material, l.status, l.tags,
-    (SELECT ap.area_um2 FROM appearances ap JOIN images i ON i.id = ap.image_id
-      WHERE ap.flake_id = l.id
-      ORDER BY i.pixel_size_um IS NULL, i.pixel_size_um, ap.id LIMIT 1),
-    l.tid, asg.layers, asg.probability, COALESCE(asg.manual, 0),
-    (SELECT COUNT(*) FROM flake_holes fh WHERE fh.flake_id = l.id AND fh.fully_covered),
-    EXISTS(SELECT 1 FROM evidence e WHERE e.flake_id = l.id AND e.stale)
-      OR EXISTS(SELECT 1 FROM assignments a2 WHERE a2.flake_id = l.id AND a2.stale)
-      OR EXISTS(SELECT 1 FROM thermometry_results r WHERE r.flake_id = l.id AND r.stale)
+    (SELECT ap.area_um2 FROM appearances ap WHERE ap.flake_id = l.id
+      ORDER BY COALESCE(ap.pixel_size_um, 1e308), ap.id LIMIT 1),
+    asg.layers, asg.probability, l.tid, COALESCE(asg.manual, 0)
 FROM latest l
 JOIN samples s ON s.id = l.sample_id
 LEFT JOIN assignments asg ON asg.id = l.aid
 ORDER BY l.sample_id, l.label
 """
+
+_COVERED_SQL = "SELECT flake_id, COUNT(*) FROM flake_holes WHERE fully_covered GROUP BY flake_id"
+_STALE_SQL = (
+    "SELECT flake_id FROM evidence WHERE stale UNION SELECT flake_id FROM assignments WHERE stale "
+    "UNION SELECT flake_id FROM thermometry_results WHERE stale"
+)
 
 __all__ = ["Project", "SUFFIX", "DEFAULT_MAX_LAYERS"]

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, fields
-from typing import ClassVar
+from typing import ClassVar, NamedTuple
 
 import numpy as np
 
@@ -743,8 +743,7 @@ def record_to_dict(rec: Record) -> dict:
     return out
 
 
-@dataclass(frozen=True)
-class CatalogueRow:
+class CatalogueRow(NamedTuple):
     """One flake in the catalogue with its latest assignment and whether anything is stale."""
 
     flake_id: int
@@ -757,8 +756,8 @@ class CatalogueRow:
     area_um2: float | None
     layers: int | None
     probability: float | None
-    manual: bool
     primary_terrace_id: int | None
+    manual: bool
     holes_covered: int
     stale: bool
 

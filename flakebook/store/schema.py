@@ -9,7 +9,9 @@ Version history:
   2. a sample's substrate is a stack of layers (``samples.substrate``, JSON list of
      ``{"material", "thickness_nm"}`` from the top down; v1 files get ``SiO2:oxide_nm, Si``);
      results imported from outside analyses (``external_results``) and optics calibrations
-     (``calibrations``).
+     (``calibrations``); for the catalogue, terraces carry their flake (``terraces.flake_id``) and
+     appearances their image's pixel size (``appearances.pixel_size_um``), both kept in step by
+     the store.
 """
 
 from __future__ import annotations
@@ -267,6 +269,14 @@ def _v1_to_v2(con: sqlite3.Connection) -> None:
     for statement in _V2_TABLES.split(";"):
         if statement.strip():
             con.execute(statement)
+    con.execute(
+        "UPDATE terraces SET flake_id = "
+        "(SELECT a.flake_id FROM appearances a WHERE a.id = terraces.appearance_id)"
+    )
+    con.execute(
+        "UPDATE appearances SET pixel_size_um = "
+        "(SELECT i.pixel_size_um FROM images i WHERE i.id = appearances.image_id)"
+    )
 
 
 _V2_TABLES = """
@@ -298,7 +308,17 @@ CREATE TABLE calibrations (
     method TEXT NOT NULL DEFAULT '',
     notes TEXT NOT NULL DEFAULT ''
 );
-CREATE INDEX calibrations_sample ON calibrations(sample_id)
+CREATE INDEX calibrations_sample ON calibrations(sample_id);
+
+ALTER TABLE terraces ADD COLUMN flake_id INTEGER REFERENCES flakes(id) ON DELETE CASCADE;
+CREATE INDEX terraces_flake ON terraces(flake_id, area_um2 DESC, id);
+CREATE INDEX flake_holes_primary ON flake_holes(flake_id, fully_covered DESC, covered_fraction DESC, id)
+    WHERE terrace_id IS NOT NULL;
+CREATE INDEX flake_holes_covered ON flake_holes(flake_id, fully_covered);
+CREATE INDEX assignments_stale ON assignments(flake_id) WHERE stale;
+CREATE INDEX thermometry_results_stale ON thermometry_results(flake_id) WHERE stale;
+ALTER TABLE appearances ADD COLUMN pixel_size_um REAL;
+CREATE INDEX appearances_finest ON appearances(flake_id, COALESCE(pixel_size_um, 1e308), id)
 """
 
 #: MIGRATIONS[v] brings a file from version v to v + 1 (run inside one transaction).
