@@ -209,6 +209,14 @@ def _check_header(path: Path) -> None:
         )
     if len(header) < 100:
         raise ProjectError(f"{path} is damaged: it is cut short ({size} bytes); {_ACCEPTED}")
+    # The header's own fields, read before SQLite is given the file (so that not even a
+    # leftover journal of some other database is rolled back): application id and user version.
+    (user_version,) = struct.unpack(">I", header[60:64])
+    (app_id,) = struct.unpack(">I", header[68:72])
+    if app_id != schema.APPLICATION_ID:
+        raise ProjectError(f"{path} is an SQLite database but not a flakebook project; {_ACCEPTED}")
+    if user_version > schema.SCHEMA_VERSION:
+        raise ProjectError(_newer_message(path, user_version))
     (page_size,) = struct.unpack(">H", header[16:18])
     page_size = 65536 if page_size == 1 else page_size
     change_counter, page_count = struct.unpack(">II", header[24:32])
@@ -239,14 +247,18 @@ def _inspect(con: sqlite3.Connection, path: Path) -> int:
     if app_id != schema.APPLICATION_ID or "meta" not in tables:
         raise ProjectError(f"{path} is an SQLite database but not a flakebook project; {_ACCEPTED}")
     if version > schema.SCHEMA_VERSION:
-        raise ProjectError(
-            f"{path} was written by a newer flakebook (project format {version}; this is "
-            f"flakebook {flakebook.__version__}, which reads formats up to "
-            f"{schema.SCHEMA_VERSION}).\nThe file was not changed; open it with a newer flakebook."
-        )
+        raise ProjectError(_newer_message(path, version))
     if version < 1:
         raise ProjectError(f"{path} has no project format version; {_ACCEPTED}")
     return version
+
+
+def _newer_message(path: Path, version: int) -> str:
+    return (
+        f"{path} was written by a newer flakebook (project format {version}; this is "
+        f"flakebook {flakebook.__version__}, which reads formats up to "
+        f"{schema.SCHEMA_VERSION}).\nThe file was not changed; open it with a newer flakebook."
+    )
 
 
 def _connect_ro(path: Path) -> sqlite3.Connection:
