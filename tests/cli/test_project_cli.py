@@ -1,4 +1,4 @@
-"""The project commands, their JSON and exit codes (INTERFACE.md)."""
+"""The project commands, their JSON and exit codes (INTERFACE.md; common practice, no source)."""
 
 from __future__ import annotations
 
