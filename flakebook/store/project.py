@@ -573,18 +573,28 @@ class Project:
         self._depth += 1
         try:
             yield self
-        except BaseException:
+            if depth == 0:
+                con.execute("COMMIT")
+        except BaseException as exc:
             self._depth -= 1
             if depth == 0:
-                con.execute("ROLLBACK")
+                if con.in_transaction:
+                    con.execute("ROLLBACK")
             else:
                 con.execute(f"ROLLBACK TO sp{depth}")
                 con.execute(f"RELEASE sp{depth}")
+            if isinstance(exc, sqlite3.IntegrityError):
+                raise InputError(
+                    f"{self._path.name}: this change refers to a record that does not exist or "
+                    f"repeats a unique name ({exc}); nothing was changed"
+                ) from None
+            if isinstance(exc, sqlite3.Error):
+                raise ProjectError(
+                    f"{self._path} could not be saved ({exc}); nothing of this action was saved"
+                ) from None
             raise
         self._depth -= 1
-        if depth == 0:
-            con.execute("COMMIT")
-        else:
+        if depth > 0:
             con.execute(f"RELEASE sp{depth}")
 
     # ---- generic records -----------------------------------------------------------------

@@ -126,3 +126,12 @@ def test_delete_cascades_and_read_only_refuses_changes(tmp_path):
     with Project.open(tmp_path / "d.flakebook", read_only=True) as q:
         with pytest.raises(ProjectError, match="read-only"):
             q.add_sample("X", "MoS2", oxide_nm=285)
+
+
+def test_references_to_missing_records_are_input_errors(project):
+    s = project.add_sample("S", "MoS2", oxide_nm=285)
+    with pytest.raises(InputError, match="does not exist"):
+        project.add_flake(999, "F-orphan")
+    with pytest.raises(InputError, match="no image with id 42"):
+        project.add_appearance(1, 42, [[0, 0], [1, 0], [1, 1]])
+    assert project.count("flake") == 0 and project.samples() == [s]
