@@ -25,22 +25,9 @@ from flakebook.cli._common import (
 )
 from flakebook.errors import InputError
 from flakebook.store import DEFAULT_MAX_LAYERS, Project, record_to_dict
+from flakebook.store.project import EXPORT_COLUMNS
 from flakebook.store.recompute import load_recomputers
 from flakebook.substrate import format_substrate, oxide_stack, parse_substrate
-
-EXPORT_COLUMNS = (
-    "flake_id",
-    "sample",
-    "area_um2",
-    "layers",
-    "probability",
-    "holes_covered",
-    "thickness_nm",
-    "kappa_w_mk",
-    "kappa_p16_w_mk",
-    "kappa_p84_w_mk",
-    "stale",
-)
 
 
 def register(sub: argparse._SubParsersAction) -> None:

@@ -67,6 +67,20 @@ from flakebook.store.records import (
 from flakebook.substrate import SubstrateLayer, check_stack, oxide_stack, parse_substrate
 
 SUFFIX = ".flakebook"
+#: The keys of ``flakebook export`` rows, in order (INTERFACE.md).
+EXPORT_COLUMNS = (
+    "flake_id",
+    "sample",
+    "area_um2",
+    "layers",
+    "probability",
+    "holes_covered",
+    "thickness_nm",
+    "kappa_w_mk",
+    "kappa_p16_w_mk",
+    "kappa_p84_w_mk",
+    "stale",
+)
 DEFAULT_MAX_LAYERS = 15
 _SQLITE_MAGIC = b"SQLite format 3\x00"
 _ACCEPTED = "accepted: a .flakebook project file written by flakebook"
@@ -1407,21 +1421,20 @@ class Project:
             if thickness is None and row.layers is not None:
                 spacing = layer_spacing_nm(row.material)
                 thickness = None if spacing is None else round(row.layers * spacing, 6)
-            out.append(
-                {
-                    "flake_id": row.label,
-                    "sample": row.sample,
-                    "area_um2": row.area_um2,
-                    "layers": row.layers,
-                    "probability": row.probability,
-                    "holes_covered": row.holes_covered,
-                    "thickness_nm": thickness,
-                    "kappa_w_mk": kappa,
-                    "kappa_p16_w_mk": p16,
-                    "kappa_p84_w_mk": p84,
-                    "stale": row.stale,
-                }
+            values = (
+                row.label,
+                row.sample,
+                row.area_um2,
+                row.layers,
+                row.probability,
+                row.holes_covered,
+                thickness,
+                kappa,
+                p16,
+                p84,
+                row.stale,
             )
+            out.append(dict(zip(EXPORT_COLUMNS, values, strict=True)))
         return out
 
     def info(self) -> dict[str, Any]:
@@ -1812,4 +1825,4 @@ _STALE_SQL = (
     "UNION SELECT flake_id FROM thermometry_results WHERE stale"
 )
 
-__all__ = ["Project", "SUFFIX", "DEFAULT_MAX_LAYERS"]
+__all__ = ["Project", "SUFFIX", "DEFAULT_MAX_LAYERS", "EXPORT_COLUMNS"]
