@@ -327,7 +327,7 @@ def _show_evidence(args: argparse.Namespace) -> int:
         "assignment": assignment,
     }
     if output_format(args) == "table":
-        lines = [f"{flake.label}: {len(ev_rows)} pieces of layer evidence"]
+        lines = [f"{flake.label}: layer evidence ({len(ev_rows)})"]
         for e in ev_rows:
             mark = " (stale)" if e["stale"] else ""
             lines.append(f"  {e['method']}: most likely {e['most_likely']}{mark}  {e['reason']}")
