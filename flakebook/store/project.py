@@ -1372,7 +1372,7 @@ class Project:
         sid = _id_of(sample)
         con = self._db
         # Few flakes cover holes or have stale records: two small queries, looked up per row.
-        covered = dict(con.execute(_COVERED_SQL).fetchall())
+        covered = {r[0]: r[1:] for r in con.execute(_COVERED_SQL)}
         stale = {r[0] for r in con.execute(_STALE_SQL)}
         make = CatalogueRow._make
         return [
@@ -1382,7 +1382,7 @@ class Project:
                     _tags(r[6]),
                     *r[7:11],
                     bool(r[11]),
-                    covered.get(r[0], 0),
+                    *covered.get(r[0], (0, None)),
                     r[0] in stale,
                 )
             )
@@ -1819,7 +1819,10 @@ LEFT JOIN assignments asg ON asg.id = l.aid
 ORDER BY l.sample_id, l.label
 """
 
-_COVERED_SQL = "SELECT flake_id, COUNT(*) FROM flake_holes WHERE fully_covered GROUP BY flake_id"
+_COVERED_SQL = (
+    "SELECT flake_id, COUNT(*), MAX(margin_um) FROM flake_holes WHERE fully_covered "
+    "GROUP BY flake_id"
+)
 _STALE_SQL = (
     "SELECT flake_id FROM evidence WHERE stale UNION SELECT flake_id FROM assignments WHERE stale "
     "UNION SELECT flake_id FROM thermometry_results WHERE stale"

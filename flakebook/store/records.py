@@ -200,12 +200,15 @@ class Record:
 
 @dataclass(frozen=True, kw_only=True)
 class Derived(Record):
-    """Provenance of a computed record."""
+    """Provenance of a computed record: ``method`` and its ``parameters``, the published
+    ``source`` of any constants used, the ``inputs`` (kind, id, revision), the flakebook version,
+    when, and whether an input has changed since (``stale``)."""
 
     DERIVED: ClassVar[bool] = True
 
     method: str = ""
     parameters: dict = _json()
+    source: str = ""
     inputs: tuple = field(default=(), metadata={"codec": "inputs"})
     flakebook_version: str = ""
     computed_at: str | None = None
@@ -213,6 +216,7 @@ class Derived(Record):
 
     def _check_provenance(self):
         _text(self, "method", required=True)
+        _text(self, "source")
         refs = []
         for item in self.inputs:
             if isinstance(item, SourceRef):
@@ -500,8 +504,7 @@ class BeamProfile(Record):
 class Evidence(Derived):
     """Layer evidence: a likelihood over N = 1..max_layers plus one "more" bin.
 
-    ``source`` names the published source of the constants used; ``reason`` says in words what
-    the evidence rests on.
+    ``reason`` says in words what the evidence rests on.
     """
 
     KIND: ClassVar[str] = "evidence"
@@ -510,7 +513,6 @@ class Evidence(Derived):
     flake_id: int
     terrace_id: int | None = None
     likelihood: np.ndarray = _array()
-    source: str = ""
     reason: str = ""
 
     def __post_init__(self):
@@ -524,7 +526,6 @@ class Evidence(Derived):
                 "Evidence.likelihood must hold at least 2 finite values >= 0 "
                 "(N = 1..N_max and a 'more' bin)"
             )
-        _text(self, "source")
         _text(self, "reason")
 
     @property
@@ -744,7 +745,11 @@ def record_to_dict(rec: Record) -> dict:
 
 
 class CatalogueRow(NamedTuple):
-    """One flake in the catalogue with its latest assignment and whether anything is stale."""
+    """One flake in the catalogue with its latest assignment and whether anything is stale.
+
+    ``holes_covered`` counts the holes it covers fully; ``margin_um`` is the largest margin to
+    the flake's edge among them (None without a fully covered hole or a margin).
+    """
 
     flake_id: int
     label: str
@@ -759,6 +764,7 @@ class CatalogueRow(NamedTuple):
     primary_terrace_id: int | None
     manual: bool
     holes_covered: int
+    margin_um: float | None
     stale: bool
 
 

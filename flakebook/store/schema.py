@@ -11,7 +11,8 @@ Version history:
      results imported from outside analyses (``external_results``) and optics calibrations
      (``calibrations``); for the catalogue, terraces carry their flake (``terraces.flake_id``) and
      appearances their image's pixel size (``appearances.pixel_size_um``), both kept in step by
-     the store.
+     the store; every derived record names the published source of its constants
+     (``source`` on assignments and thermometry results, as evidence had).
 """
 
 from __future__ import annotations
@@ -317,6 +318,8 @@ CREATE INDEX flake_holes_primary ON flake_holes(flake_id, fully_covered DESC, co
 CREATE INDEX flake_holes_covered ON flake_holes(flake_id, fully_covered);
 CREATE INDEX assignments_stale ON assignments(flake_id) WHERE stale;
 CREATE INDEX thermometry_results_stale ON thermometry_results(flake_id) WHERE stale;
+ALTER TABLE assignments ADD COLUMN source TEXT NOT NULL DEFAULT '';
+ALTER TABLE thermometry_results ADD COLUMN source TEXT NOT NULL DEFAULT '';
 ALTER TABLE appearances ADD COLUMN pixel_size_um REAL;
 CREATE INDEX appearances_finest ON appearances(flake_id, COALESCE(pixel_size_um, 1e308), id)
 """

@@ -51,7 +51,7 @@ def test_primary_terrace_rule_and_latest_assignment(chip):
     )
     assert p.primary_terrace_id(f) == small.id
     row = p.catalogue()[0]
-    assert (row.layers, row.manual, row.holes_covered) == (2, True, 1)
+    assert (row.layers, row.manual, row.holes_covered, row.margin_um) == (2, True, 1, 0.9)
     assert [(link.margin_um, hole.id) for link, hole in p.holes_covered_by(f)] == [(0.9, h.id)]
     p.update(p.get("flake", f.id), primary_terrace_id=big.id)
     assert p.catalogue()[0].layers == 5

@@ -53,6 +53,8 @@ def test_every_kind_round_trips(tmp_path):
         manual = q.get("assignment", made["manual_assignment"].id)
         assert manual.manual and manual.who == "dana" and manual.assigned_at == FIXED_CLOCK
         assert q.count("flake") == 1
+        result = q.get("thermometry_result", made["thermometry_result"].id)
+        assert result.source.startswith("radial conduction")
 
 
 @pytest.mark.parametrize("n", [0, 1, 1_000_000])
