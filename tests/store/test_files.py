@@ -132,3 +132,13 @@ def test_other_database_with_a_leftover_journal_is_not_rolled_back(tmp_path):
     path = crashed / "other.flakebook"
     _assert_refused(path, "not a flakebook project", read_only=False)
     _assert_refused(path, "not a flakebook project", read_only=True)
+
+
+def test_unusual_folder_names(tmp_path):
+    """Spaces, '#', '?', '%' and non-ASCII letters in the path survive the read-only URI."""
+    folder = tmp_path / "Mess #3 ?% Ünïcødé 样品"
+    folder.mkdir()
+    with Project.create(folder / "chip α", clock=lambda: FIXED_CLOCK) as p:
+        p.add_sample("K7-north", "MoS2", oxide_nm=285)
+    with Project.open(folder / "chip α.flakebook", read_only=True) as q:
+        assert [s.name for s in q.samples()] == ["K7-north"]
