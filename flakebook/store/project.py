@@ -44,6 +44,7 @@ from flakebook.store.records import (
     BeamProfile,
     Calibration,
     CatalogueRow,
+    DeletedRows,
     Evidence,
     ExternalResult,
     Flake,
@@ -89,6 +90,8 @@ _TIMESTAMP_META = frozenset({"created_at"})
 # Columns that are no dataclass field (area_um2; terraces.flake_id, appearances.pixel_size_um):
 # kept in step with the records on every write, for the catalogue's speed.
 _AREA_TABLES = frozenset({"appearances", "terraces"})
+
+_TABLE_KINDS = {cls.TABLE: kind for kind, cls in KINDS.items()}
 
 Clock = Callable[[], datetime | str]
 Progress = Callable[[float, str], None]
@@ -741,11 +744,14 @@ class Project:
         self._after_update(old, stored)
         return stored
 
-    def delete(self, record: Record | str | type[Record], record_id: int | None = None) -> None:
+    def delete(
+        self, record: Record | str | type[Record], record_id: int | None = None
+    ) -> DeletedRows:
         """Delete a record (``delete(rec)`` or ``delete("flake", 3)``) and what belongs to it.
 
         Deleting a sample deletes its images, flakes and everything on them (foreign keys);
-        records derived from a deleted record are marked stale.
+        records derived from anything deleted are marked stale. Returns what was removed, which
+        :meth:`restore` puts back exactly (for undo).
         """
         if isinstance(record, Record):
             cls, rid = type(record), _id_of(record)
@@ -753,7 +759,43 @@ class Project:
             cls, rid = record_type(record), _id_of(record_id)
         with self.transaction():
             self.get(cls, rid)
-            self._mark_dependents(cls.KIND, rid)
+            doomed = self._cascade(cls.TABLE, rid)
+            rows, nulled = [], []
+            for table, ids in doomed.items():
+                cur = self._db.execute(
+                    f"SELECT rowid, * FROM {table} WHERE rowid IN ({_qmarks(ids)}) ORDER BY rowid",
+                    sorted(ids),
+                )
+                columns = tuple(d[0] for d in cur.description[1:])
+                rows.append((table, columns, tuple(tuple(r[1:]) for r in cur)))
+                for child, column in self._foreign_keys().get(table, {}).get("SET NULL", ()):
+                    keep = self._db.execute(
+                        f"SELECT rowid, {column} FROM {child} WHERE {column} IN ({_qmarks(ids)})",
+                        sorted(ids),
+                    ).fetchall()
+                    nulled.extend(
+                        (child, column, r, v) for r, v in keep if r not in doomed.get(child, ())
+                    )
+            staled: list[tuple[str, int]] = []
+            for table, ids in doomed.items():
+                kind = _TABLE_KINDS.get(table)
+                if kind is not None:
+                    for i in ids:
+                        staled.extend(self._mark_dependents(kind, i))
+            dead = {(_TABLE_KINDS.get(t), i) for t, ids in doomed.items() for i in ids}
+            staled = [x for x in staled if (_TABLE_KINDS.get(x[0]), x[1]) not in dead]
+            deps = []
+            for kind in DERIVED_KINDS:
+                ids = doomed.get(KINDS[kind].TABLE)
+                if ids:
+                    deps.extend(
+                        self._db.execute(
+                            "SELECT derived_kind, derived_id, position, input_kind, input_id, "
+                            f"input_revision FROM dependencies WHERE derived_kind = ? AND "
+                            f"derived_id IN ({_qmarks(ids)})",
+                            (kind, *sorted(ids)),
+                        ).fetchall()
+                    )
             self._db.execute(f"DELETE FROM {cls.TABLE} WHERE id = ?", (rid,))
             for kind in DERIVED_KINDS:
                 self._db.execute(
@@ -761,6 +803,71 @@ class Project:
                     f"(SELECT id FROM {KINDS[kind].TABLE})",
                     (kind,),
                 )
+        return DeletedRows(tuple(rows), tuple(nulled), tuple(staled), tuple(deps))
+
+    def restore(self, deleted: DeletedRows) -> None:
+        """Put back exactly what a :meth:`delete` removed (same ids, values and revisions), and
+        undo the stale marks and emptied references it caused. Raises :class:`InputError` when
+        an id has been taken since."""
+        with self.transaction():
+            self._db.execute("PRAGMA defer_foreign_keys = ON")
+            for table, columns, rows in deleted.rows:
+                self._db.executemany(
+                    f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({_qmarks(columns)})",
+                    rows,
+                )
+            for table, column, rowid, value in deleted.nulled:
+                self._db.execute(
+                    f"UPDATE {table} SET {column} = ? WHERE rowid = ? AND {column} IS NULL",
+                    (value, rowid),
+                )
+            for table, rid in deleted.staled:
+                self._db.execute(f"UPDATE {table} SET stale = 0 WHERE id = ?", (rid,))
+            self._db.executemany(
+                "INSERT OR IGNORE INTO dependencies (derived_kind, derived_id, position, "
+                "input_kind, input_id, input_revision) VALUES (?, ?, ?, ?, ?, ?)",
+                deleted.dependencies,
+            )
+
+    def _foreign_keys(self) -> dict[str, dict[str, list[tuple[str, str]]]]:
+        """parent table -> on-delete action -> [(child table, column)], from the schema."""
+        fks = getattr(self, "_fk_cache", None)
+        if fks is None:
+            fks = {}
+            tables = [
+                r[0]
+                for r in self._db.execute(
+                    "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%'"
+                )
+            ]
+            for child in tables:
+                for row in self._db.execute(f"PRAGMA foreign_key_list({child})"):
+                    parent, column, action = row[2], row[3], row[6]
+                    fks.setdefault(parent, {}).setdefault(action, []).append((child, column))
+            self._fk_cache = fks
+        return fks
+
+    def _cascade(self, table: str, rid: int) -> dict[str, set[int]]:
+        """Every row (table -> rowids) that deleting ``table`` row ``rid`` removes."""
+        doomed: dict[str, set[int]] = {}
+        todo = [(table, {rid})]
+        while todo:
+            t, ids = todo.pop()
+            ids = ids - doomed.get(t, set())
+            if not ids:
+                continue
+            doomed.setdefault(t, set()).update(ids)
+            for child, column in self._foreign_keys().get(t, {}).get("CASCADE", ()):
+                found = {
+                    r[0]
+                    for r in self._db.execute(
+                        f"SELECT rowid FROM {child} WHERE {column} IN ({_qmarks(ids)})",
+                        sorted(ids),
+                    )
+                }
+                if found:
+                    todo.append((child, found))
+        return doomed
 
     # ---- per-kind rules applied on every add and update -----------------------------------
 
@@ -889,8 +996,10 @@ class Project:
             [(rec.KIND, rec.id, i, r.kind, r.id, r.revision) for i, r in enumerate(rec.inputs)],
         )
 
-    def _mark_dependents(self, kind: str, rid: int) -> None:
-        todo, seen = [(kind, rid)], set()
+    def _mark_dependents(self, kind: str, rid: int) -> list[tuple[str, int]]:
+        """Mark everything computed from a record stale (transitively); returns the (table, id)
+        of records that were not stale before."""
+        todo, seen, newly = [(kind, rid)], set(), []
         while todo:
             k, i = todo.pop()
             rows = self._db.execute(
@@ -902,8 +1011,14 @@ class Project:
                 if (dk, did) in seen or dk not in KINDS:
                     continue
                 seen.add((dk, did))
-                self._db.execute(f"UPDATE {KINDS[dk].TABLE} SET stale = 1 WHERE id = ?", (did,))
+                table = KINDS[dk].TABLE
+                cur = self._db.execute(
+                    f"UPDATE {table} SET stale = 1 WHERE id = ? AND stale = 0", (did,)
+                )
+                if cur.rowcount:
+                    newly.append((table, did))
                 todo.append((dk, did))
+        return newly
 
     def stale_records(self) -> list[Record]:
         """Every derived record marked stale (evidence, assignments, thermometry results)."""
@@ -1715,6 +1830,10 @@ class Project:
                 rows.append([_canonical_value(row[i]) for i in keep])
             out["tables"][table] = {"columns": [columns[i] for i in keep], "rows": rows}
         return out
+
+
+def _qmarks(items) -> str:
+    return ", ".join("?" * len(items))
 
 
 def _tags(text: str) -> tuple:

@@ -780,6 +780,22 @@ class ImageCheck:
 
 
 @dataclass(frozen=True)
+class DeletedRows:
+    """What ``Project.delete`` removed, for ``Project.restore`` (undo): the rows of every table
+    (columns and values), references the delete emptied, stale marks it set, and the
+    provenance rows of deleted derived records."""
+
+    rows: tuple = ()
+    nulled: tuple = ()
+    staled: tuple = ()
+    dependencies: tuple = ()
+
+    def count(self) -> int:
+        """How many rows were deleted."""
+        return sum(len(rows) for _, _, rows in self.rows)
+
+
+@dataclass(frozen=True)
 class RecomputeReport:
     """What ``recompute_stale`` did: recomputed, no recomputer registered, or failed."""
 
@@ -818,6 +834,7 @@ __all__ = [
     "CatalogueRow",
     "ImageCheck",
     "RecomputeReport",
+    "DeletedRows",
     "KINDS",
     "DERIVED_KINDS",
     "record_type",
