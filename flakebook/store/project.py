@@ -745,13 +745,18 @@ class Project:
         return stored
 
     def delete(
-        self, record: Record | str | type[Record], record_id: int | None = None
+        self,
+        record: Record | str | type[Record],
+        record_id: int | None = None,
+        *,
+        undo: bool = True,
     ) -> DeletedRows:
         """Delete a record (``delete(rec)`` or ``delete("flake", 3)``) and what belongs to it.
 
         Deleting a sample deletes its images, flakes and everything on them (foreign keys);
         records derived from anything deleted are marked stale. Returns what was removed, which
-        :meth:`restore` puts back exactly (for undo).
+        :meth:`restore` puts back exactly (for undo); ``undo=False`` keeps no copy (for large
+        deletes whose data need not stay in memory) and returns an empty :class:`DeletedRows`.
         """
         if isinstance(record, Record):
             cls, rid = type(record), _id_of(record)
@@ -761,7 +766,7 @@ class Project:
             self.get(cls, rid)
             doomed = self._cascade(cls.TABLE, rid)
             rows, nulled = [], []
-            for table, ids in doomed.items():
+            for table, ids in doomed.items() if undo else ():
                 cur = self._db.execute(
                     f"SELECT rowid, * FROM {table} WHERE rowid IN ({_qmarks(ids)}) ORDER BY rowid",
                     sorted(ids),
@@ -803,6 +808,8 @@ class Project:
                     f"(SELECT id FROM {KINDS[kind].TABLE})",
                     (kind,),
                 )
+        if not undo:
+            return DeletedRows()
         return DeletedRows(tuple(rows), tuple(nulled), tuple(staled), tuple(deps))
 
     def restore(self, deleted: DeletedRows) -> None:
@@ -902,6 +909,11 @@ class Project:
                     f"terrace {terrace.id} is not on flake {rec.label}; a flake's primary terrace "
                     "must be one of its own"
                 )
+        if isinstance(rec, Evidence) and rec.likelihood.size != self.max_layers + 1:
+            raise InputError(
+                f"layer evidence has {rec.likelihood.size} values; this project needs "
+                f"{self.max_layers + 1} (N = 1..{self.max_layers} and one 'more' bin)"
+            )
         if rec.DERIVED:
             self._check_inputs(rec)
             if old is None:
@@ -1289,12 +1301,6 @@ class Project:
         """Add layer evidence: a likelihood over N = 1..N_max and the 'more' bin (length
         ``max_layers + 1``), what it was computed from (``inputs``), how (``method``,
         ``parameters``) and the published ``source`` of its constants."""
-        lk = codec.decode_array(codec.encode_array(likelihood))
-        if lk is not None and lk.ndim == 1 and lk.size != self.max_layers + 1:
-            raise InputError(
-                f"layer evidence has {lk.size} values; this project needs {self.max_layers + 1} "
-                f"(N = 1..{self.max_layers} and one 'more' bin)"
-            )
         return self.add(
             Evidence(
                 flake_id=_id_of(flake),

@@ -168,3 +168,11 @@ def test_delete_marks_what_was_computed_from_cascaded_rows(tmp_path):
     p.restore(deleted)
     assert p.get("flake", made["flake"].id).primary_terrace_id == made["terrace"].id
     p.close()
+
+
+def test_delete_without_undo_keeps_nothing_in_memory(tmp_path):
+    p = Project.create(tmp_path / "n", clock=lambda: FIXED_CLOCK)
+    made = populate(p, tmp_path)
+    assert p.delete(made["sample"], undo=False).count() == 0
+    assert p.count("spectrum") == 0 and p.count("flake") == 0
+    p.close()
