@@ -82,6 +82,8 @@ def _as_array(obj, name: str, *, ndim: int | None = None, pairs: bool = False) -
                 f"{type(obj).__name__}.{name} must be a polygon of (x, y) points, an N x 2 array; "
                 f"got shape {arr.shape}"
             )
+        if not np.all(np.isfinite(arr)):
+            raise InputError(f"{type(obj).__name__}.{name} has points that are not finite numbers")
     elif ndim is not None and arr.ndim != ndim:
         raise InputError(f"{type(obj).__name__}.{name} must be a {ndim}-D array, got {arr.ndim}-D")
     arr.flags.writeable = False

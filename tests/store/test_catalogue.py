@@ -136,3 +136,17 @@ def test_canonical_dump_is_deterministic(tmp_path):
     no_ts = p.canonical_dump(include_timestamps=False)
     assert "created_at" not in json.dumps(no_ts["tables"]["meta"])
     p.close()
+
+
+def test_polygon_area_of_a_regular_polygon():
+    """Shoelace area of a regular n-gon of circumradius r equals (n/2) r^2 sin(2 pi / n)
+    (elementary geometry, common practice, no source)."""
+    import numpy as np
+
+    from flakebook.store.records import polygon_area
+
+    n, r = 24, 3.7
+    a = np.linspace(0, 2 * np.pi, n, endpoint=False)
+    pts = np.c_[r * np.cos(a) + 5, r * np.sin(a) - 2]
+    assert polygon_area(pts) == pytest.approx(n / 2 * r**2 * np.sin(2 * np.pi / n), rel=1e-12)
+    assert polygon_area(pts[::-1]) == pytest.approx(polygon_area(pts), rel=1e-12)
