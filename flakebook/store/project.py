@@ -447,6 +447,10 @@ class Project:
             )
         if ro is not None:
             ro.close()
+        if not os.access(path, os.W_OK):
+            raise ProjectError(
+                f"{path} cannot be written (no write permission); open it read-only instead"
+            )
         lock_info, warnings = lock.acquire(path)
         try:
             con = cls._connect_rw(path)
