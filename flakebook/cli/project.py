@@ -324,6 +324,7 @@ def _show_evidence(args: argparse.Namespace) -> int:
         "flake_id": flake.label,
         "primary_terrace_id": primary,
         "evidence": ev_rows,
+        "combined": _combined(evidence, primary),
         "assignment": assignment,
     }
     if output_format(args) == "table":
@@ -331,6 +332,13 @@ def _show_evidence(args: argparse.Namespace) -> int:
         for e in ev_rows:
             mark = " (stale)" if e["stale"] else ""
             lines.append(f"  {e['method']}: most likely {e['most_likely']}{mark}  {e['reason']}")
+        combined = payload["combined"]
+        if combined is not None:
+            amb = combined["ambiguous_with"]
+            also = f", ambiguous with {', '.join(map(str, amb))}" if amb else ""
+            lines.append(
+                f"  combined: {combined['layers']} layers, p = {combined['probability']:.3g}{also}"
+            )
         if assignment is None:
             lines.append("  no assignment yet")
         else:
@@ -348,6 +356,23 @@ def _show_evidence(args: argparse.Namespace) -> int:
     else:
         emit(args, payload)
     return 0
+
+
+def _combined(evidence, primary_terrace_id) -> dict | None:
+    """The posterior of the primary terrace's evidence (and the flake's own) with a flat prior,
+    from flakebook.evidence; None without evidence (or without that module)."""
+    try:
+        from flakebook.evidence import combine
+    except ImportError:
+        return None
+    chosen = [e for e in evidence if e.terrace_id in (None, primary_terrace_id)]
+    if not chosen:
+        return None
+    try:
+        return combine([e.likelihood for e in chosen]).to_dict()
+    except InputError as exc:
+        message(f"flakebook: the evidence cannot be combined: {exc}")
+        return None
 
 
 def _most_likely(likelihood) -> str:
