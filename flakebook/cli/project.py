@@ -25,22 +25,9 @@ from flakebook.cli._common import (
 )
 from flakebook.errors import InputError
 from flakebook.store import DEFAULT_MAX_LAYERS, Project, record_to_dict
+from flakebook.store.project import EXPORT_COLUMNS
 from flakebook.store.recompute import load_recomputers
 from flakebook.substrate import format_substrate, oxide_stack, parse_substrate
-
-EXPORT_COLUMNS = (
-    "flake_id",
-    "sample",
-    "area_um2",
-    "layers",
-    "probability",
-    "holes_covered",
-    "thickness_nm",
-    "kappa_w_mk",
-    "kappa_p16_w_mk",
-    "kappa_p84_w_mk",
-    "stale",
-)
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -337,13 +324,21 @@ def _show_evidence(args: argparse.Namespace) -> int:
         "flake_id": flake.label,
         "primary_terrace_id": primary,
         "evidence": ev_rows,
+        "combined": _combined(evidence, primary),
         "assignment": assignment,
     }
     if output_format(args) == "table":
-        lines = [f"{flake.label}: {len(ev_rows)} pieces of layer evidence"]
+        lines = [f"{flake.label}: layer evidence ({len(ev_rows)})"]
         for e in ev_rows:
             mark = " (stale)" if e["stale"] else ""
             lines.append(f"  {e['method']}: most likely {e['most_likely']}{mark}  {e['reason']}")
+        combined = payload["combined"]
+        if combined is not None:
+            amb = combined["ambiguous_with"]
+            also = f", ambiguous with {', '.join(map(str, amb))}" if amb else ""
+            lines.append(
+                f"  combined: {combined['layers']} layers, p = {combined['probability']:.3g}{also}"
+            )
         if assignment is None:
             lines.append("  no assignment yet")
         else:
@@ -361,6 +356,23 @@ def _show_evidence(args: argparse.Namespace) -> int:
     else:
         emit(args, payload)
     return 0
+
+
+def _combined(evidence, primary_terrace_id) -> dict | None:
+    """The posterior of the primary terrace's evidence (and the flake's own) with a flat prior,
+    from flakebook.evidence; None without evidence (or without that module)."""
+    try:
+        from flakebook.evidence import combine
+    except ImportError:
+        return None
+    chosen = [e for e in evidence if e.terrace_id in (None, primary_terrace_id)]
+    if not chosen:
+        return None
+    try:
+        return combine([e.likelihood for e in chosen]).to_dict()
+    except InputError as exc:
+        message(f"flakebook: the evidence cannot be combined: {exc}")
+        return None
 
 
 def _most_likely(likelihood) -> str:

@@ -1,4 +1,4 @@
-"""The project commands, their JSON and exit codes (INTERFACE.md)."""
+"""The project commands, their JSON and exit codes (INTERFACE.md; common practice, no source)."""
 
 from __future__ import annotations
 
@@ -244,3 +244,14 @@ def test_refused_files_exit_2_in_a_real_process(campaign, tmp_path):
             env=env,
         )
         assert out.returncode == 0, "reading works while another program holds the project"
+
+
+def test_assign_prints_the_combined_evidence(campaign, capsys):
+    """With flakebook.evidence present, the stored likelihoods are combined (flat prior): one
+    piece of evidence peaked at N = 2 gives N = 2 (Bayes' rule; common practice, no source)."""
+    pytest.importorskip("flakebook.evidence")
+    code, out, _ = run(capsys, "assign", campaign, "--flake", "K7N-001")
+    combined = json.loads(out)["combined"]
+    assert combined["layers"] == 2
+    assert combined["probability"] == pytest.approx(1.0 / (1.0 + 15 * 0.01), rel=1e-9)
+    assert len(combined["posterior"]) == 16

@@ -130,6 +130,7 @@ def populate(p: Project, folder: Path) -> dict:
         absorptance_err=0.01,
         details={"variance_share": {"absorptance": 0.6, "chi_t": 0.4}},
         method="gaussian-disk",
+        source="radial conduction with a Gaussian source (standard result)",
         inputs=[series, spec, beam, h],
     )
     ext = p.add_external_result(

@@ -51,7 +51,7 @@ def test_primary_terrace_rule_and_latest_assignment(chip):
     )
     assert p.primary_terrace_id(f) == small.id
     row = p.catalogue()[0]
-    assert (row.layers, row.manual, row.holes_covered) == (2, True, 1)
+    assert (row.layers, row.manual, row.holes_covered, row.margin_um) == (2, True, 1, 0.9)
     assert [(link.margin_um, hole.id) for link, hole in p.holes_covered_by(f)] == [(0.9, h.id)]
     p.update(p.get("flake", f.id), primary_terrace_id=big.id)
     assert p.catalogue()[0].layers == 5
@@ -136,3 +136,17 @@ def test_canonical_dump_is_deterministic(tmp_path):
     no_ts = p.canonical_dump(include_timestamps=False)
     assert "created_at" not in json.dumps(no_ts["tables"]["meta"])
     p.close()
+
+
+def test_polygon_area_of_a_regular_polygon():
+    """Shoelace area of a regular n-gon of circumradius r equals (n/2) r^2 sin(2 pi / n)
+    (elementary geometry, common practice, no source)."""
+    import numpy as np
+
+    from flakebook.store.records import polygon_area
+
+    n, r = 24, 3.7
+    a = np.linspace(0, 2 * np.pi, n, endpoint=False)
+    pts = np.c_[r * np.cos(a) + 5, r * np.sin(a) - 2]
+    assert polygon_area(pts) == pytest.approx(n / 2 * r**2 * np.sin(2 * np.pi / n), rel=1e-12)
+    assert polygon_area(pts[::-1]) == pytest.approx(polygon_area(pts), rel=1e-12)

@@ -51,3 +51,19 @@ def test_big_endian_input_is_stored_little_endian():
 def test_damaged_blob_is_refused(blob):
     with pytest.raises(ProjectError, match="damaged"):
         decode_array(blob)
+
+
+def test_any_float64_array_round_trips_bit_for_bit():
+    """Property test over random shapes and values, NaN payloads and signed zeros included
+    (IEEE 754 binary64 bit patterns compared as integers)."""
+    from hypothesis import given, settings
+    from hypothesis.extra.numpy import array_shapes, arrays
+
+    @settings(max_examples=60, deadline=None)
+    @given(arrays(np.float64, array_shapes(min_dims=0, max_dims=3, min_side=0, max_side=6)))
+    def check(values):
+        out = decode_array(encode_array(values))
+        assert out.shape == values.shape
+        assert np.array_equal(out.view(np.uint64), values.view(np.uint64))
+
+    check()

@@ -107,3 +107,38 @@ def test_read_only_open_creates_no_file(tmp_path):
     finally:
         tmp_path.chmod(0o755)
     assert folder_state(tmp_path) == before
+
+
+def test_other_database_with_a_leftover_journal_is_not_rolled_back(tmp_path):
+    """A foreign SQLite file caught mid-transaction (database and journal copied while a write
+    was under way) is refused from its header alone: SQLite never sees it, so its journal is not
+    rolled back and no lock is made."""
+    live = tmp_path / "live"
+    live.mkdir()
+    db = live / "other.flakebook"
+    con = sqlite3.connect(db, isolation_level=None)
+    con.execute("PRAGMA journal_mode=DELETE")
+    con.execute("CREATE TABLE t (x BLOB)")
+    con.executemany("INSERT INTO t VALUES (?)", [(b"a" * 4000,) for _ in range(200)])
+    con.execute("PRAGMA cache_size=1")
+    con.execute("BEGIN")
+    con.execute("UPDATE t SET x = ?", (b"b" * 4000,))  # spills pages into the file
+    crashed = tmp_path / "crashed"
+    crashed.mkdir()
+    for name in ("other.flakebook", "other.flakebook-journal"):
+        (crashed / name).write_bytes((live / name).read_bytes())
+    con.execute("ROLLBACK")
+    con.close()
+    path = crashed / "other.flakebook"
+    _assert_refused(path, "not a flakebook project", read_only=False)
+    _assert_refused(path, "not a flakebook project", read_only=True)
+
+
+def test_unusual_folder_names(tmp_path):
+    """Spaces, '#', '?', '%' and non-ASCII letters in the path survive the read-only URI."""
+    folder = tmp_path / "Mess #3 ?% Ünïcødé 样品"
+    folder.mkdir()
+    with Project.create(folder / "chip α", clock=lambda: FIXED_CLOCK) as p:
+        p.add_sample("K7-north", "MoS2", oxide_nm=285)
+    with Project.open(folder / "chip α.flakebook", read_only=True) as q:
+        assert [s.name for s in q.samples()] == ["K7-north"]

@@ -43,6 +43,11 @@ def _old_file(path, version: int) -> None:
         (outline, encode_array(np.array([[0, 0], [1, 0], [1, 1]], float))),
     )
     con.execute(
+        "INSERT INTO terraces (id, appearance_id, area_um2, outline_px, outline_um) "
+        "VALUES (1, 1, 0.4, ?, NULL)",
+        (outline,),
+    )
+    con.execute(
         "INSERT INTO evidence (id, flake_id, method, likelihood) VALUES (1, 1, 'contrast', ?)",
         (encode_array(np.full(16, 0.5)),),
     )
@@ -83,6 +88,7 @@ def test_read_write_open_upgrades_and_keeps_a_copy(tmp_path, version):
         ]
         row = p.catalogue(s)[0]
         assert row.label == "K7S-01" and row.area_um2 == 0.5
+        assert row.primary_terrace_id == 1, "the catalogue's columns are filled in on upgrade"
         ev = p.evidence_of(1)[0]
         assert ev.inputs[0].kind == "appearance"
         # The later model's tables work on an upgraded file.

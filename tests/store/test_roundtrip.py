@@ -53,6 +53,8 @@ def test_every_kind_round_trips(tmp_path):
         manual = q.get("assignment", made["manual_assignment"].id)
         assert manual.manual and manual.who == "dana" and manual.assigned_at == FIXED_CLOCK
         assert q.count("flake") == 1
+        result = q.get("thermometry_result", made["thermometry_result"].id)
+        assert result.source.startswith("radial conduction")
 
 
 @pytest.mark.parametrize("n", [0, 1, 1_000_000])
@@ -126,3 +128,51 @@ def test_delete_cascades_and_read_only_refuses_changes(tmp_path):
     with Project.open(tmp_path / "d.flakebook", read_only=True) as q:
         with pytest.raises(ProjectError, match="read-only"):
             q.add_sample("X", "MoS2", oxide_nm=285)
+
+
+def test_references_to_missing_records_are_input_errors(project):
+    s = project.add_sample("S", "MoS2", oxide_nm=285)
+    with pytest.raises(InputError, match="does not exist"):
+        project.add_flake(999, "F-orphan")
+    with pytest.raises(InputError, match="no image with id 42"):
+        project.add_appearance(1, 42, [[0, 0], [1, 0], [1, 1]])
+    assert project.count("flake") == 0 and project.samples() == [s]
+
+
+@pytest.mark.parametrize(
+    "kind", ["sample", "image", "flake", "appearance", "terrace", "hole", "evidence", "spectrum"]
+)
+def test_delete_then_restore_gives_back_exactly_the_same_project(tmp_path, kind):
+    """Undo of a delete: every row, reference, stale mark and provenance row comes back."""
+    p = Project.create(tmp_path / "u", clock=lambda: FIXED_CLOCK)
+    made = populate(p, tmp_path)
+    p.pack()
+    before = p.canonical_dump()
+    deleted = p.delete(made[kind])
+    assert deleted.count() >= 1
+    assert p.canonical_dump() != before
+    p.restore(deleted)
+    assert p.canonical_dump() == before
+    p.close()
+
+
+def test_delete_marks_what_was_computed_from_cascaded_rows(tmp_path):
+    p = Project.create(tmp_path / "c", clock=lambda: FIXED_CLOCK)
+    made = populate(p, tmp_path)
+    p.delete(made["hole"])  # the thermometry result was computed from it
+    assert p.get("thermometry_result", made["thermometry_result"].id).stale
+    assert p.get("flake", made["flake"].id).primary_terrace_id == made["terrace"].id
+    deleted = p.delete(made["terrace"])  # evidence of the terrace goes; the flake forgets it
+    assert p.get("flake", made["flake"].id).primary_terrace_id is None
+    assert p.count("evidence") == 0
+    p.restore(deleted)
+    assert p.get("flake", made["flake"].id).primary_terrace_id == made["terrace"].id
+    p.close()
+
+
+def test_delete_without_undo_keeps_nothing_in_memory(tmp_path):
+    p = Project.create(tmp_path / "n", clock=lambda: FIXED_CLOCK)
+    made = populate(p, tmp_path)
+    assert p.delete(made["sample"], undo=False).count() == 0
+    assert p.count("spectrum") == 0 and p.count("flake") == 0
+    p.close()
