@@ -54,12 +54,18 @@ def optics_hole(sample: Sample):
     return OpticsHole(bottom=hp.bottom, depth_nm=hp.depth_nm)
 
 
-def calibration_of(project: Project, sample: Sample, image: Image | None = None) -> dict:
+def calibration_record(project: Project, sample: Sample, image: Image | None = None):
     """The optics calibration that applies to an image: the newest one of that image, else the
-    newest one of its sample; as keyword arguments for the survey (empty without one)."""
+    newest one of its sample, else None."""
     cals = project.calibrations_of(sample)
     mine = [c for c in cals if image is not None and c.image_id == image.id]
-    chosen = (mine or [c for c in cals if c.image_id is None] or [None])[-1]
+    return (mine or [c for c in cals if c.image_id is None] or [None])[-1]
+
+
+def calibration_of(project: Project, sample: Sample, image: Image | None = None) -> dict:
+    """The calibration that applies to an image (:func:`calibration_record`) as keyword
+    arguments for the survey and the layer likelihood (empty without one)."""
+    chosen = calibration_record(project, sample, image)
     if chosen is None:
         return {}
     out: dict = {}
@@ -162,6 +168,8 @@ def store_survey(
     sample = project.get(Sample, image.sample_id)
     stack = format_substrate(sample.substrate)
     extra = dict(parameters or {})
+    calibration = calibration_record(project, sample, image)
+    base_inputs = [sample, image] + ([calibration] if calibration is not None else [])
     out = StoredSurvey()
     with project.transaction():
         hole_ids: dict[int, int] = {}
@@ -211,7 +219,7 @@ def store_survey(
                             r.likelihood,
                             method=CONTRAST_METHOD,
                             terrace=terrace,
-                            inputs=[sample, image, app],
+                            inputs=[*base_inputs, app],
                             parameters={
                                 "contrast": dict(reg.contrast),
                                 "contrast_err": dict(reg.contrast_err),
