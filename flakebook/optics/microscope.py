@@ -302,7 +302,7 @@ class Microscope:
     na_illumination: float = 0.0
     illumination: Illumination = field(default_factory=Illumination.halogen)
     channels: Channels = field(default_factory=Channels.srgb)
-    n_angles: int = 16
+    n_angles: int = 8
     wavelength_step_nm: float = DEFAULT_GRID_NM[2]
 
     def __post_init__(self) -> None:
