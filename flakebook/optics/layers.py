@@ -29,7 +29,7 @@ from scipy.special import logsumexp
 from scipy.stats import chi2 as chi2_dist
 
 from flakebook import evidence
-from flakebook.errors import InputError
+from flakebook.errors import InputError, check_cancel
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import Microscope, channel_contrast, cone_reflectance
 from flakebook.optics.substrate import Hole, Substrate
@@ -196,9 +196,28 @@ def _model_stack(
     scale_nodes=(1.0,),
     variants=None,
     layers=None,
+    progress=None,
+    cancel=None,
 ):
-    """Cached :func:`_model_stack_uncached` (all inputs are immutable; result read-only)."""
+    """Cached :func:`_model_stack_uncached` (all inputs are immutable; result read-only).
+
+    With ``progress`` or ``cancel``, the tables are first filled one by one, reporting progress
+    and honouring the cancel event (flakebook.errors.Cancelled)."""
     key_layers = None if layers is None else tuple(int(n) for n in layers)
+    if progress is not None or cancel is not None:
+        vs = [material] if variants is None else list(variants)
+        lay = np.arange(1, N_MORE_MAX + 1) if layers is None else np.asarray(layers)
+        jobs = [
+            (t, na, v, f) for t in oxide_nodes for na in na_nodes for v in vs for f in scale_nodes
+        ]
+        for k, (t, na, v, f) in enumerate(jobs):
+            check_cancel(cancel)
+            sub = substrate if t is None else substrate.with_oxide(t)
+            mat = v if f == 1.0 else replace(v, layer_spacing_nm=v.layer_spacing_nm * float(f))
+            mic = replace(microscope, na_illumination=float(na))
+            channel_contrast(mat, lay, sub, mic, geometry, hole)
+            if progress is not None:
+                progress((k + 1) / len(jobs), "contrast model tables")
     return _model_stack_cached(
         material,
         substrate,
@@ -274,6 +293,8 @@ def layer_likelihood(
     saturated: tuple[str, ...] = (),
     nk_ensemble: bool = True,
     explain: bool = True,
+    progress=None,
+    cancel=None,
 ) -> LayerLikelihood:
     """Likelihood of N = 1..max_layers and "more" from measured channel contrast.
 
@@ -298,6 +319,9 @@ def layer_likelihood(
         Channels to leave out (saturated pixels); each gives a warning.
     explain:
         Work out ``decider`` text when the result is ambiguous.
+    progress, cancel:
+        ``progress(fraction, text)`` and a ``threading.Event``; the first call for a sample and
+        microscope builds the model tables (a second or two), later calls reuse them.
     """
     if not isinstance(max_layers, int | np.integer) or not 1 <= int(max_layers) < N_MORE_MAX:
         raise InputError(f"--max-layers {max_layers!r}: accepted a whole number from 1 to 99")
@@ -347,6 +371,8 @@ def layer_likelihood(
         f_nodes,
         variants,
         layers,
+        progress,
+        cancel,
     )
     model = model_all[..., idx]  # (Kox, Kna*Kf, N, C)
 
