@@ -180,6 +180,12 @@ def _check_inputs(contrast, contrast_err, microscope, saturated):
             raise InputError(f"contrast {v!r} in channel {c} is not plausible; accepted: |C| < 50")
         if not math.isfinite(e) or e < 0:
             raise InputError(f"contrast error {e!r} in channel {c}: accepted a number >= 0")
+        if v > 1.0 + max(5.0 * e, 0.05):
+            raise InputError(
+                f"contrast {v:g} in channel {c} is impossible: C = 1 - I_flake/I_reference "
+                "cannot exceed 1 (is the dark offset subtracted, or the contrast in percent?); "
+                "accepted: C <= 1"
+            )
         vals.append(v)
         errs.append(e)
     return tuple(use), np.array(vals), np.array(errs)
@@ -469,6 +475,8 @@ def layer_likelihood(
             "data_sets": material.data_set_text,
             "reference": material.reference,
             "substrate": substrate.spec,
+            "substrate_data_sets": [f.material.data_set_text for f in substrate.films]
+            + [substrate.base.data_set_text],
             "geometry": geometry,
             "hole": None if hole is None else {"bottom": hole.bottom, "depth_nm": hole.depth_nm},
             "na_illumination": microscope.na_illumination,

@@ -173,6 +173,8 @@ def test_bad_input_refused():
         _infer({"x": 0.1})
     with pytest.raises(InputError):
         _infer({"g": 0.1}, max_layers=0)
+    with pytest.raises(InputError, match="cannot exceed 1"):
+        _infer({"g": 31.0})
     with pytest.raises(InputError, match="saturated"):
         _infer({"g": 0.1}, saturated=("g",))
     like = _infer({"g": 0.3, "r": 0.5}, saturated=("r",), oxide_err_nm=0.0)
