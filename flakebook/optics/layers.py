@@ -580,3 +580,72 @@ def _decider(
         pass  # data sets not covering the scan: skip this suggestion
     tips.append("or other evidence: the Raman shear and breathing modes, or PL")
     return f"{label}: would be decided by " + "; ".join(tips)
+
+
+@dataclass(frozen=True)
+class ContrastCurve:
+    """Model contrast versus N per channel with its 16-84% band from the systematics.
+
+    ``contrast`` is the nominal model (shape (len(layers), len(channels))); ``low`` and ``high``
+    are the weighted 16th and 84th percentiles over the oxide uncertainty and the published n,k
+    sets (see :func:`layer_likelihood`).
+    """
+
+    layers: np.ndarray
+    channels: tuple[str, ...]
+    contrast: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+
+
+def _weighted_quantile(values: np.ndarray, weights: np.ndarray, q: float) -> np.ndarray:
+    """Weighted quantile along axis 0."""
+    if values.shape[0] == 1:
+        return values[0].copy()
+    order = np.argsort(values, axis=0)
+    v = np.take_along_axis(values, order, axis=0)
+    w = np.take_along_axis(weights, order, axis=0)
+    cw = np.cumsum(w, axis=0) - 0.5 * w
+    cw /= np.sum(w, axis=0, keepdims=True)
+    out = np.empty(values.shape[1:])
+    for idx in np.ndindex(*values.shape[1:]):
+        sel = (slice(None), *idx)
+        out[idx] = np.interp(q, cw[sel], v[sel])
+    return out
+
+
+def model_contrast_curve(
+    material: Material,
+    layers,
+    substrate: Substrate,
+    microscope: Microscope,
+    *,
+    oxide_err_nm: float = 0.0,
+    nk_ensemble: bool = True,
+    geometry: str = "supported",
+    hole: Hole | None = None,
+) -> ContrastCurve:
+    """The contrast-versus-N curve of every channel with a band for the oxide uncertainty and the
+    spread of published n,k data (for plots next to measured contrast)."""
+    lay = np.atleast_1d(np.asarray(layers, int))
+    nominal = channel_contrast(material, lay, substrate, microscope, geometry, hole).contrast
+    t0 = substrate.oxide_nm
+    if oxide_err_nm > 0 and t0 is None:
+        raise InputError(f"substrate {substrate.spec} has no SiO2 film to vary")
+    ox, ow = _oxide_grid(t0, oxide_err_nm) if oxide_err_nm > 0 else ([None], np.array([1.0]))
+    variants = material.variants() if nk_ensemble else [material]
+    vals, wts = [], []
+    for t, w in zip(ox, ow):
+        sub = substrate if t is None else substrate.with_oxide(t)
+        for v in variants:
+            vals.append(channel_contrast(v, lay, sub, microscope, geometry, hole).contrast)
+            wts.append(w / len(variants))
+    vals = np.array(vals)
+    wts = np.array(wts)[:, None, None] * np.ones(vals.shape)
+    return ContrastCurve(
+        layers=lay,
+        channels=microscope.channel_names,
+        contrast=nominal,
+        low=_weighted_quantile(vals, wts, 0.16),
+        high=_weighted_quantile(vals, wts, 0.84),
+    )

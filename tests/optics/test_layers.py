@@ -189,3 +189,38 @@ def test_pixel_noise_with_spatial_correlation():
         0.1 / np.sqrt(10000 / (2 * np.pi * 4))
     )
     assert contrast_err_from_pixels(0.1, 3, 5.0) == pytest.approx(0.1)
+
+
+def test_model_curve_band():
+    """The model curve's band contains the nominal curve for the default data set and widens
+    with the oxide uncertainty (common practice, no source)."""
+    from flakebook.optics.layers import model_contrast_curve
+
+    exact = model_contrast_curve(MOSE2, range(1, 6), SUB, MIC, nk_ensemble=False)
+    np.testing.assert_allclose(exact.low, exact.contrast, atol=1e-12)
+    np.testing.assert_allclose(exact.high, exact.contrast, atol=1e-12)
+    wide = model_contrast_curve(MOSE2, range(1, 6), SUB, MIC, oxide_err_nm=10.0)
+    assert np.all(wide.low <= wide.high)
+    assert np.mean(wide.high - wide.low) > 0.02
+    assert wide.contrast.shape == (5, 3) and wide.channels == RGB
+
+
+def test_suspended_flake_likelihood():
+    """A membrane over an open through-hole is found from its own model (common practice, no
+    source), the reference staying the bare supported substrate."""
+    from flakebook.optics.substrate import Hole
+
+    hole = Hole("open")
+    table = channel_contrast(MOSE2, range(1, 4), SUB, MIC, "suspended", hole)
+    c = dict(zip(RGB, table.contrast[1].tolist()))
+    like = layer_likelihood(
+        c,
+        {k: 0.01 for k in c},
+        material=MOSE2,
+        substrate=SUB,
+        microscope=MIC,
+        geometry="suspended",
+        hole=hole,
+        explain=False,
+    )
+    assert like.posterior().layers == 2
