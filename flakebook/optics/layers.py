@@ -28,7 +28,7 @@ import numpy as np
 from scipy.special import logsumexp
 from scipy.stats import chi2 as chi2_dist
 
-from flakebook import evidence
+from flakebook import __version__, evidence
 from flakebook.errors import InputError, check_cancel
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import Microscope, channel_contrast, cone_reflectance
@@ -469,6 +469,7 @@ def layer_likelihood(
         decider=decider,
         warnings=tuple(warnings),
         provenance={
+            "flakebook_version": __version__,
             "method": "thin-film transfer-matrix contrast, joint Gaussian likelihood over "
             "channels with oxide, NA and contrast scale marginalised",
             "material": material.name,

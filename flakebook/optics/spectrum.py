@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 from scipy.special import logsumexp
 
+from flakebook import __version__
 from flakebook.errors import InputError
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import cone_reflectance
@@ -233,6 +234,7 @@ def reflectance_contrast_likelihood(
         noise=noise,
         warnings=tuple(warnings),
         provenance={
+            "flakebook_version": __version__,
             "method": "white-light reflectance contrast dR/R against the thin-film model, oxide "
             "marginalised on a 1 nm grid, log-likelihood tempered for correlated model error",
             "material": material.name,

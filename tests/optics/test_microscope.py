@@ -183,3 +183,42 @@ def test_user_channel_csv(tmp_path):
     bad.write_text("nm,red\n400,x\n")
     with pytest.raises(InputError, match="bad.csv"):
         Channels.parse(str(bad))
+
+
+def test_contrast_table_assembled_from_tmm():
+    """A whole contrast table (N = 1, 2, 5; 400-800 nm at 20 nm; NA 0.5 with 4 angles; s and p;
+    sRGB channels under illuminant A) equals the same channel integrals of tmm reflectances
+    computed point by point (tmm package); the flake taken as isotropic since tmm has no
+    uniaxial films."""
+    from flakebook.optics.stack import cone_nodes
+
+    m = dataclasses.replace(get_material("MoSe2"), extraordinary=None)
+    sub = Substrate.from_oxide(285.0)
+    mic = Microscope(0.5, n_angles=4, wavelength_step_nm=20.0)
+    lam, w = mic.weights()
+    st, wt = cone_nodes(0.5, 4)
+    n_ox = get_material("SiO2").nk(lam)
+    n_si = get_material("Si").nk(lam)
+
+    def cone_r(ns_of_j, ds):
+        out = np.zeros(lam.size)
+        for j in range(lam.size):
+            for s, a in zip(st, wt):
+                for pol in "sp":
+                    out[j] += (
+                        0.5
+                        * a
+                        * tmm.coh_tmm(pol, ns_of_j(j), [np.inf, *ds, np.inf], np.arcsin(s), lam[j])[
+                            "R"
+                        ]
+                    )
+        return out
+
+    r_ref = cone_r(lambda j: [1, n_ox[j], n_si[j]], [285.0])
+    ref_c = (w @ r_ref) / w.sum(axis=1)
+    table = channel_contrast(m, [1, 2, 5], sub, mic)
+    for i, n in enumerate((1, 2, 5)):
+        nf = m.nk(lam, n if n <= 3 else None)
+        r_fl = cone_r(lambda j, nf=nf: [1, nf[j], n_ox[j], n_si[j]], [n * 0.646, 285.0])
+        fl_c = np.maximum((w @ r_fl) / w.sum(axis=1), 0.0)
+        np.testing.assert_allclose(table.contrast[i], 1 - fl_c / ref_c, atol=1e-9)
