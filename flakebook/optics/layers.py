@@ -416,7 +416,10 @@ def layer_likelihood(
     )
     model_c = contrast_scale * nominal
     resid = (meas[None, :] - model_c) / tot_err
-    best_chi2 = float(np.min(np.sum(resid**2, axis=1)))
+    # Goodness of fit over every systematic node (any oxide, n,k set, NA), not the nominal only.
+    node_var = var + (contrast_scale_err * model) ** 2
+    node_chi2 = np.sum((meas - contrast_scale * model) ** 2 / node_var, axis=-1)
+    best_chi2 = float(np.min(node_chi2[..., :max_layers]))
     if best_chi2 > float(chi2_dist.isf(1e-3, len(use))):
         warnings.append(
             f"no layer number explains the measured contrast within its errors "
