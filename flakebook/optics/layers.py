@@ -109,7 +109,7 @@ def _gh_nodes(center: float, sigma: float, n: int, lower: float | None = None):
     return t, w / w.sum()
 
 
-def _oxide_grid(center: float, sigma: float, spacing_nm: float = 2.0, max_nodes: int = 61):
+def _oxide_grid(center: float, sigma: float, spacing_nm: float = 2.0, max_nodes: int = 121):
     """Uniform grid over +-3 sigma with Gaussian weights. Contrast of thick flakes swings by
     several hundredths per nm of oxide, so the likelihood in oxide thickness is sharp and a few
     Gauss-Hermite nodes would miss its peak; a grid of ~1.5 nm spacing does not."""
@@ -524,7 +524,6 @@ def _decider(
     a, b = cands_n[0], cands_n[1]
     sep_need = 3.0 * math.sqrt(float(np.mean(meas_err**2)) + model_err**2)
     tips: list[str] = []
-    label = f"{_name(a, max_layers)} or {_name(b, max_layers)}"
     names = microscope.channel_names
     # 1. A channel of this camera that was not measured.
     for j, ch in enumerate(names):
@@ -543,8 +542,8 @@ def _decider(
         fixed = np.abs(nominal[a - 1, j_use] - nominal[b - 1, j_use])
         if np.max(fixed) > sep_need:
             tips.append(
-                f"a calibrated oxide thickness (to about 1 nm instead of {oxide_err_nm:g} nm, from "
-                "the calibration with flakes of known N or a reflectance spectrum)"
+                f"calibrate the oxide thickness (to about 1 nm instead of {oxide_err_nm:g} nm, "
+                "with flakes of known N or a reflectance spectrum)"
             )
     # 3. A narrow bandpass filter at the wavelength that separates them best, whatever the oxide.
     try:
@@ -576,14 +575,16 @@ def _decider(
         k = int(np.argmax(sep))
         if sep[k] > sep_need and vals is not None:
             tips.append(
-                f"contrast through a narrow bandpass filter at {lam[k]:.0f} nm "
+                f"measure through a narrow bandpass filter at {lam[k]:.0f} nm "
                 f"(model {vals[0, k]:.3f} for {_name(a, max_layers)}, "
                 f"{vals[1, k]:.3f} for {_name(b, max_layers)})"
             )
     except InputError:
         pass  # data sets not covering the scan: skip this suggestion
-    tips.append("or other evidence: the Raman shear and breathing modes, or PL")
-    return f"{label}: would be decided by " + "; ".join(tips)
+    tips.append("add other evidence (the Raman shear and breathing modes, or PL)")
+    return f"to decide between {_name(a, max_layers)} and {_name(b, max_layers)}: " + "; or ".join(
+        tips
+    )
 
 
 @dataclass(frozen=True)
