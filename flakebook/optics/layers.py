@@ -358,7 +358,8 @@ def layer_likelihood(
     )
     na0 = microscope.na_illumination
     na_nodes, na_w = _gh_nodes(na0, na_err, 5, lower=0.0) if na_err > 0 else ([na0], [1.0])
-    na_nodes = np.minimum(np.asarray(na_nodes, float), 0.95)
+    na_cap = 0.95 if microscope.na_objective is None else microscope.na_objective
+    na_nodes = np.minimum(np.asarray(na_nodes, float), na_cap)
     f_nodes, f_w = (
         _gh_nodes(1.0, thickness_scale_err, 3, lower=0.3)
         if thickness_scale_err > 0

@@ -222,3 +222,18 @@ def test_contrast_table_assembled_from_tmm():
         r_fl = cone_r(lambda j, nf=nf: [1, nf[j], n_ox[j], n_si[j]], [n * 0.646, 285.0])
         fl_c = np.maximum((w @ r_fl) / w.sum(axis=1), 0.0)
         np.testing.assert_allclose(table.contrast[i], 1 - fl_c / ref_c, atol=1e-9)
+
+
+def test_illumination_cone_within_objective():
+    """Reflected-light illumination through the objective cannot be wider than the objective's
+    aperture (common practice, no source); the contrast moves with the illumination NA, more
+    at NA 0.9 than at 0.3 (oblique rays see a thinner optical path in the oxide)."""
+    with pytest.raises(InputError, match="exceeds"):
+        Microscope(0.9, na_objective=0.5)
+    m = get_material("MoSe2")
+    sub = Substrate.from_oxide(285.0)
+    c0 = channel_contrast(m, [1], sub, Microscope(0.0)).contrast[0]
+    c3 = channel_contrast(m, [1], sub, Microscope(0.3, na_objective=0.8)).contrast[0]
+    c9 = channel_contrast(m, [1], sub, Microscope(0.9, n_angles=16)).contrast[0]
+    assert 0.01 < np.max(np.abs(c3 - c0)) < np.max(np.abs(c9 - c0))
+    assert np.max(np.abs(c9 - c0)) > 0.2
