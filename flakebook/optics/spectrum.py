@@ -133,11 +133,14 @@ def reflectance_contrast_likelihood(
     model_err: float = 0.01,
     geometry: str = "supported",
     hole: Hole | None = None,
+    nk_ensemble: bool = True,
 ) -> SpectrumLikelihood:
     """Likelihood of N from a measured dR/R spectrum, the oxide marginalised and fitted.
 
     ``dr_r_err`` None: the noise is estimated from the spectrum itself (scatter of second
     differences). Wavelengths outside the material's data range are left out with a warning.
+    ``nk_ensemble``: average over the material's published bulk n,k sets (as the contrast
+    likelihood does).
     """
     lam, drr, err = _validate(wavelength_nm, dr_r, dr_r_err)
     if not 1 <= int(max_layers) < 100:
@@ -146,7 +149,11 @@ def reflectance_contrast_likelihood(
     if t0 is None:
         raise InputError(f"substrate {substrate.spec} has no SiO2 film to fit")
     warnings = []
+    variants = material.variants() if nk_ensemble else [material]
     lo, hi = material.wavelength_range_nm()
+    for v in variants:
+        vlo, vhi = v.wavelength_range_nm()
+        lo, hi = max(lo, vlo), min(hi, vhi)
     for f in substrate.films:
         flo, fhi = f.material.wavelength_range_nm()
         lo, hi = max(lo, flo), min(hi, fhi)
@@ -179,14 +186,17 @@ def reflectance_contrast_likelihood(
 
     layers, more_w = _model_layers(int(max_layers))
     grid_t, grid_w = _oxide_grid(t0, oxide_err_nm, spacing_nm=1.0, max_nodes=121)
-    ll = np.empty((grid_t.size, layers.size))
+    ll_v = np.empty((len(variants), grid_t.size, layers.size))
+    common = {"na": na_illumination, "n_angles": 8}
     for k, t in enumerate(grid_t):
         sub = substrate.with_oxide(t)
-        common = {"na": na_illumination, "n_angles": 8}
         r_ref = cone_reflectance(None, (), sub, lam, **common)[0]
-        r_fl = cone_reflectance(material, layers, sub, lam, geometry=geometry, hole=hole, **common)
-        model = r_fl / r_ref[None, :] - 1.0
-        ll[k] = -0.5 * temper * np.sum((drr[None, :] - model) ** 2 / var[None, :], axis=1)
+        for v, mat in enumerate(variants):
+            r_fl = cone_reflectance(mat, layers, sub, lam, geometry=geometry, hole=hole, **common)
+            model = r_fl / r_ref[None, :] - 1.0
+            ll_v[v, k] = -0.5 * temper * np.sum((drr[None, :] - model) ** 2 / var[None, :], axis=1)
+    # Published n,k sets of the same crystal disagree: average over them (equal weights).
+    ll = logsumexp(ll_v, axis=0) - math.log(len(variants))
     with np.errstate(divide="ignore"):
         log_n = logsumexp(ll + np.log(grid_w)[:, None], axis=0)
         log_more = logsumexp(log_n + np.log(more_w))
@@ -245,5 +255,6 @@ def reflectance_contrast_likelihood(
             "oxide_prior_nm": [t0, oxide_err_nm],
             "model_err": model_err,
             "tempering": temper,
+            "nk_data_sets": [v.data_set_text for v in variants],
         },
     )
