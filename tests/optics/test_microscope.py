@@ -237,3 +237,24 @@ def test_illumination_cone_within_objective():
     c9 = channel_contrast(m, [1], sub, Microscope(0.9, n_angles=16)).contrast[0]
     assert 0.01 < np.max(np.abs(c3 - c0)) < np.max(np.abs(c9 - c0))
     assert np.max(np.abs(c9 - c0)) > 0.2
+
+
+def test_colour_science_imported_lazily():
+    """Importing the optics package does not import colour-science (DESIGN.md: import it
+    lazily, it is slow to import); a monochromatic contrast never needs it."""
+    import subprocess
+    import sys
+
+    code = (
+        "import sys\n"
+        "import flakebook.optics.layers, flakebook.optics.absorptance, flakebook.evidence\n"
+        "from flakebook.optics.materials import get_material\n"
+        "from flakebook.optics.microscope import Microscope, Illumination, Channels, "
+        "channel_contrast\n"
+        "from flakebook.optics.substrate import Substrate\n"
+        "channel_contrast(get_material('MoS2'), [1], Substrate.from_oxide(90), "
+        "Microscope(0, Illumination.monochromatic(600), Channels.mono()))\n"
+        "print('colour' in sys.modules)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"
