@@ -331,7 +331,7 @@ class Microscope:
         lam = self.illumination.grid_nm(self.wavelength_step_nm)
         if self.illumination.kind == "monochromatic":
             return lam, np.ones((1, 1))
-        dl = np.gradient(lam) if lam.size > 1 else np.ones(1)
+        dl = _trapezoid_weights(lam)
         w = self.illumination.spectrum(lam)[None, :] * self.channels.sensitivity(lam) * dl[None, :]
         return lam, w
 
@@ -339,6 +339,17 @@ class Microscope:
     def wavelength_nm(self) -> float | None:
         """The single wavelength for monochromatic light, else None."""
         return self.illumination.center_nm if self.illumination.kind == "monochromatic" else None
+
+
+def _trapezoid_weights(lam: np.ndarray) -> np.ndarray:
+    """Trapezoid-rule weights of a sorted wavelength grid."""
+    if lam.size < 2:
+        return np.ones(lam.size)
+    d = np.diff(lam)
+    w = np.zeros(lam.size)
+    w[:-1] += 0.5 * d
+    w[1:] += 0.5 * d
+    return w
 
 
 # ---- the model ----------------------------------------------------------------------------
