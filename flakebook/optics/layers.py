@@ -477,6 +477,7 @@ def layer_likelihood(
                 material, substrate, microscope, geometry, hole, [None], [na0], [1.0], None, layers
             )[0, 0],
             max_layers=max_layers,
+            saturated=tuple(saturated),
         )
     scaled = scaled.copy()
     scaled.setflags(write=False)
@@ -537,6 +538,7 @@ def _decider(
     model_all,
     nominal,
     max_layers,
+    saturated=(),
 ) -> str:
     """Say what would settle between the most likely N and its rivals."""
     cands = [post.layers, *post.ambiguous_with][:3]
@@ -552,8 +554,13 @@ def _decider(
         # Robust separation over the oxide nodes.
         sep = np.min(np.abs(model_all[:, 0, a - 1, j] - model_all[:, 0, b - 1, j]))
         if sep > sep_need:
+            how = (
+                f"lower the exposure until the {ch} channel is not saturated"
+                if ch in saturated
+                else f"measure the {ch} channel too"
+            )
             tips.append(
-                f"measure the {ch} channel too (model {nominal[a - 1, j]:.3f} for "
+                f"{how} (model {nominal[a - 1, j]:.3f} for "
                 f"{_name(a, max_layers)}, {nominal[b - 1, j]:.3f} for {_name(b, max_layers)})"
             )
     # 2. The oxide: if the candidates differ at every fixed oxide but the oxide spread mixes them.
