@@ -196,7 +196,8 @@ def store_survey(
             out.flakes.append(flake.id)
             app = project.add_appearance(flake, image, sf.outline_px)
             out.appearances.append(app.id)
-            terraces = []  # (terrace, evidence records, over a hole, area)
+            terraces = []  # (terrace, evidence records)
+            terrace_over: dict[int, int] = {}  # hole index -> terrace id
             for group in groups:
                 regs = [by_id[i] for i in group if by_id[i].region.flake_id == sf.id]
                 if not regs:
@@ -210,6 +211,8 @@ def store_survey(
                 )
                 evidence = []
                 for r in regs:
+                    if r.geometry == "suspended" and r.hole_index is not None:
+                        terrace_over[r.hole_index] = terrace.id
                     if r.likelihood is None:
                         continue
                     reg = r.region
@@ -236,8 +239,7 @@ def store_survey(
                             ),
                         )
                     )
-                area = sum(r.region.area_um2 for r in regs)
-                terraces.append((terrace, evidence, suspended, area))
+                terraces.append((terrace, evidence))
             for link in result.coverage:
                 if link.flake_id != sf.id or link.coverage.covered_fraction <= 0:
                     continue
@@ -248,13 +250,14 @@ def store_survey(
                     covered_fraction=c.covered_fraction,
                     fully_covered=c.fully_covered,
                     margin_um=c.margin_um,
+                    terrace_id=terrace_over.get(link.hole_index),
                 )
             if assign and terraces:
-                over = [t for t in terraces if t[2]]
-                terrace, evidence, _, _ = max(over or terraces, key=lambda t: t[3])
-                project.update(project.get(Flake, flake.id), primary_terrace_id=terrace.id)
-                if evidence:
-                    out.assignments.append(add_combined(project, flake, terrace, evidence).id)
+                # The flake's primary terrace (DESIGN.md: over a hole if any, else the largest).
+                primary = project.primary_terrace_id(flake)
+                for terrace, evidence in terraces:
+                    if terrace.id == primary and evidence:
+                        out.assignments.append(add_combined(project, flake, terrace, evidence).id)
     return out
 
 

@@ -1948,9 +1948,14 @@ LEFT JOIN assignments asg ON asg.id = l.aid
 ORDER BY l.sample_id, l.label
 """
 
+# The same hole seen in two images of a flake is two hole records: count the fully covered
+# holes per image and take the image that shows the most.
 _COVERED_SQL = (
-    "SELECT flake_id, COUNT(*), MAX(margin_um) FROM flake_holes WHERE fully_covered "
-    "GROUP BY flake_id"
+    "SELECT flake_id, MAX(n), MAX(m) FROM ("
+    " SELECT fh.flake_id AS flake_id, h.image_id, COUNT(*) AS n, MAX(fh.margin_um) AS m"
+    " FROM flake_holes fh JOIN holes h ON h.id = fh.hole_id WHERE fh.fully_covered"
+    " GROUP BY fh.flake_id, h.image_id"
+    ") GROUP BY flake_id"
 )
 _STALE_SQL = (
     "SELECT flake_id FROM evidence WHERE stale UNION SELECT flake_id FROM assignments WHERE stale "

@@ -150,3 +150,20 @@ def test_polygon_area_of_a_regular_polygon():
     pts = np.c_[r * np.cos(a) + 5, r * np.sin(a) - 2]
     assert polygon_area(pts) == pytest.approx(n / 2 * r**2 * np.sin(2 * np.pi / n), rel=1e-12)
     assert polygon_area(pts[::-1]) == pytest.approx(polygon_area(pts), rel=1e-12)
+
+
+def test_a_hole_seen_in_two_images_counts_once(chip):
+    """One physical hole, recorded in a 50x and a 100x image, is one covered hole (common
+    practice, no source: a count of membranes, not of hole records)."""
+    p, s, i50, i100 = chip
+    f = p.add_flake(s, "K7N-003")
+    p.add_appearance(f, i50, _square(0, 0, 100))
+    p.add_appearance(f, i100, _square(0, 0, 200))
+    for img, c, r, m in ((i50, 50, 10, 1.1), (i100, 100, 20, 1.2)):
+        h = p.add_hole(img, (c, c), r)
+        p.link_flake_hole(f, h, covered_fraction=1.0, fully_covered=True, margin_um=m)
+    second = p.add_hole(i100, (150, 150), 20)
+    p.link_flake_hole(f, second, covered_fraction=1.0, fully_covered=True, margin_um=0.5)
+    row = p.catalogue(s)[0]
+    assert row.holes_covered == 2  # the 100x image shows both holes
+    assert row.margin_um == pytest.approx(1.2)
