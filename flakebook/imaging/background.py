@@ -18,7 +18,7 @@ import numpy as np
 
 from flakebook.errors import InputError
 from flakebook.imaging import _grid
-from flakebook.imaging.io import Micrograph
+from flakebook.imaging.io import Micrograph, with_intensity
 
 
 def _terms(degree: int) -> list[tuple[int, int]]:
@@ -96,10 +96,15 @@ class Background:
         return lv / np.maximum(s, 1e-6)
 
     def correct(
-        self, intensity: np.ndarray, rows: slice = slice(None), cols: slice = slice(None)
+        self, intensity, rows: slice = slice(None), cols: slice = slice(None)
     ) -> np.ndarray:
-        """Corrected intensity of the crop ``intensity[rows, cols]`` (a new float32 array)."""
-        crop = intensity[rows, cols]
+        """Corrected intensity of the crop ``[rows, cols]`` of an array or a Micrograph (a new
+        float32 array)."""
+        crop = (
+            intensity.crop(rows, cols)
+            if isinstance(intensity, Micrograph)
+            else intensity[rows, cols]
+        )
         off = np.asarray(self.dark_offset, np.float32)
         return (crop - off) * self.gain(rows, cols)
 
@@ -175,7 +180,7 @@ def _robust_polyfit(
     coef = np.zeros(len(terms))
     scale = 1.0
     eps = 1e-6 * max(float(np.median(np.abs(z))), 1e-12)
-    for _ in range(12):
+    for _ in range(8):
         aw = a * w[:, None]
         coef = np.linalg.lstsq(aw.T @ a, aw.T @ z, rcond=None)[0]
         w = 1.0 / np.maximum(np.abs(z - a @ coef), eps)
@@ -301,7 +306,8 @@ def fit_background(
     rows, cols = image.shape
     nch = len(image.channels)
     if method == "none":
-        lv = tuple(float(np.median(image.intensity[::8, ::8, c]) - offs[c]) for c in range(nch))
+        small = image.working(_grid.choose_factor((rows, cols), 2.5e5))
+        lv = tuple(float(np.median(small[:, :, c]) - offs[c]) for c in range(nch))
         return Background("none", offs, image.channels, (rows, cols), level=lv)
     if method == "reference":
         if reference is None:
@@ -339,12 +345,12 @@ def fit_background(
     degree = int(degree)
     if work is None:
         factor = _grid.choose_factor((rows, cols), 4e5)
-        work = _grid.downsample(image.intensity, factor)
+        work = image.working(factor)
     f = factor or 1
     wr, wc = work.shape[:2]
-    sat = _grid.block_max(image.saturated, f)[:wr, :wc]
+    sat = image.saturated_working(f)[:wr, :wc]
     # Subsample the working grid to at most ~60k points for the fit.
-    step = max(1, int(np.ceil(np.sqrt(wr * wc / 2e4))))
+    step = max(1, int(np.ceil(np.sqrt(wr * wc / 1e4))))
     gy, gx = np.mgrid[0:wr:step, 0:wc:step]
     yy = _norm_coords(_grid.to_full(gy.ravel(), f), rows)
     xx = _norm_coords(_grid.to_full(gx.ravel(), f), cols)
@@ -432,11 +438,10 @@ def apply_background(image: Micrograph, background: Background) -> Micrograph:
             f"{image.path or 'image'}: the dark offset was already subtracted; accepted: "
             "subtract it once"
         )
-    out = background.correct(image.intensity)
-    out.setflags(write=False)
+    out = background.correct(image)
     done = list(image.corrections)
     if any(background.dark_offset):
         done.append("dark offset " + ",".join(f"{v:.6g}" for v in background.dark_offset))
     if background.method != "none":
         done.append(f"flat field ({background.method})")
-    return replace(image, intensity=out, corrections=tuple(done))
+    return with_intensity(image, out, corrections=tuple(done))

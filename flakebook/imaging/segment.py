@@ -159,7 +159,7 @@ def substrate_colour(
     rows, cols, nch = work.shape
     if nch > 3:
         bins = max(4, int(round(110_000 ** (1.0 / nch))))
-    step = max(1, int(np.sqrt(rows * cols / 4e5)))
+    step = max(1, int(np.ceil(np.sqrt(rows * cols / 1e5))))
     lin = work[::step, ::step].reshape(-1, nch)
     if valid is not None:
         lin = lin[valid[::step, ::step].ravel()]
@@ -342,9 +342,13 @@ def _full_crop_mask(mask_work: np.ndarray, f: int) -> np.ndarray:
 
 
 def _robust_mean(v: np.ndarray) -> tuple[float, float]:
-    """Mean of values within 3 robust sigmas of the median, and the robust sigma."""
-    med = float(np.median(v))
-    sd = 1.4826 * float(np.median(np.abs(v - med)))
+    """Mean of values within 3 robust sigmas of the median, and the robust sigma.
+
+    The median and its absolute deviation come from at most ~20000 evenly spaced values.
+    """
+    w = v[:: max(1, v.size // 20000)]
+    med = float(np.median(w))
+    sd = 1.4826 * float(np.median(np.abs(w - med)))
     if sd > 0:
         v = v[np.abs(v - med) <= 3 * sd]
     m = float(v.mean()) if v.size else med
@@ -400,7 +404,7 @@ def segment(
     warnings: list[str] = []
     if work is None:
         factor = _grid.choose_factor((rows, cols))
-        work = _grid.downsample(image.intensity, factor)
+        work = image.working(factor)
     f = int(factor or 1)
     if background is None:
         background = fit_background(image, work=work, factor=f)
@@ -409,7 +413,7 @@ def segment(
     check_cancel(cancel)
     # Working copy corrected for dark offset and illumination: gain evaluated at the working
     # pixel centres (an exact evaluation of the smooth surface on the coarse grid).
-    valid = ~_grid.block_max(image.saturated, f)[:wr, :wc]
+    valid = ~image.saturated_working(f)[:wr, :wc]
     hole_w = [
         (float(_grid.to_work(x, f)), float(_grid.to_work(y, f)), r / f) for x, y, r in holes or ()
     ]
@@ -452,7 +456,7 @@ def segment(
         cs = cv2.GaussianBlur(cw, (0, 0), 1.0)
         if cs.ndim == 2:
             cs = cs[:, :, None]
-        sub_vals = cs[sub_mask]
+        sub_vals = cs[sub_mask][:: max(1, int(np.count_nonzero(sub_mask) // 100_000))]
         sd_s = 1.4826 * np.median(np.abs(sub_vals - np.median(sub_vals, axis=0)), axis=0)
         quant = 1.0 / (255.0 if image.bit_depth == 8 else 65535.0) / np.maximum(level, 1e-6)
         sd_s = np.maximum(sd_s, quant)
@@ -466,10 +470,11 @@ def segment(
         fg &= ~bare_mask
         # A smooth surface can bend into a large flake; fit it again with everything that is
         # not bare substrate left out.
+        previous_level = background.level
         if attempt == 0 and refine_background and background.method == "polynomial" and fg.any():
             grow_ex = cv2.dilate((~sub_mask | fg).astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
             try:
-                background = fit_background(
+                refit = fit_background(
                     image,
                     dark_offset=dict(zip(image.channels, background.dark_offset)),
                     degree=background.degree,
@@ -480,7 +485,18 @@ def segment(
                 )
             except InputError:
                 break
-            continue
+            # Detection is redone only if the refit moves the substrate by a visible amount
+            # (a quarter of the detection threshold); otherwise the refit is kept for measuring.
+            change = np.abs(_work_gain(refit, wr, wc, f)[::4, ::4] / wgain[::4, ::4] - 1)
+            moved = bool(np.any(change.reshape(-1, change.shape[-1]).max(0) > 0.25 * thr))
+            level_old = level
+            background = refit
+            if moved:
+                continue
+            # Same segmentation; the substrate level follows the refined surface.
+            scale_lv = np.array(refit.level) / np.maximum(np.array(previous_level), 1e-12)
+            level = level_old * scale_lv
+            break
         break
     fg = cv2.morphologyEx(
         fg.astype(np.uint8), cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (3, 3))
@@ -502,7 +518,7 @@ def segment(
     if corners:
         pcs = []
         for y0, x0 in corners:
-            crop = background.correct(image.intensity, slice(y0, y0 + psize), slice(x0, x0 + psize))
+            crop = background.correct(image, slice(y0, y0 + psize), slice(x0, x0 + psize))
             pcs.append(contrast_image(crop, level))
         for c, name in enumerate(image.channels):
             ps = [p[:, :, c] for p in pcs]
@@ -697,7 +713,7 @@ def _over_hole(stat: np.ndarray, x0: int, y0: int, hole_w: list) -> bool:
 
 
 def _work_gain(bg: Background, wr: int, wc: int, f: int) -> np.ndarray:
-    """The background gain at working-pixel centres."""
+    """The background gain at working-pixel centres (float32 ``[row, col, ch]``)."""
     nch = len(bg.channels)
     if bg.method == "none":
         return np.ones((wr, wc, nch), np.float32)
@@ -708,12 +724,18 @@ def _work_gain(bg: Background, wr: int, wc: int, f: int) -> np.ndarray:
 
     y = _norm_coords(_grid.to_full(np.arange(wr, dtype=np.float64), f), bg.shape[0])
     x = _norm_coords(_grid.to_full(np.arange(wc, dtype=np.float64), f), bg.shape[1])
-    out = np.zeros((wr, wc, nch), np.float32)
+    terms = _terms(bg.degree)
+    out = np.empty((wr, wc, nch), np.float32)
     for c in range(nch):
-        s = np.zeros((wr, wc))
-        for t, (i, j) in enumerate(_terms(bg.degree)):
-            s += bg.coefficients[c, t] * np.outer(y**j, x**i)
-        out[:, :, c] = bg.level[c] / np.maximum(s, 1e-6)
+        s = np.zeros((wr, wc), np.float32)
+        for j in range(bg.degree + 1):
+            px = np.zeros_like(x)
+            for t, (i, jj) in enumerate(terms):
+                if jj == j:
+                    px += bg.coefficients[c, t] * x**i
+            s += np.outer((y**j).astype(np.float32), px.astype(np.float32))
+        np.maximum(s, 1e-6, out=s)
+        out[:, :, c] = np.float32(bg.level[c]) / s
     return out
 
 
@@ -749,10 +771,10 @@ def _measure_region(
     inner = inner[e:-e, e:-e].astype(bool)
     if np.count_nonzero(inner) < 16:
         inner = full.copy()
-    inner &= ~image.saturated[fy0 : fy0 + h, fx0 : fx0 + w]
+    inner &= ~image.saturated_crop(slice(fy0, fy0 + h), slice(fx0, fx0 + w))
     if np.count_nonzero(inner) < 4:
         return None
-    crop = bg.correct(image.intensity, slice(fy0, fy0 + h), slice(fx0, fx0 + w))
+    crop = bg.correct(image, slice(fy0, fy0 + h), slice(fx0, fx0 + w))
     cvals = contrast_image(crop[inner], level)
     n = int(cvals.shape[0])
     contrast, err, sdd = {}, {}, {}

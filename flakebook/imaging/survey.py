@@ -31,7 +31,7 @@ from flakebook.imaging.holes import (
     hole_coverage,
     predict_hidden_holes,
 )
-from flakebook.imaging.io import Micrograph, from_array, read_image
+from flakebook.imaging.io import Micrograph, from_array, read_image, with_intensity
 from flakebook.imaging.scale import Scale, given_scale
 from flakebook.imaging.segment import Flake, Region, Segmentation, segment
 
@@ -147,13 +147,10 @@ def _as_image(source, transfer: str) -> Micrograph:
 
 def _mono(image: Micrograph) -> Micrograph:
     """A colour image as one channel (mean of the channels) for monochromatic illumination."""
-    from dataclasses import replace
-
     if image.channels == ("mono",):
         return image
     lin = image.intensity.mean(axis=2, keepdims=True, dtype=np.float32)
-    lin.setflags(write=False)
-    return replace(image, intensity=lin, channels=("mono",))
+    return with_intensity(image, lin, channels=("mono",))
 
 
 def _share_over_hole(seg: Segmentation, reg: Region, hole: Hole) -> float:
@@ -253,7 +250,12 @@ def survey_image(
     check_cancel(cancel)
     warnings = list(image.warnings)
     f = _grid.choose_factor(image.shape)
-    work = _grid.downsample(image.intensity, f)
+    work = image.working(f)
+    sat_frac = float(np.mean(image.saturated_working(f)))
+    if sat_frac > 0.01:
+        warnings.append(
+            f"about {100 * sat_frac:.1f}% of the image has saturated pixels, which are left out"
+        )
     report(0.1, "background")
     bg = fit_background(
         image, dark_offset=dark_offset, method=background, reference=reference, work=work, factor=f
@@ -265,7 +267,7 @@ def survey_image(
     if find_holes:
         report(0.25, "holes")
         holes = detect_holes(
-            image.intensity,
+            image,
             um_per_px=scale.um_per_px,
             um_per_px_err=scale.um_per_px_err,
             radius_um=hole_radius_um,
