@@ -326,7 +326,11 @@ def detect_holes(
     if circles is None:
         return ()
     # Noise estimate of the full-resolution gray level (MAD of horizontal differences).
-    sample = _gray(crop_of(slice(0, min(rows, 64)), slice(None)))
+    bands = [
+        crop_of(slice(r0, min(rows, r0 + 16)), slice(None))
+        for r0 in range(0, rows, max(16, rows // 4))
+    ]
+    sample = np.concatenate([_gray(b) for b in bands[:5]], axis=0)
     noise = 1.4826 * float(np.median(np.abs(np.diff(sample, axis=1)))) / math.sqrt(2)
     need = min_step if min_step is not None else max(8 * noise, 1e-4)
     holes: list[Hole] = []
@@ -575,3 +579,82 @@ def hole_coverage(
         frac = float(min(max(frac, 0.0), 1.0))
     full = bool(margin >= 0 and frac > 1 - 1e-9)
     return Coverage(frac, full, margin, margin * um_per_px)
+
+
+# ---- editing by hand and coverage tables -----------------------------------------------------
+
+
+def manual_hole(
+    center_px: tuple[float, float],
+    radius_px: float,
+    *,
+    um_per_px: float,
+    um_per_px_err: float = 0.0,
+    placement_err_px: float = 0.5,
+) -> Hole:
+    """A hole placed by hand (centre and radius in pixels; their uncertainty is how precisely
+    they were placed)."""
+    x, y = (float(v) for v in center_px)
+    r = float(radius_px)
+    if not (math.isfinite(x) and math.isfinite(y) and math.isfinite(r) and r > 0):
+        raise InputError(
+            f"hole at {center_px} with radius {radius_px!r} px; accepted: a finite centre and a "
+            "positive radius"
+        )
+    return Hole((x, y), r, placement_err_px, placement_err_px, um_per_px, um_per_px_err, True, 0)
+
+
+def edit_holes(
+    holes: tuple[Hole, ...],
+    *,
+    add: tuple[Hole, ...] = (),
+    move: dict[int, tuple[float, float]] | None = None,
+    resize: dict[int, float] | None = None,
+    delete: tuple[int, ...] = (),
+) -> tuple[Hole, ...]:
+    """A new tuple of holes with some moved, resized, deleted (by index) and some added.
+
+    Moved or resized holes keep their other values; the input is not changed.
+    """
+    from dataclasses import replace
+
+    n = len(holes)
+    for i in list((move or {}).keys()) + list((resize or {}).keys()) + list(delete):
+        if not (0 <= int(i) < n):
+            raise InputError(f"hole index {i}; accepted: 0 to {n - 1}")
+    out = []
+    for i, h in enumerate(holes):
+        if i in set(delete):
+            continue
+        if move and i in move:
+            x, y = (float(v) for v in move[i])
+            h = replace(h, center_px=(x, y))
+        if resize and i in resize:
+            r = float(resize[i])
+            if not (math.isfinite(r) and r > 0):
+                raise InputError(f"hole radius {resize[i]!r} px; accepted: a positive number")
+            h = replace(h, radius_px=r)
+        out.append(h)
+    return tuple(out) + tuple(add)
+
+
+def coverage_pairs(
+    outlines_px: dict[int, np.ndarray], holes: tuple[Hole, ...], um_per_px: float
+) -> list[tuple[int, int, Coverage]]:
+    """(flake id, hole index, coverage) for every flake outline that covers part of a hole."""
+    out = []
+    for fid, poly in outlines_px.items():
+        poly = np.asarray(poly, np.float64).reshape(-1, 2)
+        if len(poly) < 3:
+            continue
+        x0, y0 = poly.min(0)
+        x1, y1 = poly.max(0)
+        for k, h in enumerate(holes):
+            cx, cy = h.center_px
+            r = h.radius_px
+            if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
+                continue
+            cov = hole_coverage(poly, h, um_per_px)
+            if cov.covered_fraction > 0:
+                out.append((fid, k, cov))
+    return out

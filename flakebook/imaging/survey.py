@@ -26,9 +26,9 @@ from flakebook.imaging.holes import (
     Coverage,
     Hole,
     Lattice,
+    coverage_pairs,
     detect_holes,
     fit_lattice,
-    hole_coverage,
     predict_hidden_holes,
 )
 from flakebook.imaging.io import Micrograph, from_array, read_image, with_intensity
@@ -299,17 +299,12 @@ def survey_image(
             )
             holes = holes + hidden
 
-    coverage: list[FlakeHole] = []
-    for fl in seg.flakes:
-        x0, y0, x1, y1 = fl.bbox_px
-        for k, h in enumerate(holes):
-            cx, cy = h.center_px
-            r = h.radius_px
-            if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
-                continue
-            cov = hole_coverage(fl.outline_px, h, scale.um_per_px)
-            if cov.covered_fraction > 0:
-                coverage.append(FlakeHole(fl.id, k, cov))
+    coverage = [
+        FlakeHole(fid, k, cov)
+        for fid, k, cov in coverage_pairs(
+            {fl.id: fl.outline_px for fl in seg.flakes}, holes, scale.um_per_px
+        )
+    ]
 
     report(0.7, "layer evidence")
     ohole = hole if hole is not None else OpticsHole()

@@ -149,3 +149,23 @@ def test_no_holes_in_a_plain_image():
     img = np.full((100, 120), 0.5, np.float32)
     img += 0.005 * np.random.default_rng(0).standard_normal(img.shape).astype(np.float32)
     assert detect_holes(img, um_per_px=0.1) == ()
+
+
+def test_manual_hole_editing_and_coverage_table():
+    """Holes added, moved, resized and deleted by hand; the coverage table follows."""
+    from flakebook.imaging.holes import coverage_pairs, edit_holes, manual_hole
+
+    a = manual_hole((10.0, 10.0), 3.0, um_per_px=0.1)
+    b = manual_hole((50.0, 10.0), 3.0, um_per_px=0.1)
+    holes = edit_holes((a,), add=(b,))
+    assert len(holes) == 2 and holes[1].center_px == (50.0, 10.0)
+    holes2 = edit_holes(holes, move={0: (20.0, 20.0)}, resize={1: 4.0})
+    assert holes2[0].center_px == (20.0, 20.0) and holes2[1].radius_px == 4.0
+    assert holes[0].center_px == (10.0, 10.0)  # input unchanged
+    assert len(edit_holes(holes2, delete=(0,))) == 1
+    flake = np.array([[0.0, 0.0], [40.0, 0.0], [40.0, 40.0], [0.0, 40.0]])
+    pairs = coverage_pairs({7: flake}, holes2, 0.1)
+    assert [(f, k) for f, k, _ in pairs] == [(7, 0)]
+    assert pairs[0][2].fully_covered and pairs[0][2].margin_um == pytest.approx(1.7)
+    with pytest.raises(Exception, match="hole index"):
+        edit_holes(holes2, delete=(5,))
