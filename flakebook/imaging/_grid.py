@@ -13,7 +13,7 @@ import cv2
 import numpy as np
 
 
-def choose_factor(shape: tuple[int, int], target_pixels: float = 1.0e6) -> int:
+def choose_factor(shape: tuple[int, int], target_pixels: float = 7.5e5) -> int:
     """A whole downsampling factor bringing an image to about ``target_pixels`` or fewer."""
     n = float(shape[0]) * float(shape[1])
     return max(1, int(math.ceil(math.sqrt(n / target_pixels) - 1e-9)))

@@ -69,18 +69,20 @@ class Background:
         y = _norm_coords(np.arange(r0, r1, dtype=np.float64), self.shape[0])
         x = _norm_coords(np.arange(c0, c1, dtype=np.float64), self.shape[1])
         terms = _terms(self.degree or 0)
-        out = np.zeros((r1 - r0, c1 - c0, len(self.channels)), np.float32)
-        ypow = [y**k for k in range(self.degree + 1)]
+        ypow = [(y**k).astype(np.float32) for k in range(self.degree + 1)]
         xpow = [x**k for k in range(self.degree + 1)]
+        planes = []
         for c in range(len(self.channels)):
+            plane = np.zeros((r1 - r0, c1 - c0), np.float32)
             for j in range(self.degree + 1):
                 # sum over i of a_ij x^i, times y^j
                 px = np.zeros_like(x)
                 for t, (i, jj) in enumerate(terms):
                     if jj == j:
                         px += self.coefficients[c, t] * xpow[i]
-                out[:, :, c] += np.outer(ypow[j], px).astype(np.float32)
-        return out
+                plane += np.outer(ypow[j], px.astype(np.float32))
+            planes.append(plane)
+        return np.stack(planes, axis=-1)
 
     def gain(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
         """The per-pixel gain over a crop (float32 ``[row, col, ch]``), 1 where uncorrected."""
@@ -167,7 +169,7 @@ def _offsets(dark_offset, channels: tuple[str, ...]) -> tuple[float, ...]:
 
 
 def _robust_polyfit(
-    x: np.ndarray, y: np.ndarray, z: np.ndarray, degree: int, iterations: int = 6
+    x: np.ndarray, y: np.ndarray, z: np.ndarray, degree: int, iterations: int = 4, l1: int = 6
 ) -> tuple[np.ndarray, float]:
     """Robust fit of a 2-D polynomial; returns coefficients and relative rms.
 
@@ -180,10 +182,12 @@ def _robust_polyfit(
     coef = np.zeros(len(terms))
     scale = 1.0
     eps = 1e-6 * max(float(np.median(np.abs(z))), 1e-12)
-    for _ in range(8):
+    for _ in range(l1):
         aw = a * w[:, None]
         coef = np.linalg.lstsq(aw.T @ a, aw.T @ z, rcond=None)[0]
         w = 1.0 / np.maximum(np.abs(z - a @ coef), eps)
+    if l1 == 0:
+        coef = np.linalg.lstsq(a.T @ a, a.T @ z, rcond=None)[0]
     r = z - a @ coef
     scale = 1.4826 * np.median(np.abs(r))
     w = np.ones_like(z) if scale <= 0 else np.where(np.abs(r) < 4.685 * scale, 1.0, 0.0)
@@ -380,10 +384,13 @@ def fit_background(
     coefs = np.zeros((nch, len(_terms(degree))))
     rms = [0.0] * nch
     use = ok.copy()
-    for _ in range(2):
+    for _pass in range(2):
         keep = np.ones_like(use)
         for c in range(nch):
-            coefs[c], rms[c] = _robust_polyfit(xx[use], yy[use], vals[use, c], degree)
+            # The second pass fits pixels already agreeing with the surface: no L1 start needed.
+            coefs[c], rms[c] = _robust_polyfit(
+                xx[use], yy[use], vals[use, c], degree, l1=0 if (_pass or _refit) else 6
+            )
             a = np.stack([xx**i * yy**j for i, j in _terms(degree)], axis=1)
             model = a @ coefs[c]
             rel = vals[:, c] / np.maximum(model, 1e-9) - 1

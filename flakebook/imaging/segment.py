@@ -755,22 +755,30 @@ def _measure_region(
     sub_rel: dict,
 ) -> Region | None:
     """Contrast, area, box, centroid and outline of one region at full resolution."""
-    full = _full_crop_mask(rmask, f)
     fy0, fx0 = ry * f, rx * f
-    h, w = full.shape
-    h = min(h, image.height - fy0)
-    w = min(w, image.width - fx0)
-    full = full[:h, :w]
-    yy, xx = np.nonzero(full)
-    if len(yy) == 0:
+    h = min(rmask.shape[0] * f, image.height - fy0)
+    w = min(rmask.shape[1] * f, image.width - fx0)
+    wy, wx = np.nonzero(rmask)
+    if len(wy) == 0:
         return None
-    # Interior: leave out pixels within max(2, f) px of the region's edge (blur, mixed pixels).
-    e = max(2, f)
-    pad = np.pad(full.astype(np.uint8), e)
-    inner = cv2.erode(pad, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * e + 1, 2 * e + 1)))
-    inner = inner[e:-e, e:-e].astype(bool)
-    if np.count_nonzero(inner) < 16:
-        inner = full.copy()
+    # Area, box and centroid of the region's full-resolution pixels (blocks of f x f).
+    area_px = int(len(wy)) * f * f
+    cx = float(np.mean(wx)) * f + (f - 1) / 2.0 + fx0
+    cy = float(np.mean(wy)) * f + (f - 1) / 2.0 + fy0
+    bbox = (
+        fx0 + int(wx.min()) * f,
+        fy0 + int(wy.min()) * f,
+        min(fx0 + int(wx.max()) * f + f - 1, image.width - 1),
+        min(fy0 + int(wy.max()) * f + f - 1, image.height - 1),
+    )
+    # Interior: leave out pixels within max(2, f) px of the region's edge (blur, mixed pixels);
+    # eroded on the working grid (one working pixel is f px) and expanded to full resolution.
+    k = 5 if f == 1 else 3
+    inner_w = cv2.erode(np.pad(rmask.astype(np.uint8), k // 2), np.ones((k, k), np.uint8))
+    inner_w = inner_w[k // 2 : -(k // 2), k // 2 : -(k // 2)]
+    if np.count_nonzero(inner_w) * f * f < 16:
+        inner_w = rmask.astype(np.uint8)
+    inner = _full_crop_mask(inner_w.astype(bool), f)[:h, :w]
     inner &= ~image.saturated_crop(slice(fy0, fy0 + h), slice(fx0, fx0 + w))
     if np.count_nonzero(inner) < 4:
         return None
@@ -788,15 +796,10 @@ def _measure_region(
     return Region(
         id=rid,
         flake_id=fid,
-        area_px=int(len(yy)),
-        area_um2=float(len(yy) * um_per_px**2),
-        bbox_px=(
-            fx0 + int(xx.min()),
-            fy0 + int(yy.min()),
-            fx0 + int(xx.max()),
-            fy0 + int(yy.max()),
-        ),
-        centroid_px=(float(fx0 + xx.mean()), float(fy0 + yy.mean())),
+        area_px=area_px,
+        area_um2=float(area_px * um_per_px**2),
+        bbox_px=bbox,
+        centroid_px=(cx, cy),
         outline_px=_outline(rmask, rx, ry, f),
         contrast=contrast,
         contrast_err=err,
