@@ -17,7 +17,14 @@ import time
 from pathlib import Path
 
 from flakebook.cli import _common
-from flakebook.cli.optics import _add_light, _add_substrate, _material, _microscope, _substrate
+from flakebook.cli.optics import (
+    CONTRAST_NOTE,
+    _add_light,
+    _add_substrate,
+    _material,
+    _microscope,
+    _substrate,
+)
 from flakebook.errors import Cancelled, InputError
 
 IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
@@ -205,6 +212,8 @@ def _cmd_survey(args) -> int:
                 images.append(_failed_image(path, res["error"]))
             else:
                 images.append(res["ok"])
+    if _common.output_format(args) != "json":
+        _common.message(f"flakebook: {CONTRAST_NOTE} (dark offset subtracted first)")
     _common.emit(args, {"images": images}, rows=_rows(images))
     return _common.EXIT_INPUT if failed else _common.EXIT_OK
 

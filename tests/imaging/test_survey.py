@@ -163,3 +163,17 @@ def test_channel_mismatch_refused():
             microscope=mic,
             scale_um_per_px=0.1,
         )
+
+
+def test_constant_16bit_image_surveys_to_nothing_with_a_warning():
+    """A constant 16-bit image (a lens cap, a blank frame): no regions, a warning, no crash."""
+    mat, sub, mic, _, _ = model()
+    res = survey_image(
+        np.full((80, 90, 3), 20000, np.uint16),
+        material=mat,
+        substrate=sub,
+        microscope=mic,
+        scale_um_per_px=0.1,
+    )
+    assert res.regions == () and res.holes == ()
+    assert any("uniform" in w for w in res.warnings)
