@@ -275,6 +275,8 @@ def _cmd_layers(args) -> int:
             oxide_err_nm=args.oxide_err_nm or 0.0,
             geometry=args.geometry,
             hole=hole,
+            progress=progress if k == 0 else None,
+            cancel=cancel,
         )
         post = like.posterior()
         for w in like.warnings:
