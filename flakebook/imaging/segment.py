@@ -628,7 +628,19 @@ def segment(
                 area_um2=float(area_px * um_per_px**2),
                 bbox_px=(ox, oy, ox + full.shape[1] - 1, oy + full.shape[0] - 1),
                 centroid_px=(float(xx.mean() + ox), float(yy.mean() + oy)),
-                outline_px=_outline(crop, px0 + bx0, py0 + by0, f),
+                outline_px=_flake_outline(
+                    image,
+                    background,
+                    level,
+                    crop,
+                    px0 + bx0,
+                    py0 + by0,
+                    f,
+                    cz,
+                    bw,
+                    bare_c,
+                    hole_w,
+                ),
                 region_ids=tuple(rids),
             )
         )
@@ -651,6 +663,88 @@ def segment(
         warnings=tuple(warnings),
         background=background,
     )
+
+
+def _flake_outline(
+    image: Micrograph,
+    bg: Background,
+    level: np.ndarray,
+    crop: np.ndarray,
+    wx0: int,
+    wy0: int,
+    f: int,
+    centres: np.ndarray,
+    bw: np.ndarray,
+    bare_c: np.ndarray | None,
+    hole_w: list,
+) -> np.ndarray:
+    # ``centres``: substrate (zeros) then the terrace modes, divided by ``bw``.
+    """A flake's outline; at full resolution where the flake touches a hole.
+
+    On the working grid an outline is good to about f/2 pixels. Where a flake meets a hole (the
+    coverage margin needs the edge to a pixel), the flake's full-resolution pixels are classed
+    as on the working grid (nearest of substrate, bare hole and the flake's terrace contrasts,
+    after a 1-pixel smoothing, so that the edge lies half-way) and the outline traced on them.
+    """
+    coarse = _outline(crop, wx0, wy0, f)
+    if f == 1 or not hole_w:
+        return coarse
+    h, w = crop.shape
+    # Full-resolution box of the flake, padded; the coarse mask expanded to it.
+    pad = 2
+    bx0, by0 = max(0, (wx0 - pad) * f), max(0, (wy0 - pad) * f)
+    bx1 = min(image.width, (wx0 + w + pad) * f)
+    by1 = min(image.height, (wy0 + h + pad) * f)
+    win = 3 * f + 12  # edges nearer than this to a hole's edge are traced at full resolution
+    near = [
+        (x * f + (f - 1) / 2.0, y * f + (f - 1) / 2.0, r * f)
+        for x, y, r in hole_w
+        if wx0 - r - win / f <= x <= wx0 + w + r + win / f
+        and wy0 - r - win / f <= y <= wy0 + h + r + win / f
+    ]
+    if not near:
+        return coarse
+    big = np.zeros((by1 - by0, bx1 - bx0), np.uint8)
+    up = cv2.resize(crop.astype(np.uint8), (w * f, h * f), interpolation=cv2.INTER_NEAREST)
+    oy, ox = wy0 * f - by0, wx0 * f - bx0
+    hh, ww = min(up.shape[0], big.shape[0] - oy), min(up.shape[1], big.shape[1] - ox)
+    big[oy : oy + hh, ox : ox + ww] = up[:hh, :ww]
+    allowed = cv2.dilate(big, np.ones((2 * f + 1, 2 * f + 1), np.uint8))
+    others = [np.zeros(len(bw))]
+    if bare_c is not None:
+        others.append(np.asarray(bare_c))
+    cz = np.vstack([np.array(others) / bw, centres[1:]]).astype(np.float32)
+    n_off = len(others)
+    inv_bw = (1.0 / bw).astype(np.float32)
+    for x, y, r in near:
+        x0, x1 = max(bx0, int(x - r - win)), min(bx1, int(x + r + win) + 1)
+        y0, y1 = max(by0, int(y - r - win)), min(by1, int(y + r + win) + 1)
+        if x1 - x0 < 4 or y1 - y0 < 4:
+            continue
+        c = contrast_image(bg.correct(image, slice(y0, y1), slice(x0, x1)), level)
+        c = cv2.GaussianBlur(c, (0, 0), 1.0)
+        if c.ndim == 2:
+            c = c[:, :, None]
+        z = c * inv_bw
+        best = np.full(z.shape[:2], np.inf, np.float32)
+        lab = np.zeros(z.shape[:2], np.int16)
+        for k in range(len(cz)):
+            d2 = ((z - cz[k]) ** 2).sum(-1)
+            closer = d2 < best
+            best[closer] = d2[closer]
+            lab[closer] = k
+        sub = (lab >= n_off) & (allowed[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] > 0)
+        big[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] = sub
+    big = cv2.morphologyEx(big, cv2.MORPH_OPEN, np.ones((3, 3), np.uint8))
+    contours, _ = cv2.findContours(big, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
+    if not contours:
+        return coarse
+    cmax = max(contours, key=cv2.contourArea).reshape(-1, 2).astype(np.float64)
+    if len(cmax) < 3:
+        return coarse
+    cmax[:, 0] += bx0
+    cmax[:, 1] += by0
+    return cmax
 
 
 def _bare_hole_pixels(

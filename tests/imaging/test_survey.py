@@ -177,3 +177,28 @@ def test_constant_16bit_image_surveys_to_nothing_with_a_warning():
     )
     assert res.regions == () and res.holes == ()
     assert any("uniform" in w for w in res.warnings)
+
+
+def test_coverage_margin_at_full_resolution_with_a_coarse_working_grid():
+    """With a working grid 4x coarser than the image, a flake edge near a hole is traced at
+    full resolution: the margin to the hole is within 0.75 px of the drawn one (the coarse
+    outline alone is good to about 2 px)."""
+    from flakebook.imaging.holes import hole_coverage
+    from flakebook.imaging.segment import segment
+
+    from .synth import polygon_coverage
+
+    shape = (240, 320)
+    flake = [[60.0, 51.8], [250.0, 51.8], [250.0, 190.0], [60.0, 190.0]]
+    holes = [(91.0, 76.8, 14.0), (290.0, 30.0, 14.0), (30.0, 210.0, 14.0)]
+    lin = micrograph(
+        shape, [(polygon_coverage(shape, flake), 2)], holes=holes, noise=0.01, seed=3, dark=0.0
+    )
+    img = from_array(np.clip(np.round(lin * 65535), 0, 65535).astype(np.uint16))
+    seg = segment(
+        img, um_per_px=0.1, min_area_um2=20, holes=list(holes), factor=4, work=img.working(4)
+    )
+    (fl,) = seg.flakes
+    cov = hole_coverage(fl.outline_px, ((91.0, 76.8), 14.0), um_per_px=0.1)
+    assert cov.fully_covered
+    assert cov.margin_px == pytest.approx(76.8 - 51.8 - 14.0, abs=0.75)
