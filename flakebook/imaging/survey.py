@@ -358,6 +358,13 @@ def survey_image(
             )
         )
     out_regions.sort(key=lambda r: (-r.target_probability, -r.region.area_um2))
+    misfit = sum(any("explains" in w for w in r.warnings) for r in out_regions)
+    if out_regions and misfit >= max(2, 0.3 * len(out_regions)):
+        warnings.append(
+            f"{misfit} of {len(out_regions)} regions fit no layer number within their errors: "
+            "the oxide thickness, material or dark offset may be off; give --oxide-err-nm or "
+            "calibrate the sample before trusting these layer numbers"
+        )
     report(1.0, "done")
     from flakebook import __version__
 

@@ -67,6 +67,7 @@ def test_layers_right_in_98_percent(encoding):
     assert all(r is not None for r, _ in pairs), "a flake was not found"
     right = sum(r.layers == n for r, n in pairs)
     assert right >= math.ceil(0.98 * len(pairs))
+    assert not any("fit no layer number" in w for w in res.warnings)
     # Ranked by the probability of 1-3 layers: every 1-3 layer flake before every 4-5 one.
     order = [r.id for r in res.regions]
     ranks = {r.id: order.index(r.id) for r, _ in pairs}
@@ -85,6 +86,9 @@ def test_mismatched_oxide_is_right_or_ambiguous():
     for r, n in _match(res, truth):
         assert r is not None
         assert r.layers == n or n in r.ambiguous_with, (n, r.layers, r.probability)
+    # Surveyed as exactly 285 nm (no stated uncertainty): the image as a whole is flagged.
+    exact = _survey(img, oxide_err_nm=0.0)
+    assert any("fit no layer number" in w for w in exact.warnings)
 
 
 def test_terraces_and_suspended_region_over_a_hole():
