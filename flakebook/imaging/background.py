@@ -62,18 +62,18 @@ class Background:
 
     def surface(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
         """The fitted illumination surface over a crop, float32 ``[row, col, ch]``."""
-        r0, r1, _ = rows.indices(self.shape[0])
-        c0, c1, _ = cols.indices(self.shape[1])
+        r0, r1, rs = rows.indices(self.shape[0])
+        c0, c1, cs = cols.indices(self.shape[1])
         if self.method != "polynomial":
             raise InputError("surface() is only defined for the polynomial background")
-        y = _norm_coords(np.arange(r0, r1, dtype=np.float64), self.shape[0])
-        x = _norm_coords(np.arange(c0, c1, dtype=np.float64), self.shape[1])
+        y = _norm_coords(np.arange(r0, r1, rs, dtype=np.float64), self.shape[0])
+        x = _norm_coords(np.arange(c0, c1, cs, dtype=np.float64), self.shape[1])
         terms = _terms(self.degree or 0)
         ypow = [(y**k).astype(np.float32) for k in range(self.degree + 1)]
         xpow = [x**k for k in range(self.degree + 1)]
         planes = []
         for c in range(len(self.channels)):
-            plane = np.zeros((r1 - r0, c1 - c0), np.float32)
+            plane = np.zeros((len(y), len(x)), np.float32)
             for j in range(self.degree + 1):
                 # sum over i of a_ij x^i, times y^j
                 px = np.zeros_like(x)
@@ -85,15 +85,17 @@ class Background:
         return np.stack(planes, axis=-1)
 
     def gain(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
-        """The per-pixel gain over a crop (float32 ``[row, col, ch]``), 1 where uncorrected."""
-        r0, r1, _ = rows.indices(self.shape[0])
-        c0, c1, _ = cols.indices(self.shape[1])
+        """The per-pixel gain over a crop (float32 ``[row, col, ch]``), 1 where uncorrected.
+
+        ``rows`` and ``cols`` may have a step (a sub-grid)."""
+        r0, r1, rs = rows.indices(self.shape[0])
+        c0, c1, cs = cols.indices(self.shape[1])
         nch = len(self.channels)
         if self.method == "none":
-            return np.ones((r1 - r0, c1 - c0, nch), np.float32)
+            return np.ones((len(range(r0, r1, rs)), len(range(c0, c1, cs)), nch), np.float32)
         if self.method == "reference":
-            return self.reference_gain[r0:r1, c0:c1]
-        s = self.surface(slice(r0, r1), slice(c0, c1))
+            return self.reference_gain[r0:r1:rs, c0:c1:cs]
+        s = self.surface(slice(r0, r1, rs), slice(c0, c1, cs))
         lv = np.asarray(self.level, np.float32)
         return lv / np.maximum(s, 1e-6)
 

@@ -149,6 +149,7 @@ def refine_hole(
     max_rms_px: float = 0.3,
     max_rms_rel: float = 0.03,
     min_step: float | None = None,
+    sampler=None,
 ) -> tuple[float, float, float, float, float, int] | None:
     """Sub-pixel centre and radius of a hole from radial intensity profiles.
 
@@ -160,11 +161,13 @@ def refine_hole(
         max_rms_px, max_rms_rel: the largest rms scatter of edge points about the circle
             accepted (pixels, plus a fraction of the radius); rounder shapes only.
         min_step: the smallest inside-outside level difference accepted.
+        sampler: instead of ``gray``, a function ``(x, y) -> values`` giving the bilinearly
+            interpolated gray level at full-image coordinates (NaN outside the image).
 
     Returns:
         (cx, cy, r, center_err, radius_err, n_points) or None when no clear edge is found.
     """
-    g = np.ascontiguousarray(gray, np.float32)
+    g = None if sampler is not None else np.ascontiguousarray(gray, np.float32)
     ox, oy = offset
     for _ in range(iterations):
         k = n_angles or int(np.clip(2 * math.pi * r, 24, 128))
@@ -178,11 +181,14 @@ def refine_hole(
                 np.linspace(1.45 * r + 1.0, 1.7 * r + 2.0, 4),
             ]
         )
-        mx = (cx - ox + np.outer(np.cos(th), rr)).astype(np.float32)
-        my = (cy - oy + np.outer(np.sin(th), rr)).astype(np.float32)
-        prof = cv2.remap(
-            g, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan
-        )
+        if sampler is not None:
+            prof = sampler(cx + np.outer(np.cos(th), rr), cy + np.outer(np.sin(th), rr))
+        else:
+            mx = (cx - ox + np.outer(np.cos(th), rr)).astype(np.float32)
+            my = (cy - oy + np.outer(np.sin(th), rr)).astype(np.float32)
+            prof = cv2.remap(
+                g, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan
+            )
         inside = np.nanmedian(prof[:, :4])
         outside = np.nanmedian(prof[:, -4:])
         if not (np.isfinite(inside) and np.isfinite(outside)):
@@ -266,6 +272,8 @@ def detect_holes(
 
         def work_of(f: int) -> np.ndarray:
             return img.working(f)
+
+        sampler = _gray_sampler(img)
     else:
         arr = np.asarray(intensity)
         if arr.ndim == 2:
@@ -277,6 +285,8 @@ def detect_holes(
 
         def work_of(f: int) -> np.ndarray:
             return _grid.downsample(arr, f)
+
+        sampler = None
 
     if radius_um is not None:
         lo_um, hi_um = 0.6 * radius_um, 1.6 * radius_um
@@ -337,13 +347,16 @@ def detect_holes(
     for c in circles.reshape(-1, 3):
         check_cancel(cancel)
         cx, cy, r = (float(_grid.to_full(c[0], f)), float(_grid.to_full(c[1], f)), float(c[2] * f))
-        pad = int(1.7 * r + 6)
-        x0, y0 = max(0, int(cx - pad)), max(0, int(cy - pad))
-        x1, y1 = min(cols, int(cx + pad) + 1), min(rows, int(cy + pad) + 1)
-        if x1 - x0 < 4 or y1 - y0 < 4:
-            continue
-        g = _gray(crop_of(slice(y0, y1), slice(x0, x1)))
-        fit = refine_hole(g, cx, cy, r, offset=(x0, y0), min_step=need)
+        if sampler is not None:
+            fit = refine_hole(None, cx, cy, r, min_step=need, sampler=sampler)
+        else:
+            pad = int(1.7 * r + 6)
+            x0, y0 = max(0, int(cx - pad)), max(0, int(cy - pad))
+            x1, y1 = min(cols, int(cx + pad) + 1), min(rows, int(cy + pad) + 1)
+            if x1 - x0 < 4 or y1 - y0 < 4:
+                continue
+            g = _gray(crop_of(slice(y0, y1), slice(x0, x1)))
+            fit = refine_hole(g, cx, cy, r, offset=(x0, y0), min_step=need)
         if fit is None:
             continue
         fx, fy, fr, ce, re, n = fit
@@ -354,6 +367,37 @@ def detect_holes(
         holes.append(Hole((fx, fy), fr, re, ce, um_per_px, um_per_px_err, True, n))
     holes.sort(key=lambda h: (round(h.center_px[1]), h.center_px[0]))
     return tuple(holes)
+
+
+def _gray_sampler(img):
+    """Bilinear gray level (mean of linear channels) of a Micrograph at full-res coordinates,
+    converting only the pixels it touches (NaN outside the image)."""
+    rows, cols = img.shape
+
+    def gray_at(yy: np.ndarray, xx: np.ndarray) -> np.ndarray:
+        raw = img.samples[yy, xx]  # (..., ch)
+        lin = img._convert(raw.reshape(-1, 1, raw.shape[-1]), reorder=False)
+        return lin.reshape(raw.shape).mean(axis=-1)
+
+    def sample(mx: np.ndarray, my: np.ndarray) -> np.ndarray:
+        x0 = np.floor(mx).astype(np.int64)
+        y0 = np.floor(my).astype(np.int64)
+        fx = (mx - x0).astype(np.float32)
+        fy = (my - y0).astype(np.float32)
+        valid = (x0 >= 0) & (y0 >= 0) & (x0 + 1 < cols) & (y0 + 1 < rows)
+        x0 = np.clip(x0, 0, max(cols - 2, 0))
+        y0 = np.clip(y0, 0, max(rows - 2, 0))
+        x1 = np.minimum(x0 + 1, cols - 1)
+        y1 = np.minimum(y0 + 1, rows - 1)
+        v = (
+            gray_at(y0, x0) * (1 - fx) * (1 - fy)
+            + gray_at(y0, x1) * fx * (1 - fy)
+            + gray_at(y1, x0) * (1 - fx) * fy
+            + gray_at(y1, x1) * fx * fy
+        )
+        return np.where(valid, v, np.nan).astype(np.float32)
+
+    return sample
 
 
 def _gray(a: np.ndarray) -> np.ndarray:
