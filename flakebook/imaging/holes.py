@@ -123,7 +123,7 @@ def fit_circle(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, np.nd
     sol = np.linalg.lstsq(a, b, rcond=None)[0]
     cx, cy = sol[0] / 2, sol[1] / 2
     r = math.sqrt(max(sol[2] + cx**2 + cy**2, 1e-12))
-    for _ in range(20):
+    for _ in range(12):
         dx, dy = x - cx, y - cy
         d = np.hypot(dx, dy)
         d = np.maximum(d, 1e-12)
@@ -131,7 +131,7 @@ def fit_circle(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, np.nd
         j = np.column_stack([-dx / d, -dy / d, -np.ones_like(d)])
         step = np.linalg.lstsq(j, -res, rcond=None)[0]
         cx, cy, r = cx + step[0], cy + step[1], r + step[2]
-        if np.abs(step).max() < 1e-9:
+        if np.abs(step).max() < 1e-7:
             break
     res = np.hypot(x - cx, y - cy) - r
     return float(cx), float(cy), float(r), res
@@ -169,15 +169,16 @@ def refine_hole(
     """
     g = None if sampler is not None else np.ascontiguousarray(gray, np.float32)
     ox, oy = offset
+    zone = 8.0
     for _ in range(iterations):
-        k = n_angles or int(np.clip(2 * math.pi * r, 24, 128))
+        k = n_angles or int(np.clip(2 * math.pi * r, 24, 96))
         th = np.linspace(0, 2 * math.pi, k, endpoint=False)
         step = 0.25 if r < 20 else 0.5
         # Levels from a few radii well inside and outside; the edge zone finely sampled.
         rr = np.concatenate(
             [
                 np.linspace(0.3 * r, 0.55 * r, 4),
-                np.arange(max(0.65 * r, r - 8.0), min(1.35 * r + 1.0, r + 9.0), step),
+                np.arange(max(0.65 * r, r - zone), min(1.35 * r + 1.0, r + zone + 1.0), step),
                 np.linspace(1.45 * r + 1.0, 1.7 * r + 2.0, 4),
             ]
         )
@@ -223,6 +224,7 @@ def refine_hole(
         if not (np.isfinite(nr) and nr > 0.5 and math.hypot(ncx - cx, ncy - cy) < 0.5 * r + 2):
             return None
         cx, cy, r = ncx, ncy, nr
+        zone = 4.0  # the edge is now known to about a pixel
     n = len(res)
     sd = float(np.sqrt(np.sum(res**2) / max(n - 3, 1)))
     if sd > max_rms_px + max_rms_rel * r:
@@ -374,10 +376,12 @@ def _gray_sampler(img):
     converting only the pixels it touches (NaN outside the image)."""
     rows, cols = img.shape
 
-    def gray_at(yy: np.ndarray, xx: np.ndarray) -> np.ndarray:
-        raw = img.samples[yy, xx]  # (..., ch)
-        lin = img._convert(raw.reshape(-1, 1, raw.shape[-1]), reorder=False)
-        return lin.reshape(raw.shape).mean(axis=-1)
+    nch = len(img.channels)
+    if img.samples.dtype == np.uint8:
+        base = img._convert(np.arange(256, dtype=np.uint8).reshape(-1, 1, 1), reorder=False)
+        lut = base.reshape(-1) / np.float32(nch)
+    else:
+        lut = None
 
     def sample(mx: np.ndarray, my: np.ndarray) -> np.ndarray:
         x0 = np.floor(mx).astype(np.int64)
@@ -389,11 +393,18 @@ def _gray_sampler(img):
         y0 = np.clip(y0, 0, max(rows - 2, 0))
         x1 = np.minimum(x0 + 1, cols - 1)
         y1 = np.minimum(y0 + 1, rows - 1)
+        # One gather of the four neighbours of every point.
+        raw = img.samples[np.stack([y0, y0, y1, y1]), np.stack([x0, x1, x0, x1])]
+        if lut is not None:
+            g = lut[raw].sum(axis=-1)
+        else:
+            lin = img._convert(raw.reshape(-1, 1, nch), reorder=False)
+            g = lin.reshape(raw.shape).mean(axis=-1)
         v = (
-            gray_at(y0, x0) * (1 - fx) * (1 - fy)
-            + gray_at(y0, x1) * fx * (1 - fy)
-            + gray_at(y1, x0) * (1 - fx) * fy
-            + gray_at(y1, x1) * fx * fy
+            g[0] * (1 - fx) * (1 - fy)
+            + g[1] * fx * (1 - fy)
+            + g[2] * (1 - fx) * fy
+            + g[3] * fx * fy
         )
         return np.where(valid, v, np.nan).astype(np.float32)
 
