@@ -196,7 +196,7 @@ class Micrograph:
             out = np.empty((rows, cols, len(self.channels)), np.float32)
             sat = np.empty((rows, cols), bool)
             known = self.saturation is not None or "sat" in self._cache
-            band = f * max(1, 256 // f)
+            band = f * max(1, 48 // f)
             for r0 in range(0, rows * f, band):
                 r1 = min(r0 + band, rows * f)
                 raw = self.samples[r0:r1, : cols * f]
