@@ -637,6 +637,8 @@ def wait_until_readable(
         if size != last_size:
             last_size = size
             stable_since = now
+        elif size < 0 and now - stable_since >= stable_s:
+            raise InputError(f"{path}: the file disappeared before it was complete")
         elif size > 0 and now - stable_since >= stable_s:
             try:
                 return read_image(path)
