@@ -18,7 +18,7 @@ import numpy as np
 
 from flakebook.errors import InputError
 from flakebook.imaging import _grid
-from flakebook.imaging.io import Micrograph
+from flakebook.imaging.io import Micrograph, with_intensity
 
 
 def _terms(degree: int) -> list[tuple[int, int]]:
@@ -47,6 +47,7 @@ class Background:
             (working resolution), or None.
         reference_gain: the gain image ``[row, col, ch]`` (``"reference"`` only).
         warnings: messages for the user.
+        coefficient_cov: covariance of ``coefficients`` per channel (``"polynomial"`` only).
     """
 
     method: str
@@ -59,47 +60,70 @@ class Background:
     residual_rms: tuple[float, ...] | None = None
     reference_gain: np.ndarray | None = None
     warnings: tuple[str, ...] = ()
+    coefficient_cov: np.ndarray | None = None
+
+    def relative_error(self, x_px: float, y_px: float) -> np.ndarray:
+        """Standard error of the fitted surface at (x, y), relative to it, per channel (0 for a
+        reference image or no correction)."""
+        nch = len(self.channels)
+        if self.method != "polynomial" or self.coefficient_cov is None:
+            return np.zeros(nch)
+        x = _norm_coords(np.array([float(x_px)]), self.shape[1])[0]
+        y = _norm_coords(np.array([float(y_px)]), self.shape[0])[0]
+        ap = np.array([x**i * y**j for i, j in _terms(self.degree)])
+        val = self.coefficients @ ap
+        var = np.einsum("t,ctu,u->c", ap, self.coefficient_cov, ap)
+        return np.sqrt(np.maximum(var, 0.0)) / np.maximum(np.abs(val), 1e-12)
 
     def surface(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
         """The fitted illumination surface over a crop, float32 ``[row, col, ch]``."""
-        r0, r1, _ = rows.indices(self.shape[0])
-        c0, c1, _ = cols.indices(self.shape[1])
+        r0, r1, rs = rows.indices(self.shape[0])
+        c0, c1, cs = cols.indices(self.shape[1])
         if self.method != "polynomial":
             raise InputError("surface() is only defined for the polynomial background")
-        y = _norm_coords(np.arange(r0, r1, dtype=np.float64), self.shape[0])
-        x = _norm_coords(np.arange(c0, c1, dtype=np.float64), self.shape[1])
+        y = _norm_coords(np.arange(r0, r1, rs, dtype=np.float64), self.shape[0])
+        x = _norm_coords(np.arange(c0, c1, cs, dtype=np.float64), self.shape[1])
         terms = _terms(self.degree or 0)
-        out = np.zeros((r1 - r0, c1 - c0, len(self.channels)), np.float32)
-        ypow = [y**k for k in range(self.degree + 1)]
+        ypow = [(y**k).astype(np.float32) for k in range(self.degree + 1)]
         xpow = [x**k for k in range(self.degree + 1)]
+        planes = []
         for c in range(len(self.channels)):
+            plane = np.zeros((len(y), len(x)), np.float32)
             for j in range(self.degree + 1):
                 # sum over i of a_ij x^i, times y^j
                 px = np.zeros_like(x)
                 for t, (i, jj) in enumerate(terms):
                     if jj == j:
                         px += self.coefficients[c, t] * xpow[i]
-                out[:, :, c] += np.outer(ypow[j], px).astype(np.float32)
-        return out
+                plane += np.outer(ypow[j], px.astype(np.float32))
+            planes.append(plane)
+        return np.stack(planes, axis=-1)
 
     def gain(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
-        """The per-pixel gain over a crop (float32 ``[row, col, ch]``), 1 where uncorrected."""
-        r0, r1, _ = rows.indices(self.shape[0])
-        c0, c1, _ = cols.indices(self.shape[1])
+        """The per-pixel gain over a crop (float32 ``[row, col, ch]``), 1 where uncorrected.
+
+        ``rows`` and ``cols`` may have a step (a sub-grid)."""
+        r0, r1, rs = rows.indices(self.shape[0])
+        c0, c1, cs = cols.indices(self.shape[1])
         nch = len(self.channels)
         if self.method == "none":
-            return np.ones((r1 - r0, c1 - c0, nch), np.float32)
+            return np.ones((len(range(r0, r1, rs)), len(range(c0, c1, cs)), nch), np.float32)
         if self.method == "reference":
-            return self.reference_gain[r0:r1, c0:c1]
-        s = self.surface(slice(r0, r1), slice(c0, c1))
+            return self.reference_gain[r0:r1:rs, c0:c1:cs]
+        s = self.surface(slice(r0, r1, rs), slice(c0, c1, cs))
         lv = np.asarray(self.level, np.float32)
         return lv / np.maximum(s, 1e-6)
 
     def correct(
-        self, intensity: np.ndarray, rows: slice = slice(None), cols: slice = slice(None)
+        self, intensity, rows: slice = slice(None), cols: slice = slice(None)
     ) -> np.ndarray:
-        """Corrected intensity of the crop ``intensity[rows, cols]`` (a new float32 array)."""
-        crop = intensity[rows, cols]
+        """Corrected intensity of the crop ``[rows, cols]`` of an array or a Micrograph (a new
+        float32 array)."""
+        crop = (
+            intensity.crop(rows, cols)
+            if isinstance(intensity, Micrograph)
+            else intensity[rows, cols]
+        )
         off = np.asarray(self.dark_offset, np.float32)
         return (crop - off) * self.gain(rows, cols)
 
@@ -162,7 +186,7 @@ def _offsets(dark_offset, channels: tuple[str, ...]) -> tuple[float, ...]:
 
 
 def _robust_polyfit(
-    x: np.ndarray, y: np.ndarray, z: np.ndarray, degree: int, iterations: int = 6
+    x: np.ndarray, y: np.ndarray, z: np.ndarray, degree: int, iterations: int = 4, l1: int = 6
 ) -> tuple[np.ndarray, float]:
     """Robust fit of a 2-D polynomial; returns coefficients and relative rms.
 
@@ -175,10 +199,12 @@ def _robust_polyfit(
     coef = np.zeros(len(terms))
     scale = 1.0
     eps = 1e-6 * max(float(np.median(np.abs(z))), 1e-12)
-    for _ in range(12):
+    for _ in range(l1):
         aw = a * w[:, None]
         coef = np.linalg.lstsq(aw.T @ a, aw.T @ z, rcond=None)[0]
         w = 1.0 / np.maximum(np.abs(z - a @ coef), eps)
+    if l1 == 0:
+        coef = np.linalg.lstsq(a.T @ a, a.T @ z, rcond=None)[0]
     r = z - a @ coef
     scale = 1.4826 * np.median(np.abs(r))
     w = np.ones_like(z) if scale <= 0 else np.where(np.abs(r) < 4.685 * scale, 1.0, 0.0)
@@ -193,6 +219,47 @@ def _robust_polyfit(
         w = np.where(np.abs(u) < 1, (1 - u**2) ** 2, 0.0)
     level = float(np.mean(a @ coef))
     return coef, (scale / level if level > 0 else float("nan"))
+
+
+def _coefficient_covariance(
+    a: np.ndarray, vals: np.ndarray, coefs: np.ndarray, used: np.ndarray, grid_shape: tuple
+) -> np.ndarray:
+    """Covariance of the surface coefficients per channel, ``[channel, term, term]``.
+
+    s^2 (A^T A)^-1 from the robust residual scale s of the fitted points, inflated for the
+    correlation between points on the fit grid by (1 + 2 sum_k rho_x(k)) (1 + 2 sum_k rho_y(k)),
+    the residuals' autocorrelation summed along x and y while it exceeds 0.05 (a separable
+    effective-sample-size factor; common practice, no source).
+    """
+    au = a[used]
+    g_inv = np.linalg.pinv(au.T @ au)
+    nch = vals.shape[1]
+    out = np.zeros((nch, a.shape[1], a.shape[1]))
+    idx = np.flatnonzero(used)
+    for c in range(nch):
+        r = vals[used, c] - au @ coefs[c]
+        sc = 1.4826 * float(np.median(np.abs(r - np.median(r)))) if r.size else 0.0
+        grid = np.full(int(np.prod(grid_shape)), np.nan)
+        grid[idx] = r
+        grid = grid.reshape(grid_shape)
+        kappa = 1.0
+        for axis in (1, 0):
+            factor = 1.0
+            for lag in range(1, 9):
+                if grid.shape[axis] <= lag:
+                    break
+                g0 = grid[:, :-lag] if axis == 1 else grid[:-lag, :]
+                g1 = grid[:, lag:] if axis == 1 else grid[lag:, :]
+                m = np.isfinite(g0) & np.isfinite(g1)
+                if np.count_nonzero(m) <= 10:
+                    break
+                rho = float(np.corrcoef(g0[m], g1[m])[0, 1])
+                if not np.isfinite(rho) or rho < 0.05:
+                    break
+                factor += 2.0 * rho
+            kappa *= factor
+        out[c] = sc**2 * kappa * g_inv
+    return out
 
 
 def _initial_substrate(
@@ -301,7 +368,8 @@ def fit_background(
     rows, cols = image.shape
     nch = len(image.channels)
     if method == "none":
-        lv = tuple(float(np.median(image.intensity[::8, ::8, c]) - offs[c]) for c in range(nch))
+        small = image.working(_grid.choose_factor((rows, cols), 2.5e5))
+        lv = tuple(float(np.median(small[:, :, c]) - offs[c]) for c in range(nch))
         return Background("none", offs, image.channels, (rows, cols), level=lv)
     if method == "reference":
         if reference is None:
@@ -339,12 +407,12 @@ def fit_background(
     degree = int(degree)
     if work is None:
         factor = _grid.choose_factor((rows, cols), 4e5)
-        work = _grid.downsample(image.intensity, factor)
+        work = image.working(factor)
     f = factor or 1
     wr, wc = work.shape[:2]
-    sat = _grid.block_max(image.saturated, f)[:wr, :wc]
+    sat = image.saturated_working(f)[:wr, :wc]
     # Subsample the working grid to at most ~60k points for the fit.
-    step = max(1, int(np.ceil(np.sqrt(wr * wc / 2e4))))
+    step = max(1, int(np.ceil(np.sqrt(wr * wc / 1e4))))
     gy, gx = np.mgrid[0:wr:step, 0:wc:step]
     yy = _norm_coords(_grid.to_full(gy.ravel(), f), rows)
     xx = _norm_coords(_grid.to_full(gx.ravel(), f), cols)
@@ -374,11 +442,16 @@ def fit_background(
     coefs = np.zeros((nch, len(_terms(degree))))
     rms = [0.0] * nch
     use = ok.copy()
-    for _ in range(2):
+    a = np.stack([xx**i * yy**j for i, j in _terms(degree)], axis=1)
+    used_last = use
+    for _pass in range(2):
         keep = np.ones_like(use)
+        used_last = use
         for c in range(nch):
-            coefs[c], rms[c] = _robust_polyfit(xx[use], yy[use], vals[use, c], degree)
-            a = np.stack([xx**i * yy**j for i, j in _terms(degree)], axis=1)
+            # The second pass fits pixels already agreeing with the surface: no L1 start needed.
+            coefs[c], rms[c] = _robust_polyfit(
+                xx[use], yy[use], vals[use, c], degree, l1=0 if (_pass or _refit) else 6
+            )
             model = a @ coefs[c]
             rel = vals[:, c] / np.maximum(model, 1e-9) - 1
             tol = max(4 * rms[c], 0.005) if np.isfinite(rms[c]) else 0.05
@@ -388,6 +461,7 @@ def fit_background(
             use = ok
             warnings.append("little bare substrate found: the illumination fit is uncertain")
             break
+    cov = _coefficient_covariance(a, vals, coefs, used_last, gy.shape)
     bg = Background(
         "polynomial",
         offs,
@@ -398,6 +472,7 @@ def fit_background(
         level=(0.0,) * nch,
         residual_rms=tuple(float(r) for r in rms),
         warnings=tuple(warnings),
+        coefficient_cov=cov,
     )
     # Normalise to the mean of the surface over the image (on a coarse grid).
     gy2 = np.arange(0, rows, max(1, rows // 64))
@@ -432,11 +507,10 @@ def apply_background(image: Micrograph, background: Background) -> Micrograph:
             f"{image.path or 'image'}: the dark offset was already subtracted; accepted: "
             "subtract it once"
         )
-    out = background.correct(image.intensity)
-    out.setflags(write=False)
+    out = background.correct(image)
     done = list(image.corrections)
     if any(background.dark_offset):
         done.append("dark offset " + ",".join(f"{v:.6g}" for v in background.dark_offset))
     if background.method != "none":
         done.append(f"flat field ({background.method})")
-    return replace(image, intensity=out, corrections=tuple(done))
+    return with_intensity(image, out, corrections=tuple(done))

@@ -26,12 +26,12 @@ from flakebook.imaging.holes import (
     Coverage,
     Hole,
     Lattice,
+    coverage_pairs,
     detect_holes,
     fit_lattice,
-    hole_coverage,
     predict_hidden_holes,
 )
-from flakebook.imaging.io import Micrograph, from_array, read_image
+from flakebook.imaging.io import Micrograph, from_array, read_image, with_intensity
 from flakebook.imaging.scale import Scale, given_scale
 from flakebook.imaging.segment import Flake, Region, Segmentation, segment
 
@@ -113,6 +113,16 @@ class SurveyResult:
     warnings: tuple[str, ...] = ()
     provenance: dict = field(default_factory=dict)
 
+    def primary_region_id(self, flake_id: int) -> int | None:
+        """The flake's primary terrace (DESIGN.md): the largest one over a hole if any, else the
+        largest."""
+        own = [r for r in self.regions if r.region.flake_id == flake_id]
+        if not own:
+            return None
+        over = [r for r in own if r.geometry == "suspended"]
+        pick = max(over or own, key=lambda r: r.region.area_um2)
+        return pick.id
+
     def to_dict(self) -> dict:
         return {
             "path": self.path,
@@ -124,7 +134,10 @@ class SurveyResult:
             "substrate": dict(self.segmentation.substrate),
             "background": self.background.to_dict(),
             "regions": [r.to_dict() for r in self.regions],
-            "flakes": [f.to_dict() for f in self.flakes],
+            "flakes": [
+                {**f.to_dict(), "primary_region_id": self.primary_region_id(f.id)}
+                for f in self.flakes
+            ],
             "holes": [h.to_dict() for h in self.holes],
             "lattice": None if self.lattice is None else self.lattice.to_dict(),
             "coverage": [c.to_dict() for c in self.coverage],
@@ -147,13 +160,10 @@ def _as_image(source, transfer: str) -> Micrograph:
 
 def _mono(image: Micrograph) -> Micrograph:
     """A colour image as one channel (mean of the channels) for monochromatic illumination."""
-    from dataclasses import replace
-
     if image.channels == ("mono",):
         return image
     lin = image.intensity.mean(axis=2, keepdims=True, dtype=np.float32)
-    lin.setflags(write=False)
-    return replace(image, intensity=lin, channels=("mono",))
+    return with_intensity(image, lin, channels=("mono",))
 
 
 def _share_over_hole(seg: Segmentation, reg: Region, hole: Hole) -> float:
@@ -253,7 +263,12 @@ def survey_image(
     check_cancel(cancel)
     warnings = list(image.warnings)
     f = _grid.choose_factor(image.shape)
-    work = _grid.downsample(image.intensity, f)
+    work = image.working(f)
+    sat_frac = float(np.mean(image.saturated_working(f)))
+    if sat_frac > 0.01:
+        warnings.append(
+            f"about {100 * sat_frac:.1f}% of the image has saturated pixels, which are left out"
+        )
     report(0.1, "background")
     bg = fit_background(
         image, dark_offset=dark_offset, method=background, reference=reference, work=work, factor=f
@@ -265,7 +280,7 @@ def survey_image(
     if find_holes:
         report(0.25, "holes")
         holes = detect_holes(
-            image.intensity,
+            image,
             um_per_px=scale.um_per_px,
             um_per_px_err=scale.um_per_px_err,
             radius_um=hole_radius_um,
@@ -297,17 +312,12 @@ def survey_image(
             )
             holes = holes + hidden
 
-    coverage: list[FlakeHole] = []
-    for fl in seg.flakes:
-        x0, y0, x1, y1 = fl.bbox_px
-        for k, h in enumerate(holes):
-            cx, cy = h.center_px
-            r = h.radius_px
-            if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
-                continue
-            cov = hole_coverage(fl.outline_px, h, scale.um_per_px)
-            if cov.covered_fraction > 0:
-                coverage.append(FlakeHole(fl.id, k, cov))
+    coverage = [
+        FlakeHole(fid, k, cov)
+        for fid, k, cov in coverage_pairs(
+            {fl.id: fl.outline_px for fl in seg.flakes}, holes, scale.um_per_px
+        )
+    ]
 
     report(0.7, "layer evidence")
     ohole = hole if hole is not None else OpticsHole()
@@ -361,6 +371,13 @@ def survey_image(
             )
         )
     out_regions.sort(key=lambda r: (-r.target_probability, -r.region.area_um2))
+    misfit = sum(any("explains" in w for w in r.warnings) for r in out_regions)
+    if out_regions and misfit >= max(2, 0.3 * len(out_regions)):
+        warnings.append(
+            f"{misfit} of {len(out_regions)} regions fit no layer number within their errors: "
+            "the oxide thickness, material or dark offset may be off; give --oxide-err-nm or "
+            "calibrate the sample before trusting these layer numbers"
+        )
     report(1.0, "done")
     from flakebook import __version__
 

@@ -447,8 +447,22 @@ def layer_likelihood(
             "material, dark offset and reference region"
         )
 
-    decider = ""
     post = evidence.combine([scaled])
+    if oxide_err_nm == 0 and t0 is not None and not post.is_more:
+        sens = _oxide_sensitivity(
+            material, substrate, microscope, geometry, hole, post.layers, idx, t0
+        )
+        worst = int(np.argmax(np.abs(sens) / np.sqrt(var[0, 0, post.layers - 1])))
+        shift = float(sens[worst])
+        if abs(shift) > 3.0 * float(np.sqrt(var[0, 0, post.layers - 1, worst])):
+            warnings.append(
+                f"the oxide thickness is taken as exactly {t0:g} nm, but here a 3 nm change moves "
+                f"the {use[worst]} contrast of {post.layers}L by {shift:+.3f}, more than the "
+                "errors allow: give the oxide's uncertainty (--oxide-err-nm) or calibrate it, or "
+                "the layer number may be confidently wrong"
+            )
+
+    decider = ""
     if explain and post.ambiguous_with:
         decider = _decider(
             post,
@@ -517,6 +531,17 @@ def layer_likelihood(
             "nk_data_sets": [v.data_set_text for v in variants],
         },
     )
+
+
+def _oxide_sensitivity(material, substrate, microscope, geometry, hole, n, idx, t0):
+    """Change of the model contrast of N layers per channel for a 3 nm thicker oxide."""
+    from flakebook.optics.microscope import channel_contrast
+
+    lo = channel_contrast(material, [n], substrate, microscope, geometry, hole).contrast[0]
+    hi = channel_contrast(
+        material, [n], substrate.with_oxide(t0 + 3.0), microscope, geometry, hole
+    ).contrast[0]
+    return (hi - lo)[idx]
 
 
 def _name(n: int, max_layers: int) -> str:

@@ -218,15 +218,19 @@ class Material:
 
     def variants(self) -> list[Material]:
         """This material and one variant per other published bulk data set (ordinary,
-        extraordinary), the layer-resolved sets kept: the spread of published n,k that the layer
-        likelihood marginalises over."""
+        extraordinary): the spread of published n,k that the layer likelihood marginalises over.
+
+        The variants use their bulk set for every thickness, 1-3 layers included: the
+        layer-resolved sets are one measurement among several, and without the others' spread a
+        thin flake on a slightly wrong model would be rejected in favour of a thicker one whose
+        n,k spread happens to cover the measurement."""
         out = [self]
         for o, e in self.bulk_alternatives:
             out.append(
                 Material(
                     name=self.name,
                     ordinary=o,
-                    by_layers=self.by_layers,
+                    by_layers=(),
                     extraordinary=e,
                     layer_spacing_nm=self.layer_spacing_nm,
                     note=self.note,

@@ -67,6 +67,7 @@ def test_layers_right_in_98_percent(encoding):
     assert all(r is not None for r, _ in pairs), "a flake was not found"
     right = sum(r.layers == n for r, n in pairs)
     assert right >= math.ceil(0.98 * len(pairs))
+    assert not any("fit no layer number" in w for w in res.warnings)
     # Ranked by the probability of 1-3 layers: every 1-3 layer flake before every 4-5 one.
     order = [r.id for r in res.regions]
     ranks = {r.id: order.index(r.id) for r, _ in pairs}
@@ -85,6 +86,9 @@ def test_mismatched_oxide_is_right_or_ambiguous():
     for r, n in _match(res, truth):
         assert r is not None
         assert r.layers == n or n in r.ambiguous_with, (n, r.layers, r.probability)
+    # Surveyed as exactly 285 nm (no stated uncertainty): the image as a whole is flagged.
+    exact = _survey(img, oxide_err_nm=0.0)
+    assert any("fit no layer number" in w for w in exact.warnings)
 
 
 def test_terraces_and_suspended_region_over_a_hole():
@@ -132,6 +136,8 @@ def test_terraces_and_suspended_region_over_a_hole():
     } <= set(d["regions"][0])
     assert {"center_px", "radius_px", "radius_um", "radius_err_um"} <= set(d["holes"][0])
     assert len(d["regions"][0]["likelihood"]) == 16
+    # DESIGN.md: the primary terrace is the one over a hole.
+    assert d["flakes"][0]["primary_region_id"] == by_pos["hole"].id
 
 
 def test_mono_bandpass_image():
@@ -163,3 +169,62 @@ def test_channel_mismatch_refused():
             microscope=mic,
             scale_um_per_px=0.1,
         )
+
+
+def test_constant_16bit_image_surveys_to_nothing_with_a_warning():
+    """A constant 16-bit image (a lens cap, a blank frame): no regions, a warning, no crash."""
+    mat, sub, mic, _, _ = model()
+    res = survey_image(
+        np.full((80, 90, 3), 20000, np.uint16),
+        material=mat,
+        substrate=sub,
+        microscope=mic,
+        scale_um_per_px=0.1,
+    )
+    assert res.regions == () and res.holes == ()
+    assert any("uniform" in w for w in res.warnings)
+
+
+def test_coverage_margin_at_full_resolution_with_a_coarse_working_grid():
+    """With a working grid 4x coarser than the image, a flake edge near a hole is traced at
+    full resolution: the margin to the hole is within 0.75 px of the drawn one (the coarse
+    outline alone is good to about 2 px)."""
+    from flakebook.imaging.holes import hole_coverage
+    from flakebook.imaging.segment import segment
+
+    from .synth import polygon_coverage
+
+    shape = (240, 320)
+    flake = [[60.0, 51.8], [250.0, 51.8], [250.0, 190.0], [60.0, 190.0]]
+    holes = [(91.0, 76.8, 14.0), (290.0, 30.0, 14.0), (30.0, 210.0, 14.0)]
+    lin = micrograph(
+        shape, [(polygon_coverage(shape, flake), 2)], holes=holes, noise=0.01, seed=3, dark=0.0
+    )
+    img = from_array(np.clip(np.round(lin * 65535), 0, 65535).astype(np.uint16))
+    seg = segment(
+        img, um_per_px=0.1, min_area_um2=20, holes=list(holes), factor=4, work=img.working(4)
+    )
+    (fl,) = seg.flakes
+    cov = hole_coverage(fl.outline_px, ((91.0, 76.8), 14.0), um_per_px=0.1)
+    assert cov.fully_covered
+    assert cov.margin_px == pytest.approx(76.8 - 51.8 - 14.0, abs=0.75)
+
+
+def test_progress_reaches_the_end_and_cancel_stops():
+    """INTERFACE.md: progress(fraction, text) from 0 to 1; a set cancel event raises Cancelled."""
+    import threading
+
+    from flakebook.errors import Cancelled
+
+    shape = (120, 160)
+    flakes, _ = flake_grid(shape, [2], cell=(120, 160), seed=1)
+    img = from_array(
+        np.clip(np.round(micrograph(shape, flakes, seed=2) * 65535), 0, 65535).astype(np.uint16)
+    )
+    seen = []
+    _survey(img, progress=lambda frac, text: seen.append(frac))
+    assert seen[0] == 0.0 and seen[-1] == 1.0 and seen == sorted(seen)
+    ev = threading.Event()
+    ev.set()
+    with pytest.raises(Cancelled):
+        _survey(img, cancel=ev)
