@@ -1,0 +1,423 @@
+"""The layer inspector: what is known about the selected flake, and the edits made on it.
+
+Shows the posterior over layer number as a bar chart, the evidence with its reasoning, the model's
+contrast-versus-N curve per channel with the measured contrast and its error bar, what would
+decide an ambiguity, the holes the flake covers with coverage and margin, tags and notes, and
+the manual assignment (a reason is required). Contrast here is C = (R_substrate - R_flake) /
+R_substrate per channel, positive when the flake is darker (DESIGN.md).
+
+The inspector computes nothing: :meth:`Inspector.show_flake` takes a plain dict from the
+session, and :meth:`Inspector.set_model` takes the curves computed by the optics code in a worker.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6.QtCore import Qt, Signal
+from PySide6.QtGui import QFont
+from PySide6.QtWidgets import (
+    QFormLayout,
+    QGroupBox,
+    QHBoxLayout,
+    QHeaderView,
+    QLabel,
+    QLineEdit,
+    QPlainTextEdit,
+    QPushButton,
+    QScrollArea,
+    QSpinBox,
+    QTableWidget,
+    QTableWidgetItem,
+    QVBoxLayout,
+    QWidget,
+)
+
+from flakebook.gui import palette
+
+#: Pens for channel curves: red, green and blue channels in Okabe-Ito vermillion, bluish green and
+#: blue, told apart by their symbols as well (o, s, t); other channels in the remaining colours.
+CHANNEL_STYLE = {
+    "r": (palette.OKABE_ITO["vermillion"], "o"),
+    "g": (palette.OKABE_ITO["bluish green"], "s"),
+    "b": (palette.OKABE_ITO["blue"], "t"),
+    "mono": ("#444444", "d"),
+}
+_SPARE = [palette.OKABE_ITO[k] for k in ("orange", "reddish purple", "sky blue")]
+
+
+def channel_style(name: str, index: int) -> tuple[str, str]:
+    if name in CHANNEL_STYLE:
+        return CHANNEL_STYLE[name]
+    return _SPARE[index % len(_SPARE)], "+o"[index % 2]
+
+
+def deciding_hint(
+    candidates: list[int],
+    model: dict[str, np.ndarray] | None,
+    contrast_err: dict[str, float] | None,
+    oxide_err_nm: float | None = None,
+) -> str:
+    """Plain words on what would separate the candidate layer numbers.
+
+    For the two leading candidates, each channel's model contrast difference is compared with the
+    measured error of that channel; the channel that separates them by the most standard errors is
+    named. When no channel separates them by two errors, a narrow-band filter where the model
+    differs most or a calibrated oxide (or a Raman/PL spectrum) is suggested.
+    """
+    if len(candidates) < 2:
+        return "Not ambiguous: no other layer number has 5% or more."
+    a, b = candidates[0], candidates[1]
+    if not model:
+        return f"{a}L or {b}L: the model curves are still being computed."
+    parts = []
+    best = None
+    for ch, curve in model.items():
+        curve = np.asarray(curve, float)
+        if max(a, b) > len(curve):
+            continue
+        diff = abs(curve[a - 1] - curve[b - 1])
+        err = (contrast_err or {}).get(ch)
+        sig = diff / err if err and err > 0 else math.inf
+        parts.append(f"{ch}: ΔC = {diff:.3f}" + (f" ({sig:.1f} σ)" if math.isfinite(sig) else ""))
+        if best is None or sig > best[1]:
+            best = (ch, sig)
+    text = f"{a}L or {b}L. Model contrast difference per channel: " + "; ".join(parts) + "."
+    if best is not None and best[1] >= 2:
+        text += f" The {best[0]} channel separates them ({best[1]:.1f} σ): a cleaner measurement there decides."
+    else:
+        text += (
+            " No channel separates them by two errors here: a narrow-band filter image, a"
+            " calibrated oxide thickness"
+            + (f" (now ±{oxide_err_nm:g} nm)" if oxide_err_nm else "")
+            + ", or a Raman/PL spectrum would decide."
+        )
+    return text
+
+
+class Inspector(QScrollArea):
+    """The inspector dock's content. Signals carry the user's edits to the window."""
+
+    assignRequested = Signal(int, int, str)  # flake id, layers, reason
+    clearAssignmentRequested = Signal(int)
+    tagsEdited = Signal(int, list)
+    notesEdited = Signal(int, str)
+    appearanceRequested = Signal(int, int)  # flake id, image id
+
+    def __init__(self, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.setObjectName("inspector")
+        self.setWidgetResizable(True)
+        body = QWidget(self)
+        self.setWidget(body)
+        self.flake: dict | None = None
+        self.model_curves: dict[str, np.ndarray] | None = None
+
+        self.title = QLabel("No flake selected", body)
+        f = QFont()
+        f.setPointSize(f.pointSize() + 3)
+        f.setBold(True)
+        self.title.setFont(f)
+        self.subtitle = QLabel("Select a flake on the image, in the browser or the catalogue.", body)
+        self.subtitle.setWordWrap(True)
+
+        # Posterior over N
+        self.post_plot = pg.PlotWidget(body, background="w")
+        self.post_plot.setObjectName("posteriorPlot")
+        self.post_plot.setMinimumHeight(150)
+        self.post_plot.setMouseEnabled(False, False)
+        self.post_plot.hideButtons()
+        self.post_plot.setLabel("left", "P(N)")
+        self.post_plot.setLabel("bottom", "layers N")
+        self.post_plot.setYRange(0, 1, padding=0.02)
+        self.bars: pg.BarGraphItem | None = None
+        self.verdict = QLabel(body)
+        self.verdict.setWordWrap(True)
+        self.evidence = QLabel(body)
+        self.evidence.setWordWrap(True)
+        self.evidence.setTextFormat(Qt.TextFormat.RichText)
+
+        # Contrast vs N
+        self.con_plot = pg.PlotWidget(body, background="w")
+        self.con_plot.setObjectName("contrastPlot")
+        self.con_plot.setMinimumHeight(190)
+        self.con_plot.hideButtons()
+        self.con_plot.setLabel("left", "contrast C")
+        self.con_plot.setLabel("bottom", "layers N")
+        self.con_plot.addLegend(offset=(5, 5), labelTextSize="8pt")
+        self.con_note = QLabel(
+            "Model per channel (points), measured contrast (line, band ±1σ), "
+            "C = (R_substrate − R_flake)/R_substrate.", body
+        )
+        self.con_note.setWordWrap(True)
+        self.decide = QLabel(body)
+        self.decide.setWordWrap(True)
+
+        # Holes
+        self.holes = QTableWidget(0, 4, body)
+        self.holes.setObjectName("coveredHoles")
+        self.holes.setHorizontalHeaderLabels(["Hole", "Covered", "Full", "Margin (µm)"])
+        self.holes.verticalHeader().setVisible(False)
+        self.holes.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeMode.Stretch)
+        self.holes.setMaximumHeight(120)
+        self.holes.setEditTriggers(QTableWidget.EditTrigger.NoEditTriggers)
+
+        # Appearances
+        self.appearances = QLabel(body)
+        self.appearances.setWordWrap(True)
+        self.appearances.setTextFormat(Qt.TextFormat.RichText)
+        self.appearances.linkActivated.connect(self._on_appearance_link)
+
+        # Tags and notes
+        self.tags = QLineEdit(body)
+        self.tags.setObjectName("tagsEdit")
+        self.tags.setPlaceholderText("e.g. raman-next, clean-edge (comma-separated)")
+        self.tags.editingFinished.connect(self._on_tags)
+        self.notes = QPlainTextEdit(body)
+        self.notes.setObjectName("notesEdit")
+        self.notes.setMaximumHeight(70)
+        self.notes_button = QPushButton("Save notes", body)
+        self.notes_button.clicked.connect(self._on_notes)
+
+        # Manual assignment
+        self.assign_n = QSpinBox(body)
+        self.assign_n.setObjectName("assignLayers")
+        self.assign_n.setRange(1, 100)
+        self.assign_n.setSuffix(" L")
+        self.assign_reason = QLineEdit(body)
+        self.assign_reason.setObjectName("assignReason")
+        self.assign_reason.setPlaceholderText("Required: why (e.g. shear mode at 18 cm⁻¹)")
+        self.assign_button = QPushButton("Record assignment", body)
+        self.assign_button.setObjectName("assignButton")
+        self.assign_button.setEnabled(False)
+        self.assign_reason.textChanged.connect(
+            lambda t: self.assign_button.setEnabled(bool(t.strip()) and self.flake is not None and not self.read_only)
+        )
+        self.assign_button.clicked.connect(self._on_assign)
+        self.clear_button = QPushButton("Back to evidence", body)
+        self.clear_button.setToolTip("Remove the manual assignment; the combined evidence decides again")
+        self.clear_button.clicked.connect(self._on_clear)
+        self.read_only = False
+
+        lay = QVBoxLayout(body)
+        lay.addWidget(self.title)
+        lay.addWidget(self.subtitle)
+        g1 = QGroupBox("Layer number", body)
+        l1 = QVBoxLayout(g1)
+        l1.addWidget(self.post_plot)
+        l1.addWidget(self.verdict)
+        l1.addWidget(self.evidence)
+        lay.addWidget(g1)
+        g2 = QGroupBox("Contrast against the model", body)
+        l2 = QVBoxLayout(g2)
+        l2.addWidget(self.con_plot)
+        l2.addWidget(self.con_note)
+        l2.addWidget(self.decide)
+        lay.addWidget(g2)
+        g3 = QGroupBox("Holes covered", body)
+        l3 = QVBoxLayout(g3)
+        l3.addWidget(self.holes)
+        l3.addWidget(self.appearances)
+        lay.addWidget(g3)
+        g4 = QGroupBox("Tags and notes", body)
+        l4 = QFormLayout(g4)
+        l4.addRow("Tags", self.tags)
+        l4.addRow("Notes", self.notes)
+        l4.addRow("", self.notes_button)
+        lay.addWidget(g4)
+        g5 = QGroupBox("Manual assignment", body)
+        l5 = QFormLayout(g5)
+        row = QHBoxLayout()
+        row.addWidget(self.assign_n)
+        row.addWidget(self.assign_button)
+        row.addWidget(self.clear_button)
+        l5.addRow("Reason", self.assign_reason)
+        l5.addRow("Layers", row)
+        lay.addWidget(g5)
+        lay.addStretch(1)
+        self._groups = [g1, g2, g3, g4, g5]
+        self.show_flake(None)
+
+    # ---- content -------------------------------------------------------------------------
+    def set_read_only(self, read_only: bool) -> None:
+        self.read_only = read_only
+        for w in (self.tags, self.notes, self.notes_button, self.assign_n, self.assign_reason, self.clear_button):
+            w.setEnabled(not read_only)
+        self.assign_button.setEnabled(False)
+
+    def show_flake(self, flake: dict | None) -> None:
+        """Show ``flake`` (a dict from the session) or nothing."""
+        self.flake = flake
+        for g in self._groups:
+            g.setVisible(flake is not None)
+        if flake is None:
+            self.title.setText("No flake selected")
+            self.subtitle.setText("Select a flake on the image, in the browser or the catalogue.")
+            return
+        stale = " · stale" if flake.get("stale") else ""
+        self.title.setText(flake["label"])
+        self.subtitle.setText(
+            f"{flake.get('sample', '')} · {flake.get('material', '')} · "
+            f"area {flake['area_um2']:.1f} µm²" if flake.get("area_um2") is not None
+            else f"{flake.get('sample', '')} · {flake.get('material', '')}"
+        )
+        if stale:
+            self.subtitle.setText(self.subtitle.text() + stale)
+        self._show_posterior(flake)
+        self._show_evidence(flake)
+        self._show_contrast(flake)
+        self._show_holes(flake)
+        apps = flake.get("appearances") or []
+        if apps:
+            links = ", ".join(f"<a href='{fid_img}'>{name}</a>" for fid_img, name in apps)
+            self.appearances.setText(f"Seen in: {links}")
+        else:
+            self.appearances.setText("")
+        self.tags.setText(", ".join(flake.get("tags") or []))
+        self.notes.setPlainText(flake.get("notes") or "")
+        layers = flake.get("layers")
+        self.assign_n.setMaximum(int(flake.get("max_layers") or 15) + 5)
+        self.assign_n.setValue(int(layers) if layers else 1)
+        self.assign_reason.clear()
+        self.clear_button.setVisible(bool(flake.get("manual")))
+        self.set_read_only(self.read_only)
+
+    def _show_posterior(self, flake: dict) -> None:
+        post = flake.get("posterior")
+        plot = self.post_plot
+        if self.bars is not None:
+            plot.removeItem(self.bars)
+            self.bars = None
+        if not post:
+            self.verdict.setText("No layer evidence yet: find flakes on the image or add a spectrum.")
+            return
+        post = np.asarray(post, float)
+        nmax = len(post) - 1
+        x = np.arange(1, len(post) + 1)
+        brushes = [palette.layer_hex(int(n)) if n <= nmax else palette.THICK_COLOUR for n in x]
+        self.bars = pg.BarGraphItem(x=x, height=post, width=0.8, brushes=brushes, pen=pg.mkPen("#333333"))
+        plot.addItem(self.bars)
+        ticks = [(int(n), str(int(n))) for n in x[:-1] if n <= 5 or n % 5 == 0 or n == nmax]
+        ticks.append((len(post), f">{nmax}"))
+        plot.getAxis("bottom").setTicks([ticks])
+        plot.setXRange(0.4, len(post) + 0.6, padding=0)
+        layers = flake.get("layers")
+        p = flake.get("probability")
+        amb = flake.get("ambiguous_with") or []
+        if flake.get("manual"):
+            text = f"<b>{layers}L</b> set by hand: {flake.get('manual_reason') or ''}"
+            if p is not None:
+                text += f" (evidence alone: {flake.get('evidence_layers')}L, P = {flake.get('evidence_probability', 0):.2f})"
+        elif layers is None:
+            text = "No layer number yet."
+        else:
+            text = f"<b>{layers}L</b>, P = {p:.2f}"
+            if amb:
+                text += " · ambiguous with " + ", ".join(f"{n}L" for n in amb)
+        self.verdict.setText(text)
+
+    def _show_evidence(self, flake: dict) -> None:
+        lines = []
+        for ev in flake.get("evidence") or []:
+            src = f" <i>({ev['source']})</i>" if ev.get("source") else ""
+            stale = " <span style='color:#B05A00'>[stale]</span>" if ev.get("stale") else ""
+            lines.append(f"• <b>{ev.get('method', '?')}</b>: {ev.get('reason') or ''}{src}{stale}")
+        self.evidence.setText("<br>".join(lines) if lines else "<i>No evidence recorded.</i>")
+
+    def _show_contrast(self, flake: dict) -> None:
+        plot = self.con_plot
+        plot.clear()
+        legend = plot.plotItem.legend
+        if legend is not None:
+            legend.clear()
+        contrast = flake.get("contrast") or {}
+        errs = flake.get("contrast_err") or {}
+        model = self.model_curves if self.model_curves is not None else None
+        nmax = int(flake.get("max_layers") or 15)
+        best = flake.get("layers")
+        for i, ch in enumerate(sorted(set(contrast) | set(model or {}))):
+            colour, symbol = channel_style(ch, i)
+            if model and ch in model:
+                curve = np.asarray(model[ch], float)[:nmax]
+                n = np.arange(1, len(curve) + 1)
+                plot.plot(n, curve, pen=pg.mkPen(colour, width=1), symbol=symbol, symbolSize=6,
+                          symbolBrush=colour, symbolPen=None, name=f"model {ch}")
+            if ch in contrast and contrast[ch] is not None:
+                c = float(contrast[ch])
+                e = float(errs.get(ch) or 0.0)
+                band = pg.LinearRegionItem((c - e, c + e), orientation="horizontal", movable=False,
+                                           brush=pg.mkBrush(colour + "30"), pen=pg.mkPen(None))
+                plot.addItem(band)
+                plot.addItem(pg.InfiniteLine(c, angle=0, pen=pg.mkPen(colour, width=1, style=Qt.PenStyle.DashLine)))
+                if best:
+                    plot.addItem(pg.ErrorBarItem(x=np.array([best]), y=np.array([c]), height=np.array([2 * e]),
+                                                 beam=0.25, pen=pg.mkPen(colour, width=2)))
+                    plot.plot([best], [c], pen=None, symbol="x", symbolSize=10, symbolPen=pg.mkPen(colour, width=2),
+                              name=f"measured {ch}")
+        plot.setXRange(0.5, min(nmax, 10) + 0.5, padding=0)
+        amb = [best] + list(flake.get("ambiguous_with") or []) if best else []
+        self.decide.setText(
+            "<b>What would decide:</b> "
+            + deciding_hint(amb, model, errs, flake.get("oxide_err_nm"))
+        )
+        if model is None and contrast:
+            self.con_note.setText("Model curves: computing…")
+        elif not contrast:
+            self.con_note.setText("No contrast measured for this flake.")
+        else:
+            self.con_note.setText(
+                "Model per channel (points), measured contrast (dashed line, band ±1σ, bar at the "
+                "assigned N). C = (R_substrate − R_flake)/R_substrate."
+            )
+
+    def set_model(self, flake_id: int, curves: dict[str, np.ndarray] | None) -> None:
+        """Model contrast per channel (arrays over N = 1..) for flake ``flake_id``."""
+        self.model_curves = curves
+        if self.flake is not None and self.flake["id"] == flake_id:
+            self._show_contrast(self.flake)
+
+    def _show_holes(self, flake: dict) -> None:
+        holes = flake.get("holes") or []
+        self.holes.setRowCount(len(holes))
+        for i, h in enumerate(holes):
+            cells = [
+                str(h.get("label", h.get("hole_id"))),
+                f"{100 * h['covered_fraction']:.0f} %" if h.get("covered_fraction") is not None else "",
+                "yes" if h.get("fully_covered") else "no",
+                f"{h['margin_um']:.2f}" if h.get("margin_um") is not None else "",
+            ]
+            for j, c in enumerate(cells):
+                self.holes.setItem(i, j, QTableWidgetItem(c))
+        self.holes.setVisible(bool(holes))
+
+    # ---- edits ---------------------------------------------------------------------------
+    def _on_tags(self) -> None:
+        if self.flake is None or self.read_only:
+            return
+        tags = [t.strip() for t in self.tags.text().split(",") if t.strip()]
+        if tags != list(self.flake.get("tags") or []):
+            self.tagsEdited.emit(self.flake["id"], tags)
+
+    def _on_notes(self) -> None:
+        if self.flake is None or self.read_only:
+            return
+        text = self.notes.toPlainText()
+        if text != (self.flake.get("notes") or ""):
+            self.notesEdited.emit(self.flake["id"], text)
+
+    def _on_assign(self) -> None:
+        if self.flake is None:
+            return
+        reason = self.assign_reason.text().strip()
+        if reason:
+            self.assignRequested.emit(self.flake["id"], self.assign_n.value(), reason)
+
+    def _on_clear(self) -> None:
+        if self.flake is not None:
+            self.clearAssignmentRequested.emit(self.flake["id"])
+
+    def _on_appearance_link(self, link: str) -> None:
+        if self.flake is not None:
+            self.appearanceRequested.emit(self.flake["id"], int(link))
