@@ -1,0 +1,51 @@
+"""Working copies of an image: block-averaged downsampling and the pixel mapping back.
+
+A working pixel (i, j) at factor f is the mean of full-resolution rows f*i .. f*i+f-1 and columns
+f*j .. f*j+f-1, so its centre is at full-resolution coordinate f*j + (f-1)/2 (x) and
+f*i + (f-1)/2 (y), with the origin at the top-left pixel's centre (INTERFACE.md).
+"""
+
+from __future__ import annotations
+
+import math
+
+import cv2
+import numpy as np
+
+
+def choose_factor(shape: tuple[int, int], target_pixels: float = 1.5e6) -> int:
+    """A whole downsampling factor bringing an image to about ``target_pixels`` or fewer."""
+    n = float(shape[0]) * float(shape[1])
+    return max(1, int(math.ceil(math.sqrt(n / target_pixels) - 1e-9)))
+
+
+def downsample(a: np.ndarray, f: int) -> np.ndarray:
+    """Block means of ``a`` ([row, col] or [row, col, ch]) over f x f blocks (edges cropped)."""
+    if f == 1:
+        return a
+    rows, cols = a.shape[0] // f, a.shape[1] // f
+    src = a[: rows * f, : cols * f]
+    out = cv2.resize(src, (cols, rows), interpolation=cv2.INTER_AREA)
+    if a.ndim == 3 and out.ndim == 2:
+        out = out[:, :, None]
+    return out
+
+
+def block_max(mask: np.ndarray, f: int) -> np.ndarray:
+    """True where any pixel of an f x f block is True (exact)."""
+    if f == 1:
+        return mask.astype(bool, copy=False)
+    rows, cols = mask.shape[0] // f, mask.shape[1] // f
+    src = mask[: rows * f, : cols * f].view(np.uint8)
+    d = cv2.dilate(src, np.ones((f, f), np.uint8), anchor=(0, 0))
+    return d[::f, ::f][:rows, :cols] > 0
+
+
+def to_full(x: np.ndarray | float, f: int) -> np.ndarray | float:
+    """Working-pixel coordinate to full-resolution coordinate (same for x and y)."""
+    return f * np.asarray(x, dtype=np.float64) + (f - 1) / 2.0 if f != 1 else x
+
+
+def to_work(x: np.ndarray | float, f: int) -> np.ndarray | float:
+    """Full-resolution coordinate to working-pixel coordinate."""
+    return (np.asarray(x, dtype=np.float64) - (f - 1) / 2.0) / f if f != 1 else x

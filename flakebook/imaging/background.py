@@ -1,0 +1,360 @@
+"""Background: the camera's dark offset and uneven illumination.
+
+The dark offset (the value the optics calibration stored, in linear intensity as a fraction of
+full scale, one per channel or one for all) is subtracted once. Uneven illumination (vignetting,
+a tilted lamp) is then corrected either by a smooth surface, a low-order 2-D polynomial fitted
+robustly (Tukey biweight, iteratively reweighted) to the bare-substrate pixels, or by dividing by a
+blank reference image of the same chip. The correction is a gain per pixel and channel scaled so
+that the substrate keeps its mean level; a :class:`Background` can correct the whole image or any
+crop of it, so that a survey need not build a corrected copy of a large image.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import cv2
+import numpy as np
+
+from flakebook.errors import InputError
+from flakebook.imaging import _grid
+from flakebook.imaging.io import Micrograph
+
+
+def _terms(degree: int) -> list[tuple[int, int]]:
+    return [(i, j) for total in range(degree + 1) for j in range(total + 1) for i in [total - j]]
+
+
+def _norm_coords(x: np.ndarray, n: int) -> np.ndarray:
+    return (2.0 * x / max(n - 1, 1) - 1.0) if n > 1 else np.zeros_like(x, dtype=np.float64)
+
+
+@dataclass(frozen=True, eq=False)
+class Background:
+    """What was done to an image's background, and the per-pixel gain that does it.
+
+    Attributes:
+        method: ``"polynomial"`` (surface fitted to substrate pixels), ``"reference"`` (blank
+            image) or ``"none"``.
+        dark_offset: subtracted per channel (fraction of full scale).
+        channels: channel names.
+        shape: (rows, cols) of the full-resolution image.
+        degree: polynomial degree (``"polynomial"`` only).
+        coefficients: float64 ``[channel, term]`` of the surface in coordinates normalised to
+            [-1, 1] across the image (``"polynomial"`` only).
+        level: the substrate's mean level per channel after correction.
+        residual_rms: relative rms scatter of substrate pixels about the surface, per channel
+            (working resolution), or None.
+        reference_gain: the gain image ``[row, col, ch]`` (``"reference"`` only).
+        warnings: messages for the user.
+    """
+
+    method: str
+    dark_offset: tuple[float, ...]
+    channels: tuple[str, ...]
+    shape: tuple[int, int]
+    degree: int | None = None
+    coefficients: np.ndarray | None = None
+    level: tuple[float, ...] = ()
+    residual_rms: tuple[float, ...] | None = None
+    reference_gain: np.ndarray | None = None
+    warnings: tuple[str, ...] = ()
+
+    def surface(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
+        """The fitted illumination surface over a crop, float32 ``[row, col, ch]``."""
+        r0, r1, _ = rows.indices(self.shape[0])
+        c0, c1, _ = cols.indices(self.shape[1])
+        if self.method != "polynomial":
+            raise InputError("surface() is only defined for the polynomial background")
+        y = _norm_coords(np.arange(r0, r1, dtype=np.float64), self.shape[0])
+        x = _norm_coords(np.arange(c0, c1, dtype=np.float64), self.shape[1])
+        terms = _terms(self.degree or 0)
+        out = np.zeros((r1 - r0, c1 - c0, len(self.channels)), np.float32)
+        ypow = [y**k for k in range(self.degree + 1)]
+        xpow = [x**k for k in range(self.degree + 1)]
+        for c in range(len(self.channels)):
+            for j in range(self.degree + 1):
+                # sum over i of a_ij x^i, times y^j
+                px = np.zeros_like(x)
+                for t, (i, jj) in enumerate(terms):
+                    if jj == j:
+                        px += self.coefficients[c, t] * xpow[i]
+                out[:, :, c] += np.outer(ypow[j], px).astype(np.float32)
+        return out
+
+    def gain(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
+        """The per-pixel gain over a crop (float32 ``[row, col, ch]``), 1 where uncorrected."""
+        r0, r1, _ = rows.indices(self.shape[0])
+        c0, c1, _ = cols.indices(self.shape[1])
+        nch = len(self.channels)
+        if self.method == "none":
+            return np.ones((r1 - r0, c1 - c0, nch), np.float32)
+        if self.method == "reference":
+            return self.reference_gain[r0:r1, c0:c1]
+        s = self.surface(slice(r0, r1), slice(c0, c1))
+        lv = np.asarray(self.level, np.float32)
+        return lv / np.maximum(s, 1e-6)
+
+    def correct(
+        self, intensity: np.ndarray, rows: slice = slice(None), cols: slice = slice(None)
+    ) -> np.ndarray:
+        """Corrected intensity of the crop ``intensity[rows, cols]`` (a new float32 array)."""
+        crop = intensity[rows, cols]
+        off = np.asarray(self.dark_offset, np.float32)
+        return (crop - off) * self.gain(rows, cols)
+
+    def describe(self) -> str:
+        """A sentence saying what was done."""
+        parts = []
+        if any(self.dark_offset):
+            parts.append(
+                "dark offset "
+                + ", ".join(f"{c}={v:.4g}" for c, v in zip(self.channels, self.dark_offset))
+                + " subtracted"
+            )
+        if self.method == "polynomial":
+            rms = (
+                ", residual "
+                + ", ".join(f"{c}={100 * v:.2g}%" for c, v in zip(self.channels, self.residual_rms))
+                if self.residual_rms
+                else ""
+            )
+            parts.append(
+                f"illumination flattened by a degree-{self.degree} polynomial surface fitted "
+                f"robustly to substrate pixels{rms}"
+            )
+        elif self.method == "reference":
+            parts.append("illumination flattened by dividing by a blank reference image")
+        else:
+            parts.append("no illumination correction")
+        return "; ".join(parts)
+
+    def to_dict(self) -> dict:
+        return {
+            "method": self.method,
+            "dark_offset": list(self.dark_offset),
+            "degree": self.degree,
+            "coefficients": None if self.coefficients is None else self.coefficients.tolist(),
+            "level": list(self.level),
+            "residual_rms": None if self.residual_rms is None else list(self.residual_rms),
+            "description": self.describe(),
+            "warnings": list(self.warnings),
+        }
+
+
+def _offsets(dark_offset, channels: tuple[str, ...]) -> tuple[float, ...]:
+    if isinstance(dark_offset, dict):
+        missing = [c for c in channels if c not in dark_offset]
+        if missing:
+            raise InputError(
+                f"dark offset lacks channel(s) {', '.join(missing)}; accepted: one value or one "
+                f"per channel ({', '.join(channels)})"
+            )
+        vals = tuple(float(dark_offset[c]) for c in channels)
+    else:
+        vals = (float(dark_offset),) * len(channels)
+    for v in vals:
+        if not (np.isfinite(v) and 0 <= v < 1):
+            raise InputError(
+                f"dark offset {v!r}; accepted: a number from 0 to below 1 (fraction of full scale)"
+            )
+    return vals
+
+
+def _robust_polyfit(
+    x: np.ndarray, y: np.ndarray, z: np.ndarray, degree: int, iterations: int = 6
+) -> tuple[np.ndarray, float]:
+    """Tukey-biweight IRLS fit of a 2-D polynomial; returns coefficients and relative rms."""
+    terms = _terms(degree)
+    a = np.stack([x**i * y**j for i, j in terms], axis=1)
+    w = np.ones_like(z)
+    coef = np.zeros(len(terms))
+    scale = 1.0
+    for _ in range(iterations):
+        aw = a * w[:, None]
+        coef = np.linalg.lstsq(aw.T @ a, aw.T @ z, rcond=None)[0]
+        r = z - a @ coef
+        scale = 1.4826 * np.median(np.abs(r[w > 0])) if np.any(w > 0) else 0.0
+        if scale <= 0:
+            break
+        u = r / (4.685 * scale)
+        w = np.where(np.abs(u) < 1, (1 - u**2) ** 2, 0.0)
+    level = float(np.mean(a @ coef))
+    return coef, (scale / level if level > 0 else float("nan"))
+
+
+def fit_background(
+    image: Micrograph,
+    *,
+    dark_offset: float | dict[str, float] = 0.0,
+    method: str = "polynomial",
+    degree: int = 2,
+    reference: Micrograph | None = None,
+    reference_smooth_px: float = 2.0,
+    substrate_mask: np.ndarray | None = None,
+    work: np.ndarray | None = None,
+    factor: int | None = None,
+) -> Background:
+    """Fit the background correction of ``image``.
+
+    Args:
+        image: the micrograph (linear intensity).
+        dark_offset: the camera's dark offset, one value or one per channel (fraction of full
+            scale), subtracted once; refused if the image already had one subtracted.
+        method: ``"polynomial"`` (a smooth surface fitted to substrate pixels), ``"reference"``
+            (divide by ``reference``, a blank image of the same chip) or ``"none"``.
+        degree: polynomial degree (0 to 4).
+        reference: the blank reference micrograph (method ``"reference"``).
+        reference_smooth_px: Gaussian smoothing of the reference (standard deviation, px) so that
+            its noise is not copied into the image.
+        substrate_mask: optional bool ``[row, col]`` at full resolution of known bare substrate;
+            by default substrate pixels are found as those close to a robust smooth surface.
+        work, factor: a block-averaged working copy of ``image.intensity`` and its factor (see
+            :mod:`flakebook.imaging._grid`), if the caller has one already.
+
+    Returns:
+        A :class:`Background`; apply it with :func:`apply_background` or crop by crop with
+        :meth:`Background.correct`.
+    """
+    if any(c.startswith("dark offset") for c in image.corrections):
+        raise InputError(
+            f"{image.path or 'image'}: the dark offset was already subtracted; accepted: "
+            "subtract it once (pass dark_offset=0 for an already corrected image)"
+        )
+    offs = _offsets(dark_offset, image.channels)
+    rows, cols = image.shape
+    nch = len(image.channels)
+    if method == "none":
+        lv = tuple(float(np.median(image.intensity[::8, ::8, c]) - offs[c]) for c in range(nch))
+        return Background("none", offs, image.channels, (rows, cols), level=lv)
+    if method == "reference":
+        if reference is None:
+            raise InputError("method 'reference' needs a blank reference image of the same chip")
+        if reference.shape != image.shape or reference.channels != image.channels:
+            raise InputError(
+                f"reference image {reference.path or ''} is {reference.shape} {reference.channels}; "
+                f"accepted: the same size and channels as the image {image.shape} {image.channels}"
+            )
+        ref = np.asarray(reference.intensity, np.float32) - np.asarray(offs, np.float32)
+        if reference_smooth_px > 0:
+            ref = cv2.GaussianBlur(ref, (0, 0), reference_smooth_px)
+            if ref.ndim == 2:
+                ref = ref[:, :, None]
+        lv = np.array([np.median(ref[::4, ::4, c]) for c in range(nch)], np.float32)
+        if np.any(lv <= 0) or np.mean(ref <= 0) > 0.01:
+            raise InputError(
+                f"reference image {reference.path or ''} is black after the dark offset; "
+                "accepted: a blank, evenly lit image of the bare chip"
+            )
+        gain = (lv / np.maximum(ref, lv * 1e-3)).astype(np.float32)
+        gain.setflags(write=False)
+        return Background(
+            "reference",
+            offs,
+            image.channels,
+            (rows, cols),
+            level=tuple(map(float, lv)),
+            reference_gain=gain,
+        )
+    if method != "polynomial":
+        raise InputError(f"background method {method!r}; accepted: polynomial, reference, none")
+    if not (0 <= int(degree) <= 4):
+        raise InputError(f"polynomial degree {degree!r}; accepted: 0 to 4")
+    degree = int(degree)
+    if work is None:
+        factor = _grid.choose_factor((rows, cols), 4e5)
+        work = _grid.downsample(image.intensity, factor)
+    f = factor or 1
+    wr, wc = work.shape[:2]
+    sat = _grid.block_max(image.saturated, f)[:wr, :wc]
+    # Subsample the working grid to at most ~60k points for the fit.
+    step = max(1, int(np.ceil(np.sqrt(wr * wc / 2e4))))
+    gy, gx = np.mgrid[0:wr:step, 0:wc:step]
+    yy = _norm_coords(_grid.to_full(gy.ravel(), f), rows)
+    xx = _norm_coords(_grid.to_full(gx.ravel(), f), cols)
+    # Fit to a lightly smoothed copy: its lower noise separates substrate from faint flakes.
+    smooth = cv2.GaussianBlur(np.ascontiguousarray(work, np.float32), (0, 0), 1.5)
+    if smooth.ndim == 2:
+        smooth = smooth[:, :, None]
+    vals = smooth[::step, ::step].reshape(-1, nch).astype(np.float64) - np.asarray(offs)
+    ok = ~sat[::step, ::step].ravel()
+    if substrate_mask is not None:
+        sm = _grid.block_max(~np.asarray(substrate_mask, bool), f)[:wr, :wc]
+        ok &= ~sm[::step, ::step].ravel()
+    warnings: list[str] = []
+    if np.count_nonzero(ok) < 3 * len(_terms(degree)):
+        raise InputError(
+            f"{image.path or 'image'}: too few unsaturated substrate pixels to fit the "
+            "illumination; accepted: an image showing bare substrate, or method 'none'"
+        )
+    # A first robust fit to all pixels (flakes are outliers), then refits to the pixels that
+    # agree with the surface in every channel.
+    coefs = np.zeros((nch, len(_terms(degree))))
+    rms = [0.0] * nch
+    use = ok.copy()
+    for _ in range(2):
+        keep = np.ones_like(use)
+        for c in range(nch):
+            coefs[c], rms[c] = _robust_polyfit(xx[use], yy[use], vals[use, c], degree)
+            a = np.stack([xx**i * yy**j for i, j in _terms(degree)], axis=1)
+            model = a @ coefs[c]
+            rel = vals[:, c] / np.maximum(model, 1e-9) - 1
+            tol = max(4 * rms[c], 0.005) if np.isfinite(rms[c]) else 0.05
+            keep &= np.abs(rel) < tol
+        use = ok & keep
+        if np.count_nonzero(use) < 3 * len(_terms(degree)):
+            use = ok
+            warnings.append("little bare substrate found: the illumination fit is uncertain")
+            break
+    bg = Background(
+        "polynomial",
+        offs,
+        image.channels,
+        (rows, cols),
+        degree=degree,
+        coefficients=coefs,
+        level=(0.0,) * nch,
+        residual_rms=tuple(float(r) for r in rms),
+        warnings=tuple(warnings),
+    )
+    # Normalise to the mean of the surface over the image (on a coarse grid).
+    gy2 = np.arange(0, rows, max(1, rows // 64))
+    gx2 = np.arange(0, cols, max(1, cols // 64))
+    s = _coarse_surface(bg, gy2, gx2)
+    level = tuple(float(np.mean(s[:, :, c])) for c in range(nch))
+    if any(v <= 0 for v in level):
+        raise InputError(
+            f"{image.path or 'image'}: the substrate is black after the dark offset; accepted: "
+            "an exposed image with a dark offset below the substrate level"
+        )
+    return replace(bg, level=level)
+
+
+def _coarse_surface(bg: Background, gy: np.ndarray, gx: np.ndarray) -> np.ndarray:
+    y = _norm_coords(gy.astype(np.float64), bg.shape[0])
+    x = _norm_coords(gx.astype(np.float64), bg.shape[1])
+    yy, xx = np.meshgrid(y, x, indexing="ij")
+    a = np.stack([xx**i * yy**j for i, j in _terms(bg.degree)], axis=-1)
+    return a @ bg.coefficients.T
+
+
+def apply_background(image: Micrograph, background: Background) -> Micrograph:
+    """A new :class:`Micrograph` with the dark offset subtracted and the illumination flattened.
+
+    The result records what was done in ``corrections``; the input is not changed.
+    """
+    if background.shape != image.shape or background.channels != image.channels:
+        raise InputError("the background was fitted to an image of another size or channels")
+    if any(background.dark_offset) and any(c.startswith("dark offset") for c in image.corrections):
+        raise InputError(
+            f"{image.path or 'image'}: the dark offset was already subtracted; accepted: "
+            "subtract it once"
+        )
+    out = background.correct(image.intensity)
+    out.setflags(write=False)
+    done = list(image.corrections)
+    if any(background.dark_offset):
+        done.append("dark offset " + ",".join(f"{v:.6g}" for v in background.dark_offset))
+    if background.method != "none":
+        done.append(f"flat field ({background.method})")
+    return replace(image, intensity=out, corrections=tuple(done))

@@ -1,0 +1,535 @@
+"""Holes in the chip: detection, sub-pixel radius, lattice, and coverage by flakes.
+
+Circular holes are found by the Hough transform on a downsampled image, then each edge is fitted
+at full resolution: intensity profiles along rays from the rough centre, the half-way crossing
+between the inside and outside levels on each ray, and a least-squares (geometric) circle
+through those edge points. The radius's standard error comes from the scatter of the edge points
+about the circle. The hole lattice (square or hexagonal: pitch and angle) is fitted to the
+centres and predicts holes hidden under a flake. Coverage of a hole by a flake outline is the
+exact area of the disk inside the polygon (circle-polygon intersection), whether it is fully
+covered, and the smallest margin from the hole's edge to the flake's edge.
+
+Coordinates: full-resolution pixels, origin at the top-left pixel's centre (INTERFACE.md).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from flakebook.errors import InputError, check_cancel
+from flakebook.imaging import _grid
+
+
+@dataclass(frozen=True)
+class Hole:
+    """One hole.
+
+    Attributes:
+        center_px: (x, y).
+        radius_px: radius in pixels.
+        radius_err_px, center_err_px: standard errors from the edge fit (predicted holes: the
+            lattice residual and the detected holes' radius spread).
+        um_per_px, um_per_px_err: the scale used for the micrometre values.
+        detected: True if seen in the image, False if predicted from the lattice.
+        n_edge_points: edge points used in the fit.
+    """
+
+    center_px: tuple[float, float]
+    radius_px: float
+    radius_err_px: float
+    center_err_px: float
+    um_per_px: float
+    um_per_px_err: float = 0.0
+    detected: bool = True
+    n_edge_points: int = 0
+
+    @property
+    def radius_um(self) -> float:
+        return self.radius_px * self.um_per_px
+
+    @property
+    def radius_err_um(self) -> float:
+        return math.hypot(self.radius_err_px * self.um_per_px, self.radius_px * self.um_per_px_err)
+
+    def to_dict(self) -> dict:
+        return {
+            "center_px": list(self.center_px),
+            "radius_px": self.radius_px,
+            "radius_um": self.radius_um,
+            "radius_err_um": self.radius_err_um,
+            "center_err_px": self.center_err_px,
+            "detected": self.detected,
+        }
+
+
+@dataclass(frozen=True)
+class Lattice:
+    """A hole lattice: positions origin + i a1 + j a2 (pixels)."""
+
+    kind: str  # "square" or "hexagonal"
+    pitch_px: float
+    pitch_err_px: float
+    angle_deg: float  # direction of a1, in [0, 90) (square) or [0, 60) (hexagonal)
+    origin_px: tuple[float, float]
+    a1_px: tuple[float, float]
+    a2_px: tuple[float, float]
+    residual_px: float
+    n_holes: int
+
+    def to_dict(self) -> dict:
+        return {
+            "kind": self.kind,
+            "pitch_px": self.pitch_px,
+            "pitch_err_px": self.pitch_err_px,
+            "angle_deg": self.angle_deg,
+            "origin_px": list(self.origin_px),
+            "residual_px": self.residual_px,
+            "n_holes": self.n_holes,
+        }
+
+
+@dataclass(frozen=True)
+class Coverage:
+    """How a flake outline covers a hole."""
+
+    covered_fraction: float
+    fully_covered: bool
+    margin_px: float  # hole edge to flake edge; negative when the flake edge crosses the hole
+    margin_um: float
+
+    def to_dict(self) -> dict:
+        return {
+            "covered_fraction": self.covered_fraction,
+            "fully_covered": self.fully_covered,
+            "margin_px": self.margin_px,
+            "margin_um": self.margin_um,
+        }
+
+
+# ---- sub-pixel edge fit ----------------------------------------------------------------------
+
+
+def fit_circle(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, np.ndarray]:
+    """Geometric least-squares circle through points; returns (cx, cy, r, residuals)."""
+    x = np.asarray(x, np.float64)
+    y = np.asarray(y, np.float64)
+    # Algebraic (Kasa) start, then Gauss-Newton on the geometric distances.
+    a = np.column_stack([x, y, np.ones_like(x)])
+    b = x**2 + y**2
+    sol = np.linalg.lstsq(a, b, rcond=None)[0]
+    cx, cy = sol[0] / 2, sol[1] / 2
+    r = math.sqrt(max(sol[2] + cx**2 + cy**2, 1e-12))
+    for _ in range(20):
+        dx, dy = x - cx, y - cy
+        d = np.hypot(dx, dy)
+        d = np.maximum(d, 1e-12)
+        res = d - r
+        j = np.column_stack([-dx / d, -dy / d, -np.ones_like(d)])
+        step = np.linalg.lstsq(j, -res, rcond=None)[0]
+        cx, cy, r = cx + step[0], cy + step[1], r + step[2]
+        if np.abs(step).max() < 1e-9:
+            break
+    res = np.hypot(x - cx, y - cy) - r
+    return float(cx), float(cy), float(r), res
+
+
+def refine_hole(
+    gray: np.ndarray,
+    cx: float,
+    cy: float,
+    r: float,
+    *,
+    offset: tuple[int, int] = (0, 0),
+    n_angles: int | None = None,
+    iterations: int = 3,
+) -> tuple[float, float, float, float, float, int] | None:
+    """Sub-pixel centre and radius of a hole from radial intensity profiles.
+
+    Args:
+        gray: 2-D float image (full resolution, or a crop whose top-left pixel is ``offset``
+            (x, y) in the full image).
+        cx, cy, r: rough centre and radius in full-image pixels.
+        n_angles: rays (default: about one per pixel of circumference, 24 to 360).
+
+    Returns:
+        (cx, cy, r, center_err, radius_err, n_points) or None when no clear edge is found.
+    """
+    g = np.ascontiguousarray(gray, np.float32)
+    ox, oy = offset
+    for _ in range(iterations):
+        k = n_angles or int(np.clip(2 * math.pi * r, 24, 360))
+        th = np.linspace(0, 2 * math.pi, k, endpoint=False)
+        step = 0.25
+        rr = np.arange(max(0.3 * r, 0.5), 1.7 * r + 2.0, step)
+        mx = (cx - ox + np.outer(np.cos(th), rr)).astype(np.float32)
+        my = (cy - oy + np.outer(np.sin(th), rr)).astype(np.float32)
+        prof = cv2.remap(
+            g, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan
+        )
+        inside = np.nanmedian(prof[:, rr < 0.6 * r]) if np.any(rr < 0.6 * r) else np.nan
+        outside = np.nanmedian(prof[:, rr > 1.4 * r + 1.0])
+        if not (np.isfinite(inside) and np.isfinite(outside)):
+            return None
+        mid = 0.5 * (inside + outside)
+        s = np.sign(prof - mid)
+        # Crossing nearest to the rough radius on each ray.
+        cross = (s[:, :-1] * s[:, 1:]) < 0
+        cross &= np.isfinite(prof[:, :-1]) & np.isfinite(prof[:, 1:])
+        if not cross.any():
+            return None
+        dist = np.where(cross, np.abs(rr[:-1] - r), np.inf)
+        j = np.argmin(dist, axis=1)
+        ok = np.isfinite(dist[np.arange(k), j])
+        p0 = prof[np.arange(k), j]
+        p1 = prof[np.arange(k), j + 1]
+        t = (mid - p0) / np.where(p1 != p0, p1 - p0, 1.0)
+        redge = rr[j] + step * np.clip(t, 0, 1)
+        ex = cx + np.cos(th) * redge
+        ey = cy + np.sin(th) * redge
+        ex, ey = ex[ok], ey[ok]
+        if len(ex) < 8:
+            return None
+        ncx, ncy, nr, res = fit_circle(ex, ey)
+        # Leave out rays that a flake edge or dust disturbs.
+        mad = 1.4826 * np.median(np.abs(res - np.median(res)))
+        good = np.abs(res) <= max(3 * mad, 0.15)
+        if np.count_nonzero(good) >= 8 and not good.all():
+            ncx, ncy, nr, res = fit_circle(ex[good], ey[good])
+        if not (np.isfinite(nr) and nr > 0.5 and math.hypot(ncx - cx, ncy - cy) < 0.5 * r + 2):
+            return None
+        cx, cy, r = ncx, ncy, nr
+    n = len(res)
+    sd = float(np.sqrt(np.sum(res**2) / max(n - 3, 1)))
+    return cx, cy, r, sd * math.sqrt(2.0 / n), sd / math.sqrt(n), n
+
+
+# ---- detection -----------------------------------------------------------------------------
+
+
+def detect_holes(
+    intensity: np.ndarray,
+    *,
+    um_per_px: float,
+    um_per_px_err: float = 0.0,
+    radius_um: float | None = None,
+    radius_range_um: tuple[float, float] | None = None,
+    work: np.ndarray | None = None,
+    factor: int | None = None,
+    min_step: float | None = None,
+    cancel=None,
+) -> tuple[Hole, ...]:
+    """Find circular holes and fit each one at full resolution.
+
+    Args:
+        intensity: float ``[row, col, ch]`` (or 2-D) linear intensity, full resolution.
+        um_per_px, um_per_px_err: the scale.
+        radius_um: the expected hole radius (searches 0.6x to 1.6x of it), or
+        radius_range_um: (min, max) radius; default: 4 working pixels to a quarter of the image.
+        work, factor: a block-averaged working copy and its factor.
+        min_step: smallest inside-outside intensity step accepted for a hole (default: 8 noise
+            standard deviations of the image).
+
+    Returns:
+        Holes sorted by y then x.
+    """
+    img = np.asarray(intensity)
+    if img.ndim == 2:
+        img = img[:, :, None]
+    rows, cols = img.shape[:2]
+    if radius_um is not None:
+        lo_um, hi_um = 0.6 * radius_um, 1.6 * radius_um
+    elif radius_range_um is not None:
+        lo_um, hi_um = radius_range_um
+    else:
+        lo_um, hi_um = None, None
+    if lo_um is not None and not (0 < lo_um < hi_um):
+        raise InputError(f"hole radius range {lo_um}-{hi_um} um; accepted: 0 < min < max")
+    # A factor that keeps the smallest expected radius at >= 6 working pixels.
+    if factor is None or work is None:
+        factor = _grid.choose_factor((rows, cols), 1.5e6)
+        work = None
+    f = factor
+    if lo_um is not None:
+        fmax = max(1, int(lo_um / um_per_px / 6.0))
+        if f > fmax:
+            f = fmax
+            work = None
+    if work is None:
+        work = _grid.downsample(img, f)
+    if work.ndim == 2:
+        work = work[:, :, None]
+    gray = work.mean(axis=2) if work.shape[2] > 1 else work[:, :, 0]
+    lo, hi = np.percentile(
+        gray[:: max(1, gray.shape[0] // 300), :: max(1, gray.shape[1] // 300)], [0.5, 99.5]
+    )
+    if hi - lo <= 0:
+        return ()
+    g8 = np.clip((gray - lo) * (255.0 / (hi - lo)), 0, 255).astype(np.uint8)
+    g8 = cv2.GaussianBlur(g8, (0, 0), 1.0)
+    if lo_um is not None:
+        rmin = max(3, int(math.floor(lo_um / um_per_px / f)))
+        rmax = max(rmin + 2, int(math.ceil(hi_um / um_per_px / f)))
+    else:
+        rmin, rmax = 4, max(8, min(gray.shape) // 4)
+    circles = cv2.HoughCircles(
+        g8,
+        cv2.HOUGH_GRADIENT_ALT,
+        dp=1.5,
+        minDist=max(2 * rmin, 4),
+        param1=80,
+        param2=0.75,
+        minRadius=rmin,
+        maxRadius=rmax,
+    )
+    if circles is None:
+        return ()
+    # Noise estimate of the full-resolution gray level (MAD of horizontal differences).
+    sample = img[:: max(1, rows // 256), :, :].mean(axis=2)
+    noise = 1.4826 * float(np.median(np.abs(np.diff(sample, axis=1)))) / math.sqrt(2)
+    need = min_step if min_step is not None else max(8 * noise, 1e-4)
+    holes: list[Hole] = []
+    for c in circles.reshape(-1, 3):
+        check_cancel(cancel)
+        cx, cy, r = (float(_grid.to_full(c[0], f)), float(_grid.to_full(c[1], f)), float(c[2] * f))
+        pad = int(1.7 * r + 6)
+        x0, y0 = max(0, int(cx - pad)), max(0, int(cy - pad))
+        x1, y1 = min(cols, int(cx + pad) + 1), min(rows, int(cy + pad) + 1)
+        if x1 - x0 < 4 or y1 - y0 < 4:
+            continue
+        crop = img[y0:y1, x0:x1]
+        g = crop.mean(axis=2) if crop.shape[2] > 1 else crop[:, :, 0]
+        fit = refine_hole(g, cx, cy, r, offset=(x0, y0))
+        if fit is None:
+            continue
+        fx, fy, fr, ce, re, n = fit
+        if not (0 <= fx < cols and 0 <= fy < rows):
+            continue
+        if not _clear_step(g, fx - x0, fy - y0, fr, need):
+            continue
+        if any(math.hypot(fx - h.center_px[0], fy - h.center_px[1]) < 0.5 * fr for h in holes):
+            continue
+        holes.append(Hole((fx, fy), fr, re, ce, um_per_px, um_per_px_err, True, n))
+    holes.sort(key=lambda h: (round(h.center_px[1]), h.center_px[0]))
+    return tuple(holes)
+
+
+def _clear_step(g: np.ndarray, cx: float, cy: float, r: float, need: float) -> bool:
+    yy, xx = np.ogrid[: g.shape[0], : g.shape[1]]
+    d = np.hypot(xx - cx, yy - cy)
+    inner = g[d < 0.6 * r]
+    ring = g[(d > r + 1.5) & (d < 1.5 * r + 1.5)]
+    if inner.size < 3 or ring.size < 3:
+        return False
+    return abs(float(np.median(inner)) - float(np.median(ring))) >= need
+
+
+# ---- lattice -----------------------------------------------------------------------------
+
+
+def fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
+    """Fit a square or hexagonal lattice to hole centres ([n, 2], pixels).
+
+    Returns None with fewer than 4 centres or when no lattice is apparent.
+    """
+    p = np.asarray(centers_px, np.float64).reshape(-1, 2)
+    n = len(p)
+    if n < 4:
+        return None
+    from scipy.spatial import cKDTree
+
+    tree = cKDTree(p)
+    d, _ = tree.query(p, k=2)
+    pitch0 = float(np.median(d[:, 1]))
+    if not pitch0 > 0:
+        return None
+    pairs = tree.query_pairs(1.25 * pitch0, output_type="ndarray")
+    if len(pairs) < 3:
+        return None
+    v = p[pairs[:, 1]] - p[pairs[:, 0]]
+    th = np.arctan2(v[:, 1], v[:, 0])
+    r4 = np.abs(np.mean(np.exp(4j * th)))
+    r6 = np.abs(np.mean(np.exp(6j * th)))
+    if kind == "auto":
+        kind = "square" if r4 >= r6 else "hexagonal"
+    if kind not in ("square", "hexagonal"):
+        raise InputError(f"lattice kind {kind!r}; accepted: auto, square, hexagonal")
+    k = 4 if kind == "square" else 6
+    ang = float(np.angle(np.mean(np.exp(1j * k * th))) / k) % (2 * math.pi / k)
+    second = ang + (math.pi / 2 if kind == "square" else math.pi / 3)
+    a1 = pitch0 * np.array([math.cos(ang), math.sin(ang)])
+    a2 = pitch0 * np.array([math.cos(second), math.sin(second)])
+    ref = p[np.argmin(((p - p.mean(0)) ** 2).sum(1))]
+    basis = np.column_stack([a1, a2])
+    for _ in range(3):
+        ij = np.linalg.solve(basis, (p - ref).T).T
+        idx = np.round(ij)
+        a = np.column_stack([np.ones(n), idx[:, 0], idx[:, 1]])
+        sol, *_ = np.linalg.lstsq(a, p, rcond=None)
+        ref, a1, a2 = sol[0], sol[1], sol[2]
+        basis = np.column_stack([a1, a2])
+    res = p - a @ sol
+    rms = float(np.sqrt(np.sum(res**2) / max(2 * n - 6, 1)))
+    if rms > 0.25 * pitch0:
+        return None
+    cov = np.linalg.pinv(a.T @ a) * rms**2
+    l1, l2 = float(np.hypot(*a1)), float(np.hypot(*a2))
+    pitch = 0.5 * (l1 + l2)
+    pitch_err = 0.5 * math.sqrt(cov[1, 1] + cov[2, 2])
+    angle = math.degrees(math.atan2(a1[1], a1[0])) % (360.0 / k)
+    return Lattice(
+        kind,
+        pitch,
+        pitch_err,
+        angle,
+        (float(ref[0]), float(ref[1])),
+        (float(a1[0]), float(a1[1])),
+        (float(a2[0]), float(a2[1])),
+        rms,
+        n,
+    )
+
+
+def lattice_sites(lattice: Lattice, shape: tuple[int, int], margin_px: float = 0.0) -> np.ndarray:
+    """Every lattice position inside the image (at least ``margin_px`` from its edges)."""
+    rows, cols = shape
+    o = np.array(lattice.origin_px)
+    basis = np.column_stack([lattice.a1_px, lattice.a2_px])
+    corners = np.array([[0, 0], [cols - 1, 0], [0, rows - 1], [cols - 1, rows - 1]], float)
+    ij = np.linalg.solve(basis, (corners - o).T).T
+    lo = np.floor(ij.min(0)) - 1
+    hi = np.ceil(ij.max(0)) + 1
+    ii, jj = np.meshgrid(np.arange(lo[0], hi[0] + 1), np.arange(lo[1], hi[1] + 1), indexing="ij")
+    pts = o + np.outer(ii.ravel(), lattice.a1_px) + np.outer(jj.ravel(), lattice.a2_px)
+    keep = (
+        (pts[:, 0] >= margin_px)
+        & (pts[:, 0] <= cols - 1 - margin_px)
+        & (pts[:, 1] >= margin_px)
+        & (pts[:, 1] <= rows - 1 - margin_px)
+    )
+    return pts[keep]
+
+
+def predict_hidden_holes(
+    holes: tuple[Hole, ...],
+    lattice: Lattice,
+    shape: tuple[int, int],
+    outlines_px: list[np.ndarray],
+) -> tuple[Hole, ...]:
+    """Lattice sites with no detected hole whose disk lies under one of the outlines."""
+    det = [h for h in holes if h.detected]
+    if not det or not outlines_px:
+        return ()
+    radii = np.array([h.radius_px for h in det])
+    r = float(np.median(radii))
+    r_err = float(1.4826 * np.median(np.abs(radii - r))) if len(radii) > 2 else float(radii.std())
+    sites = lattice_sites(lattice, shape, margin_px=r)
+    dc = np.array([h.center_px for h in det])
+    out = []
+    for s in sites:
+        if np.min(np.hypot(*(dc - s).T)) < 0.5 * lattice.pitch_px:
+            continue
+        for poly in outlines_px:
+            if len(poly) >= 3 and signed_distance(poly, (s[0], s[1])) > -r:
+                out.append(
+                    Hole(
+                        (float(s[0]), float(s[1])),
+                        r,
+                        r_err,
+                        lattice.residual_px,
+                        det[0].um_per_px,
+                        det[0].um_per_px_err,
+                        False,
+                        0,
+                    )
+                )
+                break
+    return tuple(out)
+
+
+# ---- coverage ------------------------------------------------------------------------------
+
+
+def signed_distance(polygon_px: np.ndarray, point: tuple[float, float]) -> float:
+    """Distance from a point to a polygon's boundary, positive inside, negative outside."""
+    p = np.asarray(polygon_px, np.float64).reshape(-1, 2)
+    a = p
+    b = np.roll(p, -1, axis=0)
+    q = np.asarray(point, np.float64)
+    d = b - a
+    L2 = np.maximum((d**2).sum(1), 1e-300)
+    t = np.clip(((q - a) * d).sum(1) / L2, 0, 1)
+    near = a + t[:, None] * d
+    dist = float(np.sqrt(((near - q) ** 2).sum(1)).min())
+    # Even-odd rule.
+    y = q[1]
+    cond = (a[:, 1] > y) != (b[:, 1] > y)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        xc = a[:, 0] + (y - a[:, 1]) * d[:, 0] / d[:, 1]
+    inside = bool(np.count_nonzero(cond & (xc > q[0])) % 2)
+    return dist if inside else -dist
+
+
+def circle_polygon_area(
+    polygon_px: np.ndarray, center: tuple[float, float], radius: float
+) -> float:
+    """Exact area of the intersection of a disk with a simple polygon (either orientation)."""
+    p = np.asarray(polygon_px, np.float64).reshape(-1, 2) - np.asarray(center, np.float64)
+    if len(p) < 3 or radius <= 0:
+        return 0.0
+    a = p
+    b = np.roll(p, -1, axis=0)
+    d = b - a
+    r2 = radius * radius
+    # Intersections of each edge a + t d with the circle.
+    qa = (d**2).sum(1)
+    qb = 2 * (a * d).sum(1)
+    qc = (a**2).sum(1) - r2
+    disc = qb**2 - 4 * qa * qc
+    sq = np.sqrt(np.maximum(disc, 0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t1 = np.where(disc > 0, (-qb - sq) / (2 * qa), 1.0)
+        t2 = np.where(disc > 0, (-qb + sq) / (2 * qa), 1.0)
+    t1 = np.clip(np.nan_to_num(t1, nan=1.0), 0, 1)
+    t2 = np.clip(np.nan_to_num(t2, nan=1.0), 0, 1)
+    ts = [np.zeros_like(t1), t1, t2, np.ones_like(t1)]
+    total = 0.0
+    for k in range(3):
+        ta, tb = ts[k], ts[k + 1]
+        pa = a + ta[:, None] * d
+        pb = a + tb[:, None] * d
+        mid = a + (0.5 * (ta + tb))[:, None] * d
+        inside = (mid**2).sum(1) <= r2
+        cross = pa[:, 0] * pb[:, 1] - pa[:, 1] * pb[:, 0]
+        dot = (pa * pb).sum(1)
+        tri = 0.5 * cross
+        sector = 0.5 * r2 * np.arctan2(cross, dot)
+        total += float(np.sum(np.where(tb > ta, np.where(inside, tri, sector), 0.0)))
+    return abs(total)
+
+
+def hole_coverage(
+    outline_px: np.ndarray, hole: Hole | tuple[tuple[float, float], float], um_per_px: float
+) -> Coverage:
+    """Covered fraction, full coverage and margin of a hole under a flake outline.
+
+    The margin is the distance from the hole's edge to the nearest point of the flake's edge
+    (pixels and um): positive when the hole lies wholly inside the outline, negative when the
+    flake edge crosses the hole (a straight edge through the centre gives -radius and covers
+    exactly half).
+    """
+    if isinstance(hole, Hole):
+        center, r = hole.center_px, hole.radius_px
+    else:
+        center, r = hole
+    poly = np.asarray(outline_px, np.float64).reshape(-1, 2)
+    if len(poly) < 3:
+        return Coverage(0.0, False, float("nan"), float("nan"))
+    frac = circle_polygon_area(poly, center, r) / (math.pi * r * r)
+    frac = float(min(max(frac, 0.0), 1.0))
+    margin = signed_distance(poly, center) - r
+    full = bool(margin >= 0 and frac > 1 - 1e-9)
+    return Coverage(frac, full, margin, margin * um_per_px)

@@ -1,0 +1,637 @@
+"""Segmentation: bare substrate, flakes, terraces, outlines and per-region contrast.
+
+Optical contrast per channel is C = 1 - I / I_substrate (DESIGN.md: positive when the flake is
+darker than the bare substrate of the same image). The bare substrate is the image's dominant
+colour. Flakes are connected regions whose (lightly smoothed) contrast stands out of the
+substrate's noise, kept when larger than a minimum area in um^2. Within a flake, terraces of
+uniform thickness are found by mean-shift clustering of the contrast vectors, then connected
+components. Detection runs on a block-averaged working copy; each region's contrast is measured
+at full resolution from its interior pixels (edges left out), as a robust mean with a standard
+error that allows for spatially correlated pixel noise: the effective number of independent
+pixels is n / A_c, with A_c the integral of the noise autocorrelation measured on bare substrate.
+
+Outlines are polygons in full-resolution pixel coordinates with the origin at the top-left
+pixel's centre, x to the right, y down (INTERFACE.md).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from flakebook.errors import InputError, check_cancel
+from flakebook.imaging import _grid
+from flakebook.imaging.background import Background, fit_background
+from flakebook.imaging.io import Micrograph
+
+
+@dataclass(frozen=True, eq=False)
+class Region:
+    """A terrace: a connected region of uniform contrast within a flake.
+
+    Coordinates are full-resolution pixels (INTERFACE.md convention); ``bbox_px`` is
+    ``(x_min, y_min, x_max, y_max)`` inclusive.
+    """
+
+    id: int
+    flake_id: int
+    area_px: int
+    area_um2: float
+    bbox_px: tuple[int, int, int, int]
+    centroid_px: tuple[float, float]
+    outline_px: np.ndarray
+    contrast: dict[str, float]
+    contrast_err: dict[str, float]
+    contrast_sd: dict[str, float]
+    n_pixels: int
+    n_effective: float
+
+    def to_dict(self) -> dict:
+        return {
+            "id": self.id,
+            "flake_id": self.flake_id,
+            "centroid_px": list(self.centroid_px),
+            "area_um2": self.area_um2,
+            "area_px": self.area_px,
+            "bbox_px": list(self.bbox_px),
+            "outline_px": self.outline_px.tolist(),
+            "contrast": dict(self.contrast),
+            "contrast_err": dict(self.contrast_err),
+            "n_pixels": self.n_pixels,
+            "n_effective": self.n_effective,
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class Flake:
+    """A connected non-substrate region (one or more terraces)."""
+
+    id: int
+    area_px: int
+    area_um2: float
+    bbox_px: tuple[int, int, int, int]
+    centroid_px: tuple[float, float]
+    outline_px: np.ndarray
+    region_ids: tuple[int, ...]
+
+    def to_dict(self) -> dict:
+        return {
+            "id": self.id,
+            "area_um2": self.area_um2,
+            "area_px": self.area_px,
+            "bbox_px": list(self.bbox_px),
+            "centroid_px": list(self.centroid_px),
+            "outline_px": self.outline_px.tolist(),
+            "region_ids": list(self.region_ids),
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class Segmentation:
+    """The result of :func:`segment`.
+
+    Attributes:
+        channels: channel names.
+        substrate: the bare substrate's level per channel (after background correction).
+        substrate_fraction: fraction of the image that is bare substrate.
+        noise: per-pixel contrast noise (standard deviation) on bare substrate per channel, full
+            resolution.
+        correlation_area_px: integrated noise autocorrelation per channel (1 for white noise).
+        flakes, regions: what was found; region ids are 1-based, flake ids too.
+        labels: int32 working-resolution map of region ids (0: none).
+        flake_labels: int32 working-resolution map of flake ids (0: substrate).
+        factor: the working copy's downsampling factor.
+        um_per_px: the scale used for areas.
+        warnings: messages for the user.
+    """
+
+    channels: tuple[str, ...]
+    substrate: dict[str, float]
+    substrate_fraction: float
+    noise: dict[str, float]
+    correlation_area_px: dict[str, float]
+    flakes: tuple[Flake, ...]
+    regions: tuple[Region, ...]
+    labels: np.ndarray
+    flake_labels: np.ndarray
+    factor: int
+    um_per_px: float
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        return {
+            "substrate": dict(self.substrate),
+            "substrate_fraction": self.substrate_fraction,
+            "noise": dict(self.noise),
+            "correlation_area_px": dict(self.correlation_area_px),
+            "flakes": [f.to_dict() for f in self.flakes],
+            "regions": [r.to_dict() for r in self.regions],
+            "warnings": list(self.warnings),
+        }
+
+
+# ---- substrate ---------------------------------------------------------------------------------
+
+
+def substrate_colour(
+    work: np.ndarray, valid: np.ndarray | None = None, bins: int = 48
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The dominant colour of an image and the pixels that have it.
+
+    Args:
+        work: float ``[row, col, ch]`` intensity (background-corrected).
+        valid: bool ``[row, col]`` of pixels that may count (e.g. unsaturated).
+        bins: histogram bins per channel over the robust range of the image.
+
+    Returns:
+        (level per channel, robust standard deviation per channel, bool mask of substrate pixels).
+    """
+    rows, cols, nch = work.shape
+    step = max(1, int(np.sqrt(rows * cols / 4e5)))
+    sample = work[::step, ::step].reshape(-1, nch)
+    if valid is not None:
+        sample = sample[valid[::step, ::step].ravel()]
+    if sample.shape[0] == 0:
+        raise InputError("no usable (unsaturated) pixels in the image")
+    lo = np.percentile(sample, 0.5, axis=0)
+    hi = np.percentile(sample, 99.5, axis=0)
+    width = np.maximum(hi - lo, 1e-6) / bins
+    q = np.clip(((sample - lo) / width).astype(np.int64), 0, bins - 1)
+    key = np.zeros(q.shape[0], np.int64)
+    for c in range(nch):
+        key = key * bins + q[:, c]
+    counts = np.bincount(key, minlength=bins**nch)
+    peak = int(np.argmax(counts))
+    idx = []
+    for _c in range(nch):
+        idx.append(peak % bins)
+        peak //= bins
+    centre = lo + (np.array(idx[::-1]) + 0.5) * width
+    # Refine: median and MAD of the pixels near the peak, twice.
+    tol = 1.5 * width
+    level = centre
+    sd = width
+    for _ in range(3):
+        near = np.all(np.abs(sample - level) <= tol, axis=1)
+        if np.count_nonzero(near) < 10:
+            break
+        level = np.median(sample[near], axis=0)
+        sd = 1.4826 * np.median(np.abs(sample[near] - level), axis=0)
+        sd = np.maximum(sd, 1e-6 * np.maximum(np.abs(level), 1e-6))
+        tol = np.maximum(4.0 * sd, 0.5 * width)
+    mask = np.all(np.abs(work - level.astype(np.float32)) <= tol.astype(np.float32), axis=2)
+    if valid is not None:
+        mask &= valid
+    return level, sd, mask
+
+
+def contrast_image(intensity: np.ndarray, substrate: np.ndarray | dict) -> np.ndarray:
+    """Per-channel optical contrast C = 1 - I / I_substrate (float32 ``[row, col, ch]``).
+
+    Positive where the pixel is darker than the bare substrate (DESIGN.md).
+    """
+    s = np.asarray(list(substrate.values()) if isinstance(substrate, dict) else substrate)
+    return (1.0 - intensity / s.astype(np.float32)).astype(np.float32, copy=False)
+
+
+# ---- noise correlation ---------------------------------------------------------------------------
+
+
+def correlation_area(patches: list[np.ndarray], max_lag: int = 8) -> float:
+    """Integrated autocorrelation of noise patches (each 2-D, mean removed inside).
+
+    The variance of a mean over a large region is sigma^2 A_c / n; white noise gives A_c = 1.
+    """
+    if not patches:
+        return 1.0
+    acc = None
+    norm = None
+    for p in patches:
+        p = p.astype(np.float64) - p.mean()
+        h, w = p.shape
+        fh, fw = cv2.getOptimalDFTSize(2 * h), cv2.getOptimalDFTSize(2 * w)
+        f = np.fft.rfft2(p, (fh, fw))
+        ac = np.fft.irfft2(f * np.conj(f), (fh, fw))
+        ones = np.fft.rfft2(np.ones_like(p), (fh, fw))
+        cnt = np.fft.irfft2(ones * np.conj(ones), (fh, fw))
+        lags = np.r_[0 : max_lag + 1, -max_lag:0]
+        sub = ac[np.ix_(lags % fh, lags % fw)]
+        csub = np.maximum(np.round(cnt[np.ix_(lags % fh, lags % fw)]), 1)
+        acc = sub if acc is None else acc + sub
+        norm = csub if norm is None else norm + csub
+    cov = acc / norm
+    if cov[0, 0] <= 0:
+        return 1.0
+    rho = cov / cov[0, 0]
+    return float(np.clip(rho.sum(), 1.0, (2 * max_lag + 1) ** 2))
+
+
+def _substrate_patches(
+    sub_mask_work: np.ndarray, f: int, size: int, want: int = 8
+) -> list[tuple[int, int]]:
+    """Top-left full-resolution corners of size x size patches lying wholly on substrate."""
+    bw = max(1, int(np.ceil(size / f)))
+    rows, cols = sub_mask_work.shape
+    if rows < bw or cols < bw:
+        return []
+    m = sub_mask_work.astype(np.uint8)
+    er = cv2.erode(m, np.ones((bw + 2, bw + 2), np.uint8), anchor=(0, 0), borderValue=0)
+    ys, xs = np.nonzero(er[: rows - bw - 1, : cols - bw - 1] if rows > bw + 1 else er)
+    if len(ys) == 0:
+        return []
+    pick = np.linspace(0, len(ys) - 1, min(want, len(ys))).astype(int)
+    return [(int(ys[i] * f + f), int(xs[i] * f + f)) for i in pick]
+
+
+# ---- terraces by mean shift ------------------------------------------------------------------
+
+
+def _mean_shift_modes(points: np.ndarray, weights: np.ndarray, iters: int = 40) -> np.ndarray:
+    """Flat-kernel (radius 1) mean shift of weighted points; returns (mode per point, modes)."""
+    pts = points.astype(np.float64)
+    p2 = (pts**2).sum(1)
+    wp = weights[:, None] * pts
+    x = pts.copy()
+    active = np.ones(len(x), bool)
+    for _ in range(iters):
+        xa = x[active]
+        d2 = (xa**2).sum(1)[:, None] + p2[None, :] - 2.0 * xa @ pts.T
+        k = (d2 <= 1.0).astype(np.float64)
+        new = (k @ wp) / np.maximum(k @ weights, 1e-12)[:, None]
+        moved = np.abs(new - xa).max(axis=1)
+        x[active] = new
+        idx = np.nonzero(active)[0]
+        active[idx[moved < 1e-3]] = False
+        if not active.any():
+            break
+    # Merge converged positions closer than half the bandwidth, densest first.
+    d2 = (x**2).sum(1)[:, None] + p2[None, :] - 2.0 * x @ pts.T
+    dens = (d2 <= 1.0) @ weights
+    order = np.argsort(-dens)
+    centres = np.zeros((0, pts.shape[1]))
+    label = np.empty(len(x), int)
+    for i in order:
+        if len(centres):
+            dd = ((centres - x[i]) ** 2).sum(1)
+            j = int(np.argmin(dd))
+            if dd[j] <= 0.25:
+                label[i] = j
+                continue
+        centres = np.vstack([centres, x[i]])
+        label[i] = len(centres) - 1
+    return label, centres
+
+
+def _terrace_labels(
+    cvec: np.ndarray, bandwidth: np.ndarray, max_points: int = 1200
+) -> tuple[np.ndarray, np.ndarray]:
+    """Cluster contrast vectors ([n, ch]) by mean shift; returns (label per vector, centres)."""
+    z = cvec / bandwidth
+    q = 2.5
+    for _ in range(6):
+        key = np.floor(z * q).astype(np.int64)
+        uniq, inv, counts = np.unique(key, axis=0, return_inverse=True, return_counts=True)
+        if len(uniq) <= max_points:
+            break
+        q /= 1.6
+    inv = inv.ravel()
+    pts = np.zeros((len(uniq), z.shape[1]))
+    np.add.at(pts, inv, z)
+    pts /= counts[:, None]
+    lab, centres = _mean_shift_modes(pts, counts.astype(np.float64))
+    return lab[inv], centres * bandwidth
+
+
+# ---- geometry helpers -------------------------------------------------------------------------
+
+
+def _outline(mask: np.ndarray, x0: int, y0: int, f: int) -> np.ndarray:
+    """Largest external contour of a working-resolution crop mask, in full-res pixel coords."""
+    m = np.pad(mask.astype(np.uint8), 1)
+    contours, _ = cv2.findContours(m, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
+    if not contours:
+        return np.zeros((0, 2))
+    c = max(contours, key=cv2.contourArea).reshape(-1, 2).astype(np.float64)
+    c -= 1
+    c[:, 0] += x0
+    c[:, 1] += y0
+    return np.column_stack([_grid.to_full(c[:, 0], f), _grid.to_full(c[:, 1], f)])
+
+
+def _full_crop_mask(mask_work: np.ndarray, f: int) -> np.ndarray:
+    if f == 1:
+        return mask_work
+    return np.repeat(np.repeat(mask_work, f, axis=0), f, axis=1)
+
+
+def _robust_mean(v: np.ndarray) -> tuple[float, float]:
+    """Mean of values within 3 robust sigmas of the median, and the robust sigma."""
+    med = float(np.median(v))
+    sd = 1.4826 * float(np.median(np.abs(v - med)))
+    if sd > 0:
+        v = v[np.abs(v - med) <= 3 * sd]
+    m = float(v.mean()) if v.size else med
+    return m, sd if sd > 0 else float(v.std())
+
+
+# ---- segmentation ----------------------------------------------------------------------------
+
+
+def segment(
+    image: Micrograph,
+    *,
+    um_per_px: float,
+    min_area_um2: float = 20.0,
+    background: Background | None = None,
+    exclude: np.ndarray | None = None,
+    work: np.ndarray | None = None,
+    factor: int | None = None,
+    threshold_sigma: float = 6.0,
+    min_contrast: float = 0.01,
+    progress=None,
+    cancel=None,
+) -> Segmentation:
+    """Find the bare substrate, the flakes and their terraces, and measure each terrace.
+
+    Args:
+        image: the micrograph (linear intensity).
+        um_per_px: the image scale.
+        min_area_um2: flakes and terraces smaller than this are left out.
+        background: the background correction (default: a degree-2 polynomial fitted here).
+        exclude: optional bool working-resolution mask of pixels that are not flake (bare holes).
+        work, factor: a working copy of the raw intensity and its factor, if the caller has one.
+        threshold_sigma: a pixel is non-substrate where its smoothed contrast exceeds this many
+            noise standard deviations in some channel (and ``min_contrast``).
+        min_contrast: the smallest contrast magnitude counted as a flake.
+        progress, cancel: INTERFACE.md's progress callback and cancel event.
+
+    Returns:
+        A :class:`Segmentation`.
+    """
+    if not (np.isfinite(um_per_px) and um_per_px > 0):
+        raise InputError(f"scale {um_per_px!r} um per pixel; accepted: a positive number")
+    if not (np.isfinite(min_area_um2) and min_area_um2 >= 0):
+        raise InputError(f"minimum area {min_area_um2!r} um^2; accepted: zero or more")
+    rows, cols = image.shape
+    warnings: list[str] = []
+    if work is None:
+        factor = _grid.choose_factor((rows, cols))
+        work = _grid.downsample(image.intensity, factor)
+    f = int(factor or 1)
+    if background is None:
+        background = fit_background(image, work=work, factor=f)
+        warnings.extend(background.warnings)
+    wr, wc = work.shape[:2]
+    check_cancel(cancel)
+    # Working copy corrected for dark offset and illumination: gain evaluated at the working
+    # pixel centres (an exact evaluation of the smooth surface on the coarse grid).
+    wgain = _work_gain(background, wr, wc, f)
+    wcorr = (work - np.asarray(background.dark_offset, np.float32)) * wgain
+    valid = ~_grid.block_max(image.saturated, f)[:wr, :wc]
+    if not np.any(valid):
+        raise InputError(
+            f"{image.path or 'image'}: every pixel is saturated; accepted: an image exposed below "
+            "the camera's full scale"
+        )
+    level, sd_work, sub_mask = substrate_colour(wcorr, valid)
+    if np.any(level <= 0):
+        raise InputError(
+            f"{image.path or 'image'}: the substrate is black (level {level.min():.3g}); "
+            "accepted: an exposed image of a chip with bare substrate in view"
+        )
+    frac = float(np.count_nonzero(sub_mask)) / float(np.count_nonzero(valid))
+    if frac < 0.05:
+        raise InputError(
+            f"{image.path or 'image'}: no bare substrate visible (the dominant colour covers "
+            f"{100 * frac:.1f}% of the image); accepted: an image with bare substrate in view"
+        )
+    if frac < 0.2:
+        warnings.append(
+            f"little bare substrate: the dominant colour covers only {100 * frac:.0f}% of the "
+            "image, so the reference for contrast may be wrong"
+        )
+    if progress:
+        progress(0.2, "substrate")
+
+    # Smoothed contrast on the working grid; its noise on the substrate sets the threshold.
+    cw = contrast_image(wcorr, level)
+    cs = cv2.GaussianBlur(cw, (0, 0), 1.0)
+    if cs.ndim == 2:
+        cs = cs[:, :, None]
+    sub_vals = cs[sub_mask]
+    sd_s = 1.4826 * np.median(np.abs(sub_vals - np.median(sub_vals, axis=0)), axis=0)
+    quant = 1.0 / (255.0 if image.bit_depth == 8 else 65535.0) / np.maximum(level, 1e-6)
+    sd_s = np.maximum(sd_s, quant)
+    if np.all(sd_s <= quant * 1.0001) and float(np.ptp(cw[valid])) < 1e-6:
+        warnings.append("the image is uniform: no flakes and no noise to measure")
+    thr = np.maximum(threshold_sigma * sd_s, min_contrast).astype(np.float32)
+    fg = np.any(np.abs(cs) > thr, axis=2) & valid
+    if exclude is not None:
+        fg &= ~exclude[:wr, :wc]
+    fg = cv2.morphologyEx(
+        fg.astype(np.uint8), cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (3, 3))
+    )
+    px_area_work = (um_per_px * f) ** 2
+    min_px_work = max(4, int(np.ceil(min_area_um2 / px_area_work)))
+    nlab, flab, stats, _ = cv2.connectedComponentsWithStats(fg, connectivity=8)
+    check_cancel(cancel)
+    if progress:
+        progress(0.4, "flakes")
+
+    # Noise at full resolution and its correlation, from patches of bare substrate.
+    psize = 48
+    corners = _substrate_patches(sub_mask, f, psize)
+    noise = {}
+    corr = {}
+    if corners:
+        pcs = []
+        for y0, x0 in corners:
+            crop = background.correct(image.intensity, slice(y0, y0 + psize), slice(x0, x0 + psize))
+            pcs.append(contrast_image(crop, level))
+        for c, name in enumerate(image.channels):
+            ps = [p[:, :, c] for p in pcs]
+            allv = np.concatenate([p.ravel() for p in ps])
+            noise[name] = float(1.4826 * np.median(np.abs(allv - np.median(allv))))
+            corr[name] = correlation_area(ps)
+    else:
+        for c, name in enumerate(image.channels):
+            noise[name] = float(sd_work[c] / level[c] * f)
+            corr[name] = 1.0
+        warnings.append("no bare-substrate patch for the noise correlation: taken as white noise")
+    # Relative uncertainty of the substrate level itself.
+    n_sub = max(1.0, float(np.count_nonzero(sub_mask)) * f * f)
+    sub_rel = {name: noise[name] * np.sqrt(corr[name] / n_sub) for name in image.channels}
+
+    bw = np.maximum(3.0 * sd_s, 0.004)
+    flakes: list[Flake] = []
+    regions: list[Region] = []
+    labels = np.zeros((wr, wc), np.int32)
+    flake_labels = np.zeros((wr, wc), np.int32)
+    kernel = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (3, 3))
+    order = [i for i in range(1, nlab) if stats[i, cv2.CC_STAT_AREA] >= min_px_work]
+    order.sort(key=lambda i: -stats[i, cv2.CC_STAT_AREA])
+    for k, comp in enumerate(order):
+        check_cancel(cancel)
+        x0, y0, w, h = (int(v) for v in stats[comp, :4])
+        sl = (slice(y0, y0 + h), slice(x0, x0 + w))
+        fmask = flab[sl] == comp
+        fid = len(flakes) + 1
+        flake_labels[sl][fmask] = fid
+        vecs = cs[sl][fmask]
+        lab, centres = _terrace_labels(vecs, bw)
+        tl = np.zeros((h, w), np.int32)
+        tl[fmask] = lab + 1
+        rids = []
+        for t in range(len(centres)):
+            tm = (tl == t + 1).astype(np.uint8)
+            if np.count_nonzero(tm) < min_px_work:
+                continue
+            tm = cv2.morphologyEx(tm, cv2.MORPH_OPEN, kernel)
+            n2, lab2, st2, _ = cv2.connectedComponentsWithStats(tm, connectivity=8)
+            for j in range(1, n2):
+                if st2[j, cv2.CC_STAT_AREA] < min_px_work:
+                    continue
+                rx, ry, rw, rh = (int(v) for v in st2[j, :4])
+                rmask = lab2[ry : ry + rh, rx : rx + rw] == j
+                rid = len(regions) + 1
+                labels[y0 + ry : y0 + ry + rh, x0 + rx : x0 + rx + rw][rmask] = rid
+                reg = _measure_region(
+                    image,
+                    background,
+                    level,
+                    rmask,
+                    x0 + rx,
+                    y0 + ry,
+                    f,
+                    rid,
+                    fid,
+                    um_per_px,
+                    noise,
+                    corr,
+                    sub_rel,
+                )
+                if reg is not None:
+                    regions.append(reg)
+                    rids.append(rid)
+        full = _full_crop_mask(fmask, f)
+        yy, xx = np.nonzero(full)
+        area_px = int(len(yy))
+        flakes.append(
+            Flake(
+                id=fid,
+                area_px=area_px,
+                area_um2=float(area_px * um_per_px**2),
+                bbox_px=(x0 * f, y0 * f, (x0 + w) * f - 1, (y0 + h) * f - 1),
+                centroid_px=(float(xx.mean() + x0 * f), float(yy.mean() + y0 * f)),
+                outline_px=_outline(fmask, x0, y0, f),
+                region_ids=tuple(rids),
+            )
+        )
+        if progress:
+            progress(0.4 + 0.6 * (k + 1) / len(order), "terraces")
+    for a in (labels, flake_labels):
+        a.setflags(write=False)
+    return Segmentation(
+        channels=image.channels,
+        substrate={n: float(v) for n, v in zip(image.channels, level)},
+        substrate_fraction=frac,
+        noise=noise,
+        correlation_area_px=corr,
+        flakes=tuple(flakes),
+        regions=tuple(regions),
+        labels=labels,
+        flake_labels=flake_labels,
+        factor=f,
+        um_per_px=float(um_per_px),
+        warnings=tuple(warnings),
+    )
+
+
+def _work_gain(bg: Background, wr: int, wc: int, f: int) -> np.ndarray:
+    """The background gain at working-pixel centres."""
+    nch = len(bg.channels)
+    if bg.method == "none":
+        return np.ones((wr, wc, nch), np.float32)
+    if bg.method == "reference":
+        g = _grid.downsample(bg.reference_gain, f)[:wr, :wc]
+        return g if g.ndim == 3 else g[:, :, None]
+    from flakebook.imaging.background import _norm_coords, _terms
+
+    y = _norm_coords(_grid.to_full(np.arange(wr, dtype=np.float64), f), bg.shape[0])
+    x = _norm_coords(_grid.to_full(np.arange(wc, dtype=np.float64), f), bg.shape[1])
+    out = np.zeros((wr, wc, nch), np.float32)
+    for c in range(nch):
+        s = np.zeros((wr, wc))
+        for t, (i, j) in enumerate(_terms(bg.degree)):
+            s += bg.coefficients[c, t] * np.outer(y**j, x**i)
+        out[:, :, c] = bg.level[c] / np.maximum(s, 1e-6)
+    return out
+
+
+def _measure_region(
+    image: Micrograph,
+    bg: Background,
+    level: np.ndarray,
+    rmask: np.ndarray,
+    rx: int,
+    ry: int,
+    f: int,
+    rid: int,
+    fid: int,
+    um_per_px: float,
+    noise: dict,
+    corr: dict,
+    sub_rel: dict,
+) -> Region | None:
+    """Contrast, area, box, centroid and outline of one region at full resolution."""
+    full = _full_crop_mask(rmask, f)
+    fy0, fx0 = ry * f, rx * f
+    h, w = full.shape
+    h = min(h, image.height - fy0)
+    w = min(w, image.width - fx0)
+    full = full[:h, :w]
+    yy, xx = np.nonzero(full)
+    if len(yy) == 0:
+        return None
+    # Interior: leave out pixels within max(2, f) px of the region's edge (blur, mixed pixels).
+    e = max(2, f)
+    pad = np.pad(full.astype(np.uint8), e)
+    inner = cv2.erode(pad, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * e + 1, 2 * e + 1)))
+    inner = inner[e:-e, e:-e].astype(bool)
+    if np.count_nonzero(inner) < 16:
+        inner = full.copy()
+    inner &= ~image.saturated[fy0 : fy0 + h, fx0 : fx0 + w]
+    if np.count_nonzero(inner) < 4:
+        return None
+    crop = bg.correct(image.intensity, slice(fy0, fy0 + h), slice(fx0, fx0 + w))
+    cvals = contrast_image(crop[inner], level)
+    n = int(cvals.shape[0])
+    contrast, err, sdd = {}, {}, {}
+    neff = n
+    for c, name in enumerate(image.channels):
+        m, sd = _robust_mean(cvals[:, c])
+        neff = max(1.0, n / corr[name])
+        contrast[name] = m
+        sdd[name] = sd
+        err[name] = float(np.hypot(sd / np.sqrt(neff), (1 - m) * sub_rel[name]))
+    return Region(
+        id=rid,
+        flake_id=fid,
+        area_px=int(len(yy)),
+        area_um2=float(len(yy) * um_per_px**2),
+        bbox_px=(
+            fx0 + int(xx.min()),
+            fy0 + int(yy.min()),
+            fx0 + int(xx.max()),
+            fy0 + int(yy.max()),
+        ),
+        centroid_px=(float(fx0 + xx.mean()), float(fy0 + yy.mean())),
+        outline_px=_outline(rmask, rx, ry, f),
+        contrast=contrast,
+        contrast_err=err,
+        contrast_sd=sdd,
+        n_pixels=n,
+        n_effective=float(neff),
+    )
