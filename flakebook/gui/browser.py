@@ -51,9 +51,7 @@ class ProjectBrowser(QWidget):
         [(image_id, image_name)]."""
         self._quiet = True
         expanded = {
-            (it.data(0, KIND_ROLE), it.data(0, ID_ROLE))
-            for it in self._iter()
-            if it.isExpanded()
+            (it.data(0, KIND_ROLE), it.data(0, ID_ROLE)) for it in self._iter() if it.isExpanded()
         }
         self.tree.clear()
         self._flake_items.clear()
@@ -83,13 +81,19 @@ class ProjectBrowser(QWidget):
             for f in s["flakes"]:
                 layers = f.get("layers")
                 p = f.get("probability")
-                text = "-" if layers is None else (f"{layers}L" + (f" {p:.2f}" if p is not None else ""))
+                text = (
+                    "-"
+                    if layers is None
+                    else (f"{layers}L" + (f" {p:.2f}" if p is not None else ""))
+                )
                 if f.get("stale"):
                     text += " (stale)"
                 item = QTreeWidgetItem([f["label"], text])
                 item.setData(0, KIND_ROLE, "flake")
                 item.setData(0, ID_ROLE, f["id"])
-                item.setForeground(1, QBrush(QColor(palette.layer_hex(layers))) if layers else QBrush())
+                item.setForeground(
+                    1, QBrush(QColor(palette.layer_hex(layers))) if layers else QBrush()
+                )
                 flakes.addChild(item)
                 self._flake_items[f["id"]] = item
                 for image_id, image_name in f.get("appearances", []):

@@ -118,7 +118,11 @@ class HoleItem(pg.CircleROI):
 
     def __init__(self, shape: HoleShape) -> None:
         r = float(shape.radius_px)
-        pen = pg.mkPen(palette.HOLE_COLOUR, width=1.5, style=Qt.PenStyle.DashLine if shape.detected else Qt.PenStyle.SolidLine)
+        pen = pg.mkPen(
+            palette.HOLE_COLOUR,
+            width=1.5,
+            style=Qt.PenStyle.DashLine if shape.detected else Qt.PenStyle.SolidLine,
+        )
         super().__init__(
             (shape.x_px - r, shape.y_px - r),
             (2 * r, 2 * r),
@@ -142,7 +146,9 @@ class ScaleBarItem(pg.ScaleBar):
     """A scale bar in micrometres that picks a round length for the current zoom."""
 
     def __init__(self) -> None:
-        super().__init__(size=100, width=6, brush="#FFFFFF", pen=pg.mkPen("#000000"), offset=(-24, -24))
+        super().__init__(
+            size=100, width=6, brush="#FFFFFF", pen=pg.mkPen("#000000"), offset=(-24, -24)
+        )
         self.um_per_px: float | None = None
         self.text.setColor("#FFFFFF")
 
@@ -233,10 +239,14 @@ class ImageCanvas(pg.GraphicsView):
         self.default_hole_radius_px = 20.0
         self.tool = "select"
         self._points: list[tuple[float, float]] = []
-        self._rubber = pg.PlotCurveItem(pen=pg.mkPen("#FFFFFF", width=1.5, style=Qt.PenStyle.DashLine))
+        self._rubber = pg.PlotCurveItem(
+            pen=pg.mkPen("#FFFFFF", width=1.5, style=Qt.PenStyle.DashLine)
+        )
         self._rubber.setZValue(30)
         self.view.addItem(self._rubber)
-        self._measure_text = pg.TextItem(color="#FFFFFF", anchor=(0, 1), fill=pg.mkBrush(0, 0, 0, 160))
+        self._measure_text = pg.TextItem(
+            color="#FFFFFF", anchor=(0, 1), fill=pg.mkBrush(0, 0, 0, 160)
+        )
         self._measure_text.setZValue(31)
         self._measure_text.setVisible(False)
         self.view.addItem(self._measure_text)
@@ -303,7 +313,12 @@ class ImageCanvas(pg.GraphicsView):
         cur = self._tile
         if cur is not None and cur[0] == level:
             _, tc0, tr0, tc1, tr1 = cur
-            if (tc0 <= max(c0, 0) and tr0 <= max(r0, 0) and tc1 >= min(c1, lw) and tr1 >= min(r1, lh)):
+            if (
+                tc0 <= max(c0, 0)
+                and tr0 <= max(r0, 0)
+                and tc1 >= min(c1, lw)
+                and tr1 >= min(r1, lh)
+            ):
                 return
         mx = 0.25 * (c1 - c0)
         my = 0.25 * (r1 - r0)
@@ -315,7 +330,9 @@ class ImageCanvas(pg.GraphicsView):
             return
         tile = np.ascontiguousarray(arr[nr0:nr1, nc0:nc1])
         self.image_item.setImage(tile, autoLevels=False, levels=(0, 255))
-        self.image_item.setRect(QRectF(nc0 * f - 0.5, nr0 * f - 0.5, (nc1 - nc0) * f, (nr1 - nr0) * f))
+        self.image_item.setRect(
+            QRectF(nc0 * f - 0.5, nr0 * f - 0.5, (nc1 - nc0) * f, (nr1 - nr0) * f)
+        )
         self._tile = (level, nc0, nr0, nc1, nr1)
 
     def set_scale(self, um_per_px: float | None) -> None:
@@ -343,7 +360,9 @@ class ImageCanvas(pg.GraphicsView):
                 item.set_selected(True)
         present = sorted({s.layers for s in shapes if s.layers is not None})
         present_t = sorted({n for s in shapes for _, n in s.terraces if n is not None})
-        self.set_legend(sorted(set(present) | set(present_t)), any(s.layers is None for s in shapes))
+        self.set_legend(
+            sorted(set(present) | set(present_t)), any(s.layers is None for s in shapes)
+        )
 
     def set_holes(self, shapes: list[HoleShape]) -> None:
         """Replace the holes shown."""
@@ -372,7 +391,9 @@ class ImageCanvas(pg.GraphicsView):
             f"<tr><td><span style='color:{c}; font-size:14px'>&#9632;</span></td><td>{t}</td></tr>"
             for t, c in rows
         )
-        self.legend.setText(f"<table cellspacing='1'>{cells}</table><div>holes: <span style='color:{palette.HOLE_COLOUR}'>&#9711;</span></div>")
+        self.legend.setText(
+            f"<table cellspacing='1'>{cells}</table><div>holes: <span style='color:{palette.HOLE_COLOUR}'>&#9711;</span></div>"
+        )
         self.legend.adjustSize()
         self.legend.show()
 
@@ -408,7 +429,9 @@ class ImageCanvas(pg.GraphicsView):
         movable = name == "select"
         for item in self.holes.values():
             item.translatable = movable
-        self.setCursor(Qt.CursorShape.ArrowCursor if name == "select" else Qt.CursorShape.CrossCursor)
+        self.setCursor(
+            Qt.CursorShape.ArrowCursor if name == "select" else Qt.CursorShape.CrossCursor
+        )
         self.toolChanged.emit(name)
 
     def cancel_tool(self) -> None:
@@ -606,7 +629,9 @@ class ImagePyramid:
         while len(self.levels) <= k:
             prev = self.levels[-1]
             h, w = prev.shape[:2]
-            self.levels.append(cv2.resize(prev, (max(1, w // 2), max(1, h // 2)), interpolation=cv2.INTER_AREA))
+            self.levels.append(
+                cv2.resize(prev, (max(1, w // 2), max(1, h // 2)), interpolation=cv2.INTER_AREA)
+            )
         return self.levels[k]
 
 

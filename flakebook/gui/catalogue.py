@@ -13,7 +13,14 @@ import math
 from collections.abc import Callable
 from pathlib import Path
 
-from PySide6.QtCore import QAbstractTableModel, QModelIndex, QSize, QSortFilterProxyModel, Qt, Signal
+from PySide6.QtCore import (
+    QAbstractTableModel,
+    QModelIndex,
+    QSize,
+    QSortFilterProxyModel,
+    Qt,
+    Signal,
+)
 from PySide6.QtGui import QBrush, QColor, QPixmap
 from PySide6.QtWidgets import (
     QAbstractItemView,
@@ -43,12 +50,21 @@ COLUMNS = (
     ("ambiguous_with", "Or", "Other layer numbers with posterior >= 5%"),
     ("manual", "Set by", "'hand' when a person recorded the assignment, else 'evidence'"),
     ("holes_covered", "Holes", "Holes the flake covers fully"),
-    ("margin_um", "Margin (µm)", "Smallest margin from a fully covered hole's edge to the flake's edge"),
+    (
+        "margin_um",
+        "Margin (µm)",
+        "Smallest margin from a fully covered hole's edge to the flake's edge",
+    ),
     ("tags", "Tags", "Tags, comma-separated"),
-    ("stale", "Stale", "An input changed since this was computed; recompute to bring it up to date"),
+    (
+        "stale",
+        "Stale",
+        "An input changed since this was computed; recompute to bring it up to date",
+    ),
 )
 KEYS = tuple(c[0] for c in COLUMNS)
 ID_ROLE = Qt.ItemDataRole.UserRole + 10
+_ROOT = QModelIndex()
 SORT_ROLE = Qt.ItemDataRole.UserRole + 11
 
 
@@ -88,10 +104,10 @@ class CatalogueModel(QAbstractTableModel):
     def forget_thumbnail(self, flake_id: int) -> None:
         self._thumbs.pop(flake_id, None)
 
-    def rowCount(self, parent=QModelIndex()) -> int:  # noqa: N802 - Qt API
+    def rowCount(self, parent=_ROOT) -> int:  # noqa: N802 - Qt API
         return 0 if parent.isValid() else len(self.rows)
 
-    def columnCount(self, parent=QModelIndex()) -> int:  # noqa: N802 - Qt API
+    def columnCount(self, parent=_ROOT) -> int:  # noqa: N802 - Qt API
         return 0 if parent.isValid() else len(COLUMNS)
 
     def headerData(self, section, orientation, role=Qt.ItemDataRole.DisplayRole):  # noqa: N802
@@ -133,7 +149,9 @@ class CatalogueModel(QAbstractTableModel):
                 self._thumbs[fid] = self.thumbnail(row)
             return self._thumbs[fid]
         if role == Qt.ItemDataRole.ToolTipRole and row.get("stale"):
-            return "Stale: " + (row.get("stale_reason") or "an input changed since this was computed")
+            return "Stale: " + (
+                row.get("stale_reason") or "an input changed since this was computed"
+            )
         return None
 
 
@@ -332,7 +350,9 @@ class CatalogueView(QWidget):
         """Write the rows (as filtered and sorted) to CSV with INTERFACE.md's keys."""
         path = Path(path)
         if path.suffix.lower() != ".csv":
-            raise InputError(f"{path.name}: the catalogue is exported as CSV; accepted: a .csv file name")
+            raise InputError(
+                f"{path.name}: the catalogue is exported as CSV; accepted: a .csv file name"
+            )
         rows = self.proxy.visible_rows() if visible_only else self.model.rows
         with path.open("w", newline="", encoding="utf-8") as fh:
             writer = csv.writer(fh)
@@ -357,6 +377,9 @@ class CatalogueView(QWidget):
         header = [c[1] for c in COLUMNS]
         cells = [[_text(k, r.get(k)) for k in KEYS] for r in rows]
         return table_picture(
-            path, header, cells, title=f"flakebook catalogue · {len(rows)} flakes",
+            path,
+            header,
+            cells,
+            title=f"flakebook catalogue · {len(rows)} flakes",
             marks=[bool(r.get("stale")) for r in rows],
         )

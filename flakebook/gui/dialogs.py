@@ -48,7 +48,9 @@ def check_substrate(spec: str) -> str:
     return parse_substrate(spec.strip()).spec
 
 
-def _spin(lo: float, hi: float, value: float, decimals: int = 2, suffix: str = "", step: float = 1.0) -> QDoubleSpinBox:
+def _spin(
+    lo: float, hi: float, value: float, decimals: int = 2, suffix: str = "", step: float = 1.0
+) -> QDoubleSpinBox:
     s = QDoubleSpinBox()
     s.setRange(lo, hi)
     s.setDecimals(decimals)
@@ -98,7 +100,9 @@ class SampleForm(QWidget):
         self.angle = _spin(-180, 180, hp.get("angle_deg", 0.0), 1, " °")
         self.depth = _spin(0.0, 1e6, hp.get("depth_nm") or 0.0, 1, " nm", 10)
         self.depth.setSpecialValueText("default (through the top layers)")
-        self.bottom.currentIndexChanged.connect(lambda *_: self.depth.setEnabled(self.bottom.currentData() != "open"))
+        self.bottom.currentIndexChanged.connect(
+            lambda *_: self.depth.setEnabled(self.bottom.currentData() != "open")
+        )
         self.depth.setEnabled(self.bottom.currentData() != "open")
         hl = QFormLayout(self.holes)
         hl.addRow("Bottom", self.bottom)
@@ -132,15 +136,22 @@ class SampleForm(QWidget):
                 "pitch_um": self.pitch.value() or None,
                 "lattice": self.lattice.currentText(),
                 "angle_deg": self.angle.value(),
-                "depth_nm": (self.depth.value() or None) if self.bottom.currentData() != "open" else None,
+                "depth_nm": (self.depth.value() or None)
+                if self.bottom.currentData() != "open"
+                else None,
             }
             if pattern["pitch_um"] is not None and pattern["pitch_um"] <= pattern["diameter_um"]:
                 raise InputError(
                     f"Hole pitch {pattern['pitch_um']:g} µm is not larger than the diameter "
                     f"{pattern['diameter_um']:g} µm; accepted: a pitch above the diameter, or none."
                 )
-        return {"name": name, "material": material, "substrate": substrate, "hole_pattern": pattern,
-                "notes": self.notes.text().strip()}
+        return {
+            "name": name,
+            "material": material,
+            "substrate": substrate,
+            "hole_pattern": pattern,
+            "notes": self.notes.text().strip(),
+        }
 
 
 class _Checked(QDialog):
@@ -152,7 +163,9 @@ class _Checked(QDialog):
         self.error.setWordWrap(True)
         self.error.setStyleSheet("color: #B00020;")
         self.error.hide()
-        self.buttons = QDialogButtonBox(QDialogButtonBox.StandardButton.Ok | QDialogButtonBox.StandardButton.Cancel)
+        self.buttons = QDialogButtonBox(
+            QDialogButtonBox.StandardButton.Ok | QDialogButtonBox.StandardButton.Cancel
+        )
         self.buttons.accepted.connect(self.accept)
         self.buttons.rejected.connect(self.reject)
         lay = QVBoxLayout(self)
@@ -213,7 +226,9 @@ class NewProjectDialog(_Checked):
         self._build(body)
 
     def _browse(self) -> None:
-        path, _ = QFileDialog.getSaveFileName(self, "New project", "", "flakebook projects (*.flakebook)")
+        path, _ = QFileDialog.getSaveFileName(
+            self, "New project", "", "flakebook projects (*.flakebook)"
+        )
         if path:
             if not path.endswith(".flakebook"):
                 path += ".flakebook"
@@ -225,9 +240,15 @@ class NewProjectDialog(_Checked):
             raise InputError("Choose where the project file goes.")
         path = Path(text)
         if path.suffix != ".flakebook":
-            path = path.with_suffix(path.suffix + ".flakebook") if path.suffix else path.with_suffix(".flakebook")
+            path = (
+                path.with_suffix(path.suffix + ".flakebook")
+                if path.suffix
+                else path.with_suffix(".flakebook")
+            )
         if path.exists():
-            raise InputError(f"{path} already exists; choose another name (open it from File > Open instead).")
+            raise InputError(
+                f"{path} already exists; choose another name (open it from File > Open instead)."
+            )
         if not path.parent.exists():
             raise InputError(f"The folder {path.parent} does not exist.")
         return {"path": path, "sample": self.form.values()}
@@ -264,9 +285,13 @@ class ImageDialog(_Checked):
         self.illumination.setEditable(True)
         self.illumination.addItems(["halogen", "blackbody:3200", "band:450-650"])
         self.illumination.setCurrentText(values.get("illumination") or "halogen")
-        self.illumination.setToolTip("halogen | blackbody:TEMPERATURE_K | band:LO-HI (nm) | a single wavelength in nm")
+        self.illumination.setToolTip(
+            "halogen | blackbody:TEMPERATURE_K | band:LO-HI (nm) | a single wavelength in nm"
+        )
         self.objective.currentIndexChanged.connect(self._preset)
-        self.note = QLabel("Preset values are examples until measured for your microscope (resources/objectives.json).")
+        self.note = QLabel(
+            "Preset values are examples until measured for your microscope (resources/objectives.json)."
+        )
         self.note.setWordWrap(True)
         f = QFormLayout(body)
         f.addRow("Objective", self.objective)

@@ -68,7 +68,9 @@ def show_error(parent: QWidget | None, exc: BaseException, action: str) -> QMess
     if not isinstance(exc, FlakebookError):
         log.debug("".join(traceback.format_exception(exc)))
     box = QMessageBox(parent)
-    box.setIcon(QMessageBox.Icon.Information if isinstance(exc, Cancelled) else QMessageBox.Icon.Warning)
+    box.setIcon(
+        QMessageBox.Icon.Information if isinstance(exc, Cancelled) else QMessageBox.Icon.Warning
+    )
     box.setWindowTitle("flakebook")
     box.setText(headline)
     box.setInformativeText(advice)

@@ -120,7 +120,9 @@ class Inspector(QScrollArea):
         f.setPointSize(f.pointSize() + 3)
         f.setBold(True)
         self.title.setFont(f)
-        self.subtitle = QLabel("Select a flake on the image, in the browser or the catalogue.", body)
+        self.subtitle = QLabel(
+            "Select a flake on the image, in the browser or the catalogue.", body
+        )
         self.subtitle.setWordWrap(True)
 
         # Posterior over N
@@ -149,7 +151,8 @@ class Inspector(QScrollArea):
         self.con_plot.addLegend(offset=(5, 5), labelTextSize="8pt")
         self.con_note = QLabel(
             "Model per channel (points), measured contrast (line, band ±1σ), "
-            "C = (R_substrate − R_flake)/R_substrate.", body
+            "C = (R_substrate − R_flake)/R_substrate.",
+            body,
         )
         self.con_note.setWordWrap(True)
         self.decide = QLabel(body)
@@ -193,11 +196,15 @@ class Inspector(QScrollArea):
         self.assign_button.setObjectName("assignButton")
         self.assign_button.setEnabled(False)
         self.assign_reason.textChanged.connect(
-            lambda t: self.assign_button.setEnabled(bool(t.strip()) and self.flake is not None and not self.read_only)
+            lambda t: self.assign_button.setEnabled(
+                bool(t.strip()) and self.flake is not None and not self.read_only
+            )
         )
         self.assign_button.clicked.connect(self._on_assign)
         self.clear_button = QPushButton("Back to evidence", body)
-        self.clear_button.setToolTip("Remove the manual assignment; the combined evidence decides again")
+        self.clear_button.setToolTip(
+            "Remove the manual assignment; the combined evidence decides again"
+        )
         self.clear_button.clicked.connect(self._on_clear)
         self.read_only = False
 
@@ -243,7 +250,14 @@ class Inspector(QScrollArea):
     # ---- content -------------------------------------------------------------------------
     def set_read_only(self, read_only: bool) -> None:
         self.read_only = read_only
-        for w in (self.tags, self.notes, self.notes_button, self.assign_n, self.assign_reason, self.clear_button):
+        for w in (
+            self.tags,
+            self.notes,
+            self.notes_button,
+            self.assign_n,
+            self.assign_reason,
+            self.clear_button,
+        ):
             w.setEnabled(not read_only)
         self.assign_button.setEnabled(False)
 
@@ -260,7 +274,8 @@ class Inspector(QScrollArea):
         self.title.setText(flake["label"])
         self.subtitle.setText(
             f"{flake.get('sample', '')} · {flake.get('material', '')} · "
-            f"area {flake['area_um2']:.1f} µm²" if flake.get("area_um2") is not None
+            f"area {flake['area_um2']:.1f} µm²"
+            if flake.get("area_um2") is not None
             else f"{flake.get('sample', '')} · {flake.get('material', '')}"
         )
         if stale:
@@ -291,13 +306,17 @@ class Inspector(QScrollArea):
             plot.removeItem(self.bars)
             self.bars = None
         if not post:
-            self.verdict.setText("No layer evidence yet: find flakes on the image or add a spectrum.")
+            self.verdict.setText(
+                "No layer evidence yet: find flakes on the image or add a spectrum."
+            )
             return
         post = np.asarray(post, float)
         nmax = len(post) - 1
         x = np.arange(1, len(post) + 1)
         brushes = [palette.layer_hex(int(n)) if n <= nmax else palette.THICK_COLOUR for n in x]
-        self.bars = pg.BarGraphItem(x=x, height=post, width=0.8, brushes=brushes, pen=pg.mkPen("#333333"))
+        self.bars = pg.BarGraphItem(
+            x=x, height=post, width=0.8, brushes=brushes, pen=pg.mkPen("#333333")
+        )
         plot.addItem(self.bars)
         ticks = [(int(n), str(int(n))) for n in x[:-1] if n <= 5 or n % 5 == 0 or n == nmax]
         ticks.append((len(post), f">{nmax}"))
@@ -334,7 +353,13 @@ class Inspector(QScrollArea):
             legend.clear()
         contrast = flake.get("contrast") or {}
         errs = flake.get("contrast_err") or {}
-        model = self.model_curves if self.model_curves is not None else None
+        raw_model = self.model_curves
+        model = (
+            None
+            if raw_model is None
+            else {k: v for k, v in raw_model.items() if not k.startswith("_")}
+        )
+        decider = (raw_model or {}).get("_decider") or ""
         nmax = int(flake.get("max_layers") or 15)
         best = flake.get("layers")
         for i, ch in enumerate(sorted(set(contrast) | set(model or {}))):
@@ -342,26 +367,58 @@ class Inspector(QScrollArea):
             if model and ch in model:
                 curve = np.asarray(model[ch], float)[:nmax]
                 n = np.arange(1, len(curve) + 1)
-                plot.plot(n, curve, pen=pg.mkPen(colour, width=1), symbol=symbol, symbolSize=6,
-                          symbolBrush=colour, symbolPen=None, name=f"model {ch}")
+                plot.plot(
+                    n,
+                    curve,
+                    pen=pg.mkPen(colour, width=1),
+                    symbol=symbol,
+                    symbolSize=6,
+                    symbolBrush=colour,
+                    symbolPen=None,
+                    name=f"model {ch}",
+                )
             if ch in contrast and contrast[ch] is not None:
                 c = float(contrast[ch])
                 e = float(errs.get(ch) or 0.0)
-                band = pg.LinearRegionItem((c - e, c + e), orientation="horizontal", movable=False,
-                                           brush=pg.mkBrush(colour + "30"), pen=pg.mkPen(None))
+                band = pg.LinearRegionItem(
+                    (c - e, c + e),
+                    orientation="horizontal",
+                    movable=False,
+                    brush=pg.mkBrush(colour + "30"),
+                    pen=pg.mkPen(None),
+                )
                 plot.addItem(band)
-                plot.addItem(pg.InfiniteLine(c, angle=0, pen=pg.mkPen(colour, width=1, style=Qt.PenStyle.DashLine)))
+                plot.addItem(
+                    pg.InfiniteLine(
+                        c, angle=0, pen=pg.mkPen(colour, width=1, style=Qt.PenStyle.DashLine)
+                    )
+                )
                 if best:
-                    plot.addItem(pg.ErrorBarItem(x=np.array([best]), y=np.array([c]), height=np.array([2 * e]),
-                                                 beam=0.25, pen=pg.mkPen(colour, width=2)))
-                    plot.plot([best], [c], pen=None, symbol="x", symbolSize=10, symbolPen=pg.mkPen(colour, width=2),
-                              name=f"measured {ch}")
+                    plot.addItem(
+                        pg.ErrorBarItem(
+                            x=np.array([best]),
+                            y=np.array([c]),
+                            height=np.array([2 * e]),
+                            beam=0.25,
+                            pen=pg.mkPen(colour, width=2),
+                        )
+                    )
+                    plot.plot(
+                        [best],
+                        [c],
+                        pen=None,
+                        symbol="x",
+                        symbolSize=10,
+                        symbolPen=pg.mkPen(colour, width=2),
+                        name=f"measured {ch}",
+                    )
         plot.setXRange(0.5, min(nmax, 10) + 0.5, padding=0)
         amb = [best] + list(flake.get("ambiguous_with") or []) if best else []
-        self.decide.setText(
-            "<b>What would decide:</b> "
-            + deciding_hint(amb, model, errs, flake.get("oxide_err_nm"))
-        )
+        text = "<b>What would decide:</b> "
+        if decider:
+            text += decider + "<br>"
+        text += deciding_hint(amb, model, errs, flake.get("oxide_err_nm"))
+        self.decide.setText(text)
         if model is None and contrast:
             self.con_note.setText("Model curves: computing…")
         elif not contrast:
@@ -384,7 +441,9 @@ class Inspector(QScrollArea):
         for i, h in enumerate(holes):
             cells = [
                 str(h.get("label", h.get("hole_id"))),
-                f"{100 * h['covered_fraction']:.0f} %" if h.get("covered_fraction") is not None else "",
+                f"{100 * h['covered_fraction']:.0f} %"
+                if h.get("covered_fraction") is not None
+                else "",
                 "yes" if h.get("fully_covered") else "no",
                 f"{h['margin_um']:.2f}" if h.get("margin_um") is not None else "",
             ]

@@ -69,6 +69,7 @@ class MainWindow(QMainWindow):
         self._linear = None  # linear intensity of the current image (for contrast under cursor)
         self._reference = None  # substrate reference per channel of the current image
         self._channels: tuple[str, ...] = ()
+        self._cursor_job: Job | None = None
         self._model_cache: dict = {}
         self.errors: list[tuple[str, BaseException]] = []  # shown errors (tests read them)
         self.log_handler = log_handler or _install_log_handler()
@@ -139,7 +140,9 @@ class MainWindow(QMainWindow):
         self.canvas.set_tool("select")
 
     # ---- actions and menus -------------------------------------------------------------------
-    def _act(self, text: str, slot: Callable | None = None, shortcut=None, tip: str = "", name: str = "") -> QAction:
+    def _act(
+        self, text: str, slot: Callable | None = None, shortcut=None, tip: str = "", name: str = ""
+    ) -> QAction:
         a = QAction(text, self)
         if shortcut is not None:
             a.setShortcut(QKeySequence(shortcut))
@@ -148,7 +151,9 @@ class MainWindow(QMainWindow):
             a.setStatusTip(tip)
             a.setToolTip(f"{tip} ({a.shortcut().toString()})" if shortcut else tip)
         if slot is not None:
-            a.triggered.connect(lambda checked=False: self._guard(slot, text.replace("&", "").rstrip("…")))
+            a.triggered.connect(
+                lambda checked=False: self._guard(slot, text.replace("&", "").rstrip("…"))
+            )
         if name:
             a.setObjectName(name)
         self.addAction(a)
@@ -157,13 +162,43 @@ class MainWindow(QMainWindow):
     def _make_actions(self) -> None:
         A = self._act
         S = QKeySequence.StandardKey
-        self.a_new = A("&New project…", self.new_project, S.New, "Create a new project file", "newProject")
-        self.a_open = A("&Open project…", self.open_project_dialog, S.Open, "Open a project file", "openProject")
-        self.a_close = A("&Close project", self.close_project, S.Close, "Close the project", "closeProject")
-        self.a_import = A("&Add images…", self.import_images_dialog, "Ctrl+I", "Add micrographs to the current sample", "addImages")
-        self.a_watch = A("&Watch camera folder…", self.watch_folder_dialog, "Ctrl+Shift+W", "Survey each new image the camera saves in a folder", "watchFolder")
-        self.a_export_csv = A("Export catalogue as &CSV…", self.export_csv_dialog, "Ctrl+E", "Write the catalogue (as filtered) to a CSV file", "exportCsv")
-        self.a_export_pic = A("Export &picture of the view…", self.export_picture_dialog, "Ctrl+Shift+E", "Save the image view or the catalogue as PNG or SVG", "exportPicture")
+        self.a_new = A(
+            "&New project…", self.new_project, S.New, "Create a new project file", "newProject"
+        )
+        self.a_open = A(
+            "&Open project…", self.open_project_dialog, S.Open, "Open a project file", "openProject"
+        )
+        self.a_close = A(
+            "&Close project", self.close_project, S.Close, "Close the project", "closeProject"
+        )
+        self.a_import = A(
+            "&Add images…",
+            self.import_images_dialog,
+            "Ctrl+I",
+            "Add micrographs to the current sample",
+            "addImages",
+        )
+        self.a_watch = A(
+            "&Watch camera folder…",
+            self.watch_folder_dialog,
+            "Ctrl+Shift+W",
+            "Survey each new image the camera saves in a folder",
+            "watchFolder",
+        )
+        self.a_export_csv = A(
+            "Export catalogue as &CSV…",
+            self.export_csv_dialog,
+            "Ctrl+E",
+            "Write the catalogue (as filtered) to a CSV file",
+            "exportCsv",
+        )
+        self.a_export_pic = A(
+            "Export &picture of the view…",
+            self.export_picture_dialog,
+            "Ctrl+Shift+E",
+            "Save the image view or the catalogue as PNG or SVG",
+            "exportPicture",
+        )
         self.a_quit = A("&Quit", self.close, S.Quit, "Quit flakebook", "quit")
 
         self.a_undo = self.undo_stack.createUndoAction(self, "&Undo")
@@ -172,19 +207,73 @@ class MainWindow(QMainWindow):
         self.a_redo.setShortcuts([QKeySequence(S.Redo), QKeySequence("Ctrl+Y")])
         self.addAction(self.a_undo)
         self.addAction(self.a_redo)
-        self.a_delete = A("&Delete selected flake", self.delete_selected, S.Delete, "Delete the selected flake and its outlines", "deleteFlake")
-        self.a_edit_outline = A("&Edit outline", self.edit_outline, "E", "Drag corners, click an edge to add one, right-click a corner to remove it; Enter keeps", "editOutline")
-        self.a_sample = A("&Sample settings…", self.sample_dialog, "Ctrl+Shift+S", "Substrate stack and hole pattern of the sample", "sampleSettings")
-        self.a_new_sample = A("New sa&mple…", self.new_sample_dialog, "Ctrl+Shift+N", "Add a chip to the project", "newSample")
-        self.a_image_settings = A("&Image settings…", self.image_dialog, "Ctrl+Shift+I", "Objective, pixel size and apertures of the current image", "imageSettings")
-        self.a_link = A("&Link to a flake…", self.link_dialog, "L", "Say that the selected outline is a flake already seen in another image", "linkFlake")
+        self.a_delete = A(
+            "&Delete selected flake",
+            self.delete_selected,
+            S.Delete,
+            "Delete the selected flake and its outlines",
+            "deleteFlake",
+        )
+        self.a_edit_outline = A(
+            "&Edit outline",
+            self.edit_outline,
+            "E",
+            "Drag corners, click an edge to add one, right-click a corner to remove it; Enter keeps",
+            "editOutline",
+        )
+        self.a_sample = A(
+            "&Sample settings…",
+            self.sample_dialog,
+            "Ctrl+Shift+S",
+            "Substrate stack and hole pattern of the sample",
+            "sampleSettings",
+        )
+        self.a_new_sample = A(
+            "New sa&mple…",
+            self.new_sample_dialog,
+            "Ctrl+Shift+N",
+            "Add a chip to the project",
+            "newSample",
+        )
+        self.a_image_settings = A(
+            "&Image settings…",
+            self.image_dialog,
+            "Ctrl+Shift+I",
+            "Objective, pixel size and apertures of the current image",
+            "imageSettings",
+        )
+        self.a_link = A(
+            "&Link to a flake…",
+            self.link_dialog,
+            "L",
+            "Say that the selected outline is a flake already seen in another image",
+            "linkFlake",
+        )
 
         self.a_fit = A("&Fit image", self.canvas.fit, "F", "Show the whole image", "fitImage")
-        self.a_zoom_in = A("Zoom &in", lambda: self.canvas.zoom(1.25), S.ZoomIn, "Zoom in", "zoomIn")
-        self.a_zoom_out = A("Zoom &out", lambda: self.canvas.zoom(0.8), S.ZoomOut, "Zoom out", "zoomOut")
-        self.a_show_image = A("&Image view", lambda: self.tabs.setCurrentWidget(self.canvas), "Ctrl+1", "Show the image", "showImage")
-        self.a_show_cat = A("&Catalogue", lambda: self.tabs.setCurrentWidget(self.catalogue), "Ctrl+2", "Show the catalogue", "showCatalogue")
-        self.a_log = A("Session &log", self.show_log, "Ctrl+L", "Operations of this session", "sessionLog")
+        self.a_zoom_in = A(
+            "Zoom &in", lambda: self.canvas.zoom(1.25), S.ZoomIn, "Zoom in", "zoomIn"
+        )
+        self.a_zoom_out = A(
+            "Zoom &out", lambda: self.canvas.zoom(0.8), S.ZoomOut, "Zoom out", "zoomOut"
+        )
+        self.a_show_image = A(
+            "&Image view",
+            lambda: self.tabs.setCurrentWidget(self.canvas),
+            "Ctrl+1",
+            "Show the image",
+            "showImage",
+        )
+        self.a_show_cat = A(
+            "&Catalogue",
+            lambda: self.tabs.setCurrentWidget(self.catalogue),
+            "Ctrl+2",
+            "Show the catalogue",
+            "showCatalogue",
+        )
+        self.a_log = A(
+            "Session &log", self.show_log, "Ctrl+L", "Operations of this session", "sessionLog"
+        )
 
         self.tool_group = QActionGroup(self)
         self.tool_group.setExclusive(True)
@@ -208,10 +297,34 @@ class MainWindow(QMainWindow):
             self.addAction(a)
             self.tool_actions[name] = a
         self.tool_actions["select"].setChecked(True)
-        self.a_find = A("&Find flakes", self.find_flakes, "Ctrl+F", "Find flakes on the current image and read their layer numbers", "findFlakes")
-        self.a_holes = A("Detect &holes", self.detect_holes, "Ctrl+H", "Find the holes of the image and fit their lattice", "detectHoles")
-        self.a_recompute = A("&Recompute stale", self.recompute_stale, "Ctrl+R", "Bring every stale result up to date", "recomputeStale")
-        self.a_cancel = A("Cancel running job", self.jobs.cancel_all, "Ctrl+.", "Stop the running job", "cancelJob")
+        self.a_find = A(
+            "&Find flakes",
+            self.find_flakes,
+            "Ctrl+F",
+            "Find flakes on the current image and read their layer numbers",
+            "findFlakes",
+        )
+        self.a_holes = A(
+            "Detect &holes",
+            self.detect_holes,
+            "Ctrl+H",
+            "Find the holes of the image and fit their lattice",
+            "detectHoles",
+        )
+        self.a_recompute = A(
+            "&Recompute stale",
+            self.recompute_stale,
+            "Ctrl+R",
+            "Bring every stale result up to date",
+            "recomputeStale",
+        )
+        self.a_cancel = A(
+            "Cancel running job",
+            self.jobs.cancel_all,
+            "Ctrl+.",
+            "Stop the running job",
+            "cancelJob",
+        )
         self.a_about = A("&About flakebook", self.about, None, "", "about")
 
     def _make_menus(self) -> None:
@@ -279,33 +392,60 @@ class MainWindow(QMainWindow):
         c.cursorMoved.connect(self._on_cursor)
         c.cursorLeft.connect(lambda: (self.pos_label.setText(""), self.contrast_label.setText("")))
         c.toolChanged.connect(self._on_tool)
-        c.flakeClicked.connect(lambda fid: self.select_flake(fid if fid >= 0 else None, from_canvas=True))
-        c.holePlaced.connect(lambda x, y, r: self._guard(lambda: self.add_hole(x, y, r), "Place hole"))
-        c.holeChanged.connect(lambda h, x, y, r: self._guard(lambda: self.move_hole(h, x, y, r), "Move hole"))
-        c.holeRemoveRequested.connect(lambda h: self._guard(lambda: self.delete_hole(h), "Remove hole"))
+        c.flakeClicked.connect(
+            lambda fid: self.select_flake(fid if fid >= 0 else None, from_canvas=True)
+        )
+        c.holePlaced.connect(
+            lambda x, y, r: self._guard(lambda: self.add_hole(x, y, r), "Place hole")
+        )
+        c.holeChanged.connect(
+            lambda h, x, y, r: self._guard(lambda: self.move_hole(h, x, y, r), "Move hole")
+        )
+        c.holeRemoveRequested.connect(
+            lambda h: self._guard(lambda: self.delete_hole(h), "Remove hole")
+        )
         c.scaleLineDrawn.connect(lambda *p: self._guard(lambda: self.scale_line(*p), "Set scale"))
         c.distanceMeasured.connect(self._on_measured)
-        c.outlineDrawn.connect(lambda pts: self._guard(lambda: self.add_outline(pts), "New outline"))
-        c.outlineEdited.connect(lambda a, pts: self._guard(lambda: self.change_outline(a, pts), "Edit outline"))
-        c.segmentRequested.connect(lambda x, y: self._guard(lambda: self.segment_at(x, y), "Outline from click"))
+        c.outlineDrawn.connect(
+            lambda pts: self._guard(lambda: self.add_outline(pts), "New outline")
+        )
+        c.outlineEdited.connect(
+            lambda a, pts: self._guard(lambda: self.change_outline(a, pts), "Edit outline")
+        )
+        c.segmentRequested.connect(
+            lambda x, y: self._guard(lambda: self.segment_at(x, y), "Outline from click")
+        )
         b = self.browser
         b.imageActivated.connect(lambda i: self._guard(lambda: self.show_image(i), "Show image"))
         b.flakeActivated.connect(lambda f: self.select_flake(f, centre=True))
-        b.appearanceActivated.connect(lambda f, i: self._guard(lambda: self.show_appearance(f, i), "Show appearance"))
+        b.appearanceActivated.connect(
+            lambda f, i: self._guard(lambda: self.show_appearance(f, i), "Show appearance")
+        )
         b.sampleActivated.connect(self._on_sample_activated)
         cat = self.catalogue
         cat.flakeActivated.connect(lambda f: self.select_flake(f, centre=True))
         cat.recomputeRequested.connect(lambda: self._guard(self.recompute_stale, "Recompute stale"))
         cat.exportCsvRequested.connect(lambda: self._guard(self.export_csv_dialog, "Export CSV"))
-        cat.exportPictureRequested.connect(lambda: self._guard(self.export_picture_dialog, "Export picture"))
+        cat.exportPictureRequested.connect(
+            lambda: self._guard(self.export_picture_dialog, "Export picture")
+        )
         cat.table.doubleClicked.connect(lambda idx: self.tabs.setCurrentWidget(self.canvas))
         ins = self.inspector
-        ins.assignRequested.connect(lambda f, n, r: self._guard(lambda: self.assign(f, n, r), "Record assignment"))
-        ins.clearAssignmentRequested.connect(lambda f: self._guard(lambda: self.clear_assignment(f), "Back to evidence"))
+        ins.assignRequested.connect(
+            lambda f, n, r: self._guard(lambda: self.assign(f, n, r), "Record assignment")
+        )
+        ins.clearAssignmentRequested.connect(
+            lambda f: self._guard(lambda: self.clear_assignment(f), "Back to evidence")
+        )
         ins.tagsEdited.connect(lambda f, t: self._guard(lambda: self.set_tags(f, t), "Tags"))
         ins.notesEdited.connect(lambda f, t: self._guard(lambda: self.set_notes(f, t), "Notes"))
-        ins.appearanceRequested.connect(lambda f, i: self._guard(lambda: self.show_appearance(f, i), "Show appearance"))
-        self.candidates.flakeActivated.connect(lambda f: self._guard(lambda: self.open_candidate(f), "Open candidate"))
+        ins.appearanceRequested.connect(
+            lambda f, i: self._guard(lambda: self.show_appearance(f, i), "Show appearance")
+        )
+        self.candidates.targetsChanged.connect(lambda *_: self.refresh())
+        self.candidates.flakeActivated.connect(
+            lambda f: self._guard(lambda: self.open_candidate(f), "Open candidate")
+        )
         self.undo_stack.cleanChanged.connect(lambda *_: self._update_title())
         self.undo_stack.indexChanged.connect(lambda *_: self._update_title())
 
@@ -336,7 +476,12 @@ class MainWindow(QMainWindow):
             raise InputError("No image is shown; pick one in the project browser or add images.")
         return self.current_image
 
-    def edit(self, text: str, do: Callable[[], Callable[[], object]], refresh: Callable[[], None] | None = None) -> None:
+    def edit(
+        self,
+        text: str,
+        do: Callable[[], Callable[[], object]],
+        refresh: Callable[[], None] | None = None,
+    ) -> None:
         """Apply an edit now (``do`` writes it and returns its undo) and push it on the stack.
 
         ``do`` returns ``undo``; redo calls ``do`` again (and keeps the new undo it returns).
@@ -369,7 +514,8 @@ class MainWindow(QMainWindow):
         self.setWindowTitle(f"{self.session.path.name}{ro} – flakebook")
         self.mode_label.setText("read-only" if self.session.read_only else "saved")
         self.mode_label.setToolTip(
-            "Opened read-only: edits are disabled." if self.session.read_only
+            "Opened read-only: edits are disabled."
+            if self.session.read_only
             else "Every edit is written to the project file as it happens."
         )
 
@@ -378,8 +524,19 @@ class MainWindow(QMainWindow):
         rw = has and not self.session.read_only
         for a in (self.a_close, self.a_export_csv, self.a_export_pic):
             a.setEnabled(has)
-        for a in (self.a_import, self.a_watch, self.a_find, self.a_holes, self.a_recompute, self.a_delete,
-                  self.a_edit_outline, self.a_sample, self.a_new_sample, self.a_image_settings, self.a_link):
+        for a in (
+            self.a_import,
+            self.a_watch,
+            self.a_find,
+            self.a_holes,
+            self.a_recompute,
+            self.a_delete,
+            self.a_edit_outline,
+            self.a_sample,
+            self.a_new_sample,
+            self.a_image_settings,
+            self.a_link,
+        ):
             a.setEnabled(rw)
         for name, a in self.tool_actions.items():
             a.setEnabled(has and (rw or name in ("select", "measure")))
@@ -427,7 +584,7 @@ class MainWindow(QMainWindow):
     def close_project(self) -> None:
         if self.session is None:
             return
-        self.jobs.cancel_all()
+        self.jobs.abandon_all()
         self.canvas.cancel_tool()
         path = self.session.path
         self.session.close()
@@ -465,7 +622,9 @@ class MainWindow(QMainWindow):
 
     def open_project_dialog(self) -> None:
         start = str(Path(recent_projects()[0]).parent) if recent_projects() else ""
-        path, _ = QFileDialog.getOpenFileName(self, "Open project", start, f"flakebook projects (*{PROJECT_SUFFIX});;All files (*)")
+        path, _ = QFileDialog.getOpenFileName(
+            self, "Open project", start, f"flakebook projects (*{PROJECT_SUFFIX});;All files (*)"
+        )
         if path:
             self.open_project(path)
 
@@ -477,7 +636,9 @@ class MainWindow(QMainWindow):
             a.setEnabled(False)
         for i, p in enumerate(items):
             a = self.recent_menu.addAction(f"&{i + 1} {Path(p).name}  –  {Path(p).parent}")
-            a.triggered.connect(lambda checked=False, p=p: self._guard(lambda: self.open_project(p), "Open project"))
+            a.triggered.connect(
+                lambda checked=False, p=p: self._guard(lambda: self.open_project(p), "Open project")
+            )
         self.recent_menu.addSeparator()
         self.recent_menu.addAction("Clear list", lambda: settings().setValue("recent", []))
 
@@ -500,6 +661,7 @@ class MainWindow(QMainWindow):
         self._show_inspector()
         self.catalogue.select_flake(self.current_flake)
         self.browser.select_flake(self.current_flake)
+        self.candidates.set_candidates(s.candidates(self.candidates.target_layers()), s.thumbnail)
 
     def _refresh_overlays(self) -> None:
         s = self.session
@@ -521,30 +683,52 @@ class MainWindow(QMainWindow):
         s = self._need_session(write=False)
         shown = s.load_image(image_id)
         self.current_image = image_id
-        self._linear = shown.linear
-        self._reference = shown.reference
-        self._channels = shown.channels
+        self._linear = None
+        self._reference = None
+        self._channels = ()
         self.canvas.set_image(shown.display, shown.um_per_px)
         for w in shown.warnings:
             log.warning("%s: %s", shown.name, w)
         self._refresh_overlays()
         self.browser.select_image(image_id)
         self.tabs.setCurrentWidget(self.canvas)
-        self.hint_label.setText(f"{shown.name}: {shown.display.shape[1]} × {shown.display.shape[0]} px")
+        self._start_cursor_job(image_id)
+        self.hint_label.setText(
+            f"{shown.name}: {shown.display.shape[1]} × {shown.display.shape[0]} px"
+        )
+
+    def _start_cursor_job(self, image_id: int) -> None:
+        """Linear intensity and the substrate level for the contrast under the cursor (worker)."""
+        if self._cursor_job is not None:
+            self._cursor_job.cancel()
+        job = Job("Reading intensities", self.session.cursor_job(image_id))
+        self._cursor_job = job
+
+        def done(res, image_id=image_id):
+            if self.current_image == image_id:
+                self._linear, self._reference, self._channels = res
+
+        self.jobs.start(
+            job, on_done=done, on_error=lambda e: log.warning("Contrast under the cursor: %s", e)
+        )
 
     def show_appearance(self, flake_id: int, image_id: int) -> None:
         if image_id != self.current_image:
             self.show_image(image_id)
         self.select_flake(flake_id, centre=True)
 
-    def select_flake(self, flake_id: int | None, *, centre: bool = False, from_canvas: bool = False) -> None:
+    def select_flake(
+        self, flake_id: int | None, *, centre: bool = False, from_canvas: bool = False
+    ) -> None:
         """Select a flake everywhere: canvas, browser, catalogue, inspector."""
         self.current_flake = flake_id
         if self.session is not None and flake_id is not None and not from_canvas:
             images = self.session.images_of_flake(flake_id)
             if images and self.current_image not in images:
                 self._guard(lambda: self.show_image(images[0]), "Show image")
-        self.canvas.select_flake(flake_id, centre=centre and self.tabs.currentWidget() is self.canvas)
+        self.canvas.select_flake(
+            flake_id, centre=centre and self.tabs.currentWidget() is self.canvas
+        )
         self.browser.select_flake(flake_id)
         self.catalogue.select_flake(flake_id)
         self._show_inspector()
@@ -560,11 +744,14 @@ class MainWindow(QMainWindow):
         if key is not None and key not in self._model_cache and details.get("contrast"):
             self._model_cache[key] = None
             fid = details["id"]
-            job = Job("Contrast model", self.session.model_curves, details)
+            job = Job("Contrast model", self.session.model_job(details))
             self.jobs.start(
                 job,
                 on_done=lambda curves, k=key, f=fid: self._model_ready(k, f, curves),
-                on_error=lambda exc, k=key: (self._model_cache.pop(k, None), log.warning("Contrast model: %s", exc)),
+                on_error=lambda exc, k=key: (
+                    self._model_cache.pop(k, None),
+                    log.warning("Contrast model: %s", exc),
+                ),
             )
 
     def _model_ready(self, key, flake_id: int, curves) -> None:
@@ -644,15 +831,25 @@ class MainWindow(QMainWindow):
 
         self.edit("Remove hole", do)
 
-    def scale_line(self, x0: float, y0: float, x1: float, y1: float, length_um: float | None = None) -> None:
+    def scale_line(
+        self, x0: float, y0: float, x1: float, y1: float, length_um: float | None = None
+    ) -> None:
         s = self._need_session()
         image = self._need_image()
         d = math.hypot(x1 - x0, y1 - y0)
         if d < 2:
-            raise InputError(f"The scale line is {d:.1f} px long; draw a line of at least a few pixels.")
+            raise InputError(
+                f"The scale line is {d:.1f} px long; draw a line of at least a few pixels."
+            )
         if length_um is None:
             length_um, ok = QInputDialog.getDouble(
-                self, "Scale line", f"The line is {d:.1f} px long. Its length in µm:", 10.0, 1e-3, 1e6, 3
+                self,
+                "Scale line",
+                f"The line is {d:.1f} px long. Its length in µm:",
+                10.0,
+                1e-3,
+                1e6,
+                3,
             )
             if not ok:
                 return
@@ -756,14 +953,17 @@ class MainWindow(QMainWindow):
         s = self._need_session()
         image = self._need_image()
         target = self.candidates.target_layers()
-        job = Job(f"Find flakes on {s.image_info(image)['name']}", s.survey_image, image, target_layers=target)
+        job = Job(f"Find flakes on {s.image_info(image)['name']}", s.survey_job(image, target))
 
         def done(result):
             def do():
                 return s.store_survey(image, result)
 
-            self._guard(lambda: self.edit(f"Find flakes ({len(result.regions)} found)", do), "Find flakes")
-            self.candidates.set_candidates(s.candidates(target))
+            self._guard(
+                lambda: self.edit(f"Find flakes ({len(result.flakes)} flakes)", do), "Find flakes"
+            )
+            for w in result.warnings:
+                log.warning("Find flakes: %s", w)
 
         self.jobs.start(job, on_done=done, on_error=lambda e: self.report_error(e, "Find flakes"))
         return job
@@ -771,7 +971,7 @@ class MainWindow(QMainWindow):
     def segment_at(self, x: float, y: float) -> Job | None:
         s = self._need_session()
         image = self._need_image()
-        job = Job("Outline from click", s.segment_at, image, x, y)
+        job = Job("Outline from click", s.segment_job(image, x, y))
 
         def done(points):
             if points is None:
@@ -779,31 +979,49 @@ class MainWindow(QMainWindow):
                 return
             self._guard(lambda: self.add_outline(points), "Outline from click")
 
-        self.jobs.start(job, on_done=done, on_error=lambda e: self.report_error(e, "Outline from click"))
+        self.jobs.start(
+            job, on_done=done, on_error=lambda e: self.report_error(e, "Outline from click")
+        )
         return job
 
     def detect_holes(self) -> Job | None:
         s = self._need_session()
         image = self._need_image()
-        job = Job("Detect holes", s.detect_holes, image)
+        job = Job("Detect holes", s.holes_job(image))
 
         def done(result):
-            self._guard(lambda: self.edit(f"Detect holes ({len(result.holes)})", lambda: s.store_holes(image, result)), "Detect holes")
+            self._guard(
+                lambda: self.edit(
+                    f"Detect holes ({len(result.holes)})", lambda: s.store_holes(image, result)
+                ),
+                "Detect holes",
+            )
 
         self.jobs.start(job, on_done=done, on_error=lambda e: self.report_error(e, "Detect holes"))
         return job
 
-    def recompute_stale(self) -> Job | None:
+    def recompute_stale(self):
+        """Recompute every stale record. It writes the project, so it runs on the window's
+        thread; the progress bar and its cancel button stay live (events are processed between
+        records), and a cancelled run leaves the project as it was (one store transaction)."""
         s = self._need_session()
-        job = Job("Recompute stale", s.recompute_stale)
-
-        def done(report):
-            self.undo_stack.clear()  # recomputed results are not undone one by one
-            self.refresh()
-            log.info("Recompute stale: %s", report)
-
-        self.jobs.start(job, on_done=done, on_error=lambda e: self.report_error(e, "Recompute stale"))
-        return job
+        cancel = self.jobs.begin_inline("Recompute stale")
+        try:
+            report = s.recompute_stale(progress=self.jobs.inline_progress, cancel=cancel)
+        finally:
+            self.jobs.end_inline()
+        self.undo_stack.clear()  # recomputed results are not undone one by one
+        self.refresh()
+        text = f"Recomputed {len(report.recomputed)}"
+        if report.unregistered:
+            text += f"; {len(report.unregistered)} without a way to recompute them (left stale)"
+        if report.failed:
+            text += f"; {len(report.failed)} failed (left stale): " + "; ".join(
+                str(f[2]) for f in report.failed[:3]
+            )
+        log.info("Recompute stale: %s", text)
+        self.hint_label.setText(text)
+        return report
 
     def open_candidate(self, flake_id: int) -> None:
         self.select_flake(flake_id, centre=True)
@@ -812,7 +1030,9 @@ class MainWindow(QMainWindow):
     # ---- dialogs -----------------------------------------------------------------------------
     def import_images_dialog(self) -> None:
         self._need_session()
-        paths, _ = QFileDialog.getOpenFileNames(self, "Add images", "", "Images (*.png *.jpg *.jpeg *.tif *.tiff *.bmp)")
+        paths, _ = QFileDialog.getOpenFileNames(
+            self, "Add images", "", "Images (*.png *.jpg *.jpeg *.tif *.tiff *.bmp)"
+        )
         if paths:
             self.import_images([Path(p) for p in paths])
 
@@ -882,7 +1102,9 @@ class MainWindow(QMainWindow):
         if not choices:
             raise InputError("There is no other flake of this sample to link to.")
         names = [c[1] for c in choices]
-        name, ok = QInputDialog.getItem(self, "Link to a flake", "This outline shows the flake:", names, 0, False)
+        name, ok = QInputDialog.getItem(
+            self, "Link to a flake", "This outline shows the flake:", names, 0, False
+        )
         if not ok:
             return
         target = choices[names.index(name)][0]
@@ -896,14 +1118,18 @@ class MainWindow(QMainWindow):
 
     def export_csv_dialog(self) -> None:
         self._need_session(write=False)
-        path, _ = QFileDialog.getSaveFileName(self, "Export catalogue", str(self.session.path.with_suffix(".csv")), "CSV (*.csv)")
+        path, _ = QFileDialog.getSaveFileName(
+            self, "Export catalogue", str(self.session.path.with_suffix(".csv")), "CSV (*.csv)"
+        )
         if path:
             self.catalogue.export_csv(path)
             log.info("Exported the catalogue to %s", path)
 
     def export_picture_dialog(self) -> None:
         self._need_session(write=False)
-        path, _ = QFileDialog.getSaveFileName(self, "Export picture", "", "PNG (*.png);;SVG (*.svg)")
+        path, _ = QFileDialog.getSaveFileName(
+            self, "Export picture", "", "PNG (*.png);;SVG (*.svg)"
+        )
         if path:
             self.export_picture(path)
 
@@ -936,7 +1162,9 @@ class MainWindow(QMainWindow):
 
     # ---- drag and drop -----------------------------------------------------------------------
     def dragEnterEvent(self, ev) -> None:  # noqa: N802 - Qt API
-        if ev.mimeData().hasUrls() and any(_droppable(u.toLocalFile()) for u in ev.mimeData().urls()):
+        if ev.mimeData().hasUrls() and any(
+            _droppable(u.toLocalFile()) for u in ev.mimeData().urls()
+        ):
             ev.acceptProposedAction()
         else:
             ev.ignore()
@@ -959,9 +1187,12 @@ class MainWindow(QMainWindow):
             elif p.suffix.lower() in IMAGE_SUFFIXES:
                 images.append(p)
         if not images:
-            self.report_error(InputError(
-                "Nothing to add: drop a .flakebook project, micrographs (PNG, JPEG, TIFF, BMP) or a folder of them."
-            ), "Drop")
+            self.report_error(
+                InputError(
+                    "Nothing to add: drop a .flakebook project, micrographs (PNG, JPEG, TIFF, BMP) or a folder of them."
+                ),
+                "Drop",
+            )
             return
         self._guard(lambda: self.import_images(images), "Add images")
 
@@ -999,7 +1230,9 @@ def recent_projects() -> list[str]:
 
 
 def add_recent(path: Path) -> None:
-    items = [str(Path(path).resolve())] + [p for p in recent_projects() if p != str(Path(path).resolve())]
+    items = [str(Path(path).resolve())] + [
+        p for p in recent_projects() if p != str(Path(path).resolve())
+    ]
     settings().setValue("recent", items[:MAX_RECENT])
 
 

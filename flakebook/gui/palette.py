@@ -24,7 +24,15 @@ OKABE_ITO = {
 }
 
 # N = 1..7, in this order.
-_LAYER_ORDER = ("sky blue", "orange", "bluish green", "reddish purple", "yellow", "vermillion", "blue")
+_LAYER_ORDER = (
+    "sky blue",
+    "orange",
+    "bluish green",
+    "reddish purple",
+    "yellow",
+    "vermillion",
+    "blue",
+)
 THICK_COLOUR = "#BBBBBB"
 UNKNOWN_COLOUR = "#FFFFFF"
 HOLE_COLOUR = "#F0E442"  # Okabe-Ito yellow

@@ -95,6 +95,9 @@ class JobBar(QWidget):
         lay.addWidget(self.bar)
         lay.addWidget(self.cancel_button)
         self.jobs: list[Job] = []
+        self._by_signals: dict[int, Job] = {}
+        self._inline: threading.Event | None = None
+        self._inline_title = ""
         self.hide()
 
     def start(
@@ -104,18 +107,21 @@ class JobBar(QWidget):
         on_error: Callable[[BaseException], None] | None = None,
         on_cancel: Callable[[], None] | None = None,
     ) -> Job:
-        """Start ``job`` in the thread pool and show its progress here."""
+        """Start ``job`` in the thread pool and show its progress here.
+
+        The callbacks run on the window's thread. They are dropped when the job was abandoned
+        (:meth:`abandon_all`, e.g. the project was closed) or this bar no longer exists.
+        """
+        job.callbacks = (on_done, on_error, on_cancel)
+        job.abandoned = False
         self.jobs.append(job)
+        self._by_signals[id(job.signals)] = job
         s = job.signals
-        s.progress.connect(lambda f, t, j=job: self._on_progress(j, f, t))
-        if on_done is not None:
-            s.finished.connect(on_done)
-        if on_error is not None:
-            s.failed.connect(on_error)
-        s.cancelled.connect(lambda j=job: log.info("%s: cancelled", j.title))
-        if on_cancel is not None:
-            s.cancelled.connect(on_cancel)
-        s.ended.connect(lambda j=job: self._on_ended(j))
+        s.progress.connect(self._progress_slot)
+        s.finished.connect(self._finished_slot)
+        s.failed.connect(self._failed_slot)
+        s.cancelled.connect(self._cancelled_slot)
+        s.ended.connect(self._ended_slot)
         self.label.setText(job.title)
         self.bar.setValue(0)
         self.show()
@@ -123,23 +129,83 @@ class JobBar(QWidget):
         QThreadPool.globalInstance().start(job)
         return job
 
-    def _on_progress(self, job: Job, fraction: float, text: str) -> None:
-        if job is self.jobs[-1] if self.jobs else False:
+    def _job(self) -> Job | None:
+        sender = self.sender()
+        return self._by_signals.get(id(sender)) if sender is not None else None
+
+    def _progress_slot(self, fraction: float, text: str) -> None:
+        job = self._job()
+        if job is not None and self.jobs and job is self.jobs[-1]:
             self.bar.setValue(int(1000 * max(0.0, min(1.0, fraction))))
             self.label.setText(f"{job.title}: {text}" if text else job.title)
 
-    def _on_ended(self, job: Job) -> None:
+    def _finished_slot(self, result: object) -> None:
+        job = self._job()
+        if job is not None and not job.abandoned and job.callbacks[0] is not None:
+            job.callbacks[0](result)
+
+    def _failed_slot(self, exc: object) -> None:
+        job = self._job()
+        if job is not None and not job.abandoned and job.callbacks[1] is not None:
+            job.callbacks[1](exc)
+
+    def _cancelled_slot(self) -> None:
+        job = self._job()
+        if job is None:
+            return
+        log.info("%s: cancelled", job.title)
+        if not job.abandoned and job.callbacks[2] is not None:
+            job.callbacks[2]()
+
+    def _ended_slot(self) -> None:
+        job = self._job()
+        if job is None:
+            return
+        self._by_signals.pop(id(job.signals), None)
         if job in self.jobs:
             self.jobs.remove(job)
+        if not self.jobs and self._inline is None:
+            self.hide()
+        elif self.jobs:
+            self.label.setText(self.jobs[-1].title)
+
+    def abandon_all(self, wait_ms: int = 5000) -> None:
+        """Cancel every job, drop their callbacks, and wait for the threads to stop."""
+        for job in list(self.jobs):
+            job.abandoned = True
+            job.cancel()
+        for job in list(self.jobs):
+            job.done.wait(wait_ms / 1000.0)
+
+    # A job that must run on the window's thread (it writes the project): the bar shows its
+    # progress, events are processed between steps so the cancel button works.
+    def begin_inline(self, title: str) -> threading.Event:
+        self._inline = threading.Event()
+        self._inline_title = title
+        self.label.setText(title)
+        self.bar.setValue(0)
+        self.show()
+        log.info("%s: started", title)
+        return self._inline
+
+    def inline_progress(self, fraction: float, text: str = "") -> None:
+        from PySide6.QtWidgets import QApplication
+
+        self.bar.setValue(int(1000 * max(0.0, min(1.0, fraction))))
+        self.label.setText(f"{self._inline_title}: {text}" if text else self._inline_title)
+        QApplication.processEvents()
+
+    def end_inline(self) -> None:
+        self._inline = None
         if not self.jobs:
             self.hide()
-        else:
-            self.label.setText(self.jobs[-1].title)
 
     def cancel_all(self) -> None:
         """Set the cancel event of every running job."""
         for job in list(self.jobs):
             job.cancel()
+        if getattr(self, "_inline", None) is not None:
+            self._inline.set()
 
     @property
     def busy(self) -> bool:

@@ -88,7 +88,10 @@ def table_picture(
     fm = QFontMetrics(font)
     cells = [["" if c is None else str(c) for c in r] for r in rows]
     widths = [
-        max([fm.horizontalAdvance(h) + 16] + [fm.horizontalAdvance(r[i]) + 12 for r in cells if i < len(r)])
+        max(
+            [fm.horizontalAdvance(h) + 16]
+            + [fm.horizontalAdvance(r[i]) + 12 for r in cells if i < len(r)]
+        )
         for i, h in enumerate(header)
     ]
     row_h = fm.height() + 6
@@ -101,7 +104,11 @@ def table_picture(
         if title:
             p.setFont(bold)
             p.setPen(QColor("#111111"))
-            p.drawText(QRectF(4, 2, width - 8, row_h), Qt.AlignmentFlag.AlignLeft | Qt.AlignmentFlag.AlignVCenter, title)
+            p.drawText(
+                QRectF(4, 2, width - 8, row_h),
+                Qt.AlignmentFlag.AlignLeft | Qt.AlignmentFlag.AlignVCenter,
+                title,
+            )
         y = top
         p.fillRect(QRectF(4, y, width - 8, row_h), QColor("#E8E8E8"))
         p.setFont(bold)
