@@ -164,12 +164,24 @@ def _offsets(dark_offset, channels: tuple[str, ...]) -> tuple[float, ...]:
 def _robust_polyfit(
     x: np.ndarray, y: np.ndarray, z: np.ndarray, degree: int, iterations: int = 6
 ) -> tuple[np.ndarray, float]:
-    """Tukey-biweight IRLS fit of a 2-D polynomial; returns coefficients and relative rms."""
+    """Robust fit of a 2-D polynomial; returns coefficients and relative rms.
+
+    Least absolute deviations first (iteratively reweighted; robust to a large share of flake
+    pixels), then Tukey's biweight for efficiency on the substrate pixels.
+    """
     terms = _terms(degree)
     a = np.stack([x**i * y**j for i, j in terms], axis=1)
     w = np.ones_like(z)
     coef = np.zeros(len(terms))
     scale = 1.0
+    eps = 1e-6 * max(float(np.median(np.abs(z))), 1e-12)
+    for _ in range(12):
+        aw = a * w[:, None]
+        coef = np.linalg.lstsq(aw.T @ a, aw.T @ z, rcond=None)[0]
+        w = 1.0 / np.maximum(np.abs(z - a @ coef), eps)
+    r = z - a @ coef
+    scale = 1.4826 * np.median(np.abs(r))
+    w = np.ones_like(z) if scale <= 0 else np.where(np.abs(r) < 4.685 * scale, 1.0, 0.0)
     for _ in range(iterations):
         aw = a * w[:, None]
         coef = np.linalg.lstsq(aw.T @ a, aw.T @ z, rcond=None)[0]
@@ -183,6 +195,67 @@ def _robust_polyfit(
     return coef, (scale / level if level > 0 else float("nan"))
 
 
+def _initial_substrate(
+    img: np.ndarray, blocks: int = 16, bins: int = 40, tol: float = 0.04
+) -> np.ndarray:
+    """Plausible bare-substrate pixels for a first illumination fit.
+
+    The image is cut into about ``blocks`` x ``blocks`` tiles; each tile's modal colour (per
+    channel, log intensity) is found, and tiles are joined by flood fill from the tile nearest the
+    image's dominant colour, stepping only between neighbours whose modes differ by less than
+    ``tol`` (illumination changes slowly, a flake's edge is a step). Pixels near their accepted
+    tile's mode are returned (bool ``[row, col]``).
+    """
+    from collections import deque
+
+    rows, cols, nch = img.shape
+    lg = np.log(np.maximum(img, 1e-6)).astype(np.float64)
+    bsz = max(2, int(np.ceil(max(rows, cols) / blocks)))
+    by = np.minimum(np.arange(rows) // bsz, (rows - 1) // bsz)
+    bx = np.minimum(np.arange(cols) // bsz, (cols - 1) // bsz)
+    nby, nbx = int(by[-1]) + 1, int(bx[-1]) + 1
+    bidx = (by[:, None] * nbx + bx[None, :]).ravel()
+    nb = nby * nbx
+    modes = np.zeros((nb, nch))
+    purity = np.ones(nb)
+    near_all = np.ones(rows * cols, bool)
+    for c in range(nch):
+        v = lg[:, :, c].ravel()
+        lo, hi = np.percentile(v, [0.5, 99.5])
+        width = max((hi - lo) / bins, 1e-6)
+        q = np.clip(((v - lo) / width).astype(np.int64), 0, bins - 1)
+        hist = np.bincount(bidx * bins + q, minlength=nb * bins).reshape(nb, bins).astype(float)
+        sm = hist.copy()
+        sm[:, 1:] += hist[:, :-1]
+        sm[:, :-1] += hist[:, 1:]
+        mb = np.argmax(sm, axis=1)
+        near = np.abs(q - mb[bidx]) <= 1
+        cnt = np.bincount(bidx, weights=near, minlength=nb)
+        tot = np.bincount(bidx, minlength=nb)
+        modes[:, c] = np.bincount(bidx, weights=np.where(near, v, 0.0), minlength=nb) / np.maximum(
+            cnt, 1
+        )
+        purity = np.minimum(purity, cnt / np.maximum(tot, 1))
+        near_all &= np.abs(q - mb[bidx]) <= 2
+    # Start from the tile whose mode is the most common among the tiles (dominant colour).
+    d = np.abs(modes[:, None, :] - modes[None, :, :]).max(-1)
+    support = ((d < tol) * (purity[None, :] > 0.3)).sum(1)
+    start = int(np.argmax(support + purity))
+    accepted = np.zeros(nb, bool)
+    accepted[start] = True
+    queue = deque([start])
+    while queue:
+        i = queue.popleft()
+        iy, ix = divmod(i, nbx)
+        for jy, jx in ((iy - 1, ix), (iy + 1, ix), (iy, ix - 1), (iy, ix + 1)):
+            if 0 <= jy < nby and 0 <= jx < nbx:
+                j = jy * nbx + jx
+                if not accepted[j] and purity[j] > 0.3 and d[i, j] < tol:
+                    accepted[j] = True
+                    queue.append(j)
+    return (accepted[bidx] & near_all).reshape(rows, cols)
+
+
 def fit_background(
     image: Micrograph,
     *,
@@ -194,6 +267,8 @@ def fit_background(
     substrate_mask: np.ndarray | None = None,
     work: np.ndarray | None = None,
     factor: int | None = None,
+    exclude_work: np.ndarray | None = None,
+    _refit: bool = False,
 ) -> Background:
     """Fit the background correction of ``image``.
 
@@ -211,12 +286,13 @@ def fit_background(
             by default substrate pixels are found as those close to a robust smooth surface.
         work, factor: a block-averaged working copy of ``image.intensity`` and its factor (see
             :mod:`flakebook.imaging._grid`), if the caller has one already.
+        exclude_work: bool mask on the working grid of pixels known not to be bare substrate.
 
     Returns:
         A :class:`Background`; apply it with :func:`apply_background` or crop by crop with
         :meth:`Background.correct`.
     """
-    if any(c.startswith("dark offset") for c in image.corrections):
+    if not _refit and any(c.startswith("dark offset") for c in image.corrections):
         raise InputError(
             f"{image.path or 'image'}: the dark offset was already subtracted; accepted: "
             "subtract it once (pass dark_offset=0 for an already corrected image)"
@@ -281,6 +357,12 @@ def fit_background(
     if substrate_mask is not None:
         sm = _grid.block_max(~np.asarray(substrate_mask, bool), f)[:wr, :wc]
         ok &= ~sm[::step, ::step].ravel()
+    if exclude_work is not None:
+        ok &= ~np.asarray(exclude_work, bool)[:wr:step, :wc:step].ravel()
+    elif substrate_mask is None:
+        init = _initial_substrate(smooth[::step, ::step] - np.asarray(offs, np.float32))
+        if np.count_nonzero(ok & init.ravel()) >= 3 * len(_terms(degree)):
+            ok &= init.ravel()
     warnings: list[str] = []
     if np.count_nonzero(ok) < 3 * len(_terms(degree)):
         raise InputError(

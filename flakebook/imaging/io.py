@@ -367,12 +367,17 @@ def from_array(
             f"{where}: image of shape {a.shape} has no pixels; accepted: a 2-D (mono) or "
             "3-D [row, col, channel] array with at least one pixel"
         )
-    if a.ndim == 3 and a.shape[2] == 4:
+    if channels is not None and a.ndim == 3 and a.shape[2] != len(channels):
+        raise InputError(f"{where}: {len(channels)} channel names for {a.shape[2]} channels")
+    if channels is None and a.ndim == 3 and a.shape[2] == 4:
         a = a[:, :, :3]
     if a.ndim == 3 and a.shape[2] == 1:
         a = a[:, :, 0]
-    if a.ndim == 3 and a.shape[2] != 3:
-        raise InputError(f"{where}: {a.shape[2]} channels; accepted: 1 (mono), 3 (RGB) or 4 (RGBA)")
+    if channels is None and a.ndim == 3 and a.shape[2] != 3:
+        raise InputError(
+            f"{where}: {a.shape[2]} channels without names; accepted: 1 (mono), 3 (RGB), "
+            "4 (RGBA), or any number with their names given"
+        )
     if transfer not in ("auto", "srgb", "linear"):
         raise InputError(f"transfer {transfer!r}; accepted: auto, srgb, linear")
     if a.dtype == np.uint8:
@@ -390,14 +395,16 @@ def from_array(
     if transfer == "auto":
         transfer = "srgb" if bit_depth == 8 else "linear"
     colour = a.ndim == 3
-    if colour and order == "bgr":
+    if colour and order == "bgr" and a.shape[2] == 3:
         a = cv2.cvtColor(np.ascontiguousarray(a), cv2.COLOR_BGR2RGB)
     elif not colour or not a.flags.c_contiguous:
         a = np.ascontiguousarray(a)
 
     # Saturation: the maximum over channels at or above the white level.
-    if colour:
+    if colour and a.shape[2] == 3:
         peak = cv2.reduce(a.reshape(-1, 3), 1, cv2.REDUCE_MAX).reshape(a.shape[:2])
+    elif colour:
+        peak = a.max(axis=2)
     else:
         peak = a
     saturated = peak >= level
@@ -405,7 +412,8 @@ def from_array(
     # 8-bit: intensity relative to 255 (the white level only sets the saturation mask);
     # 16-bit: relative to the white level (a 12-bit camera in a 16-bit file saturates at 4095).
     if bit_depth == 8:
-        lin = cv2.LUT(a, _SRGB_LUT_8 if transfer == "srgb" else _LINEAR_LUT_8)
+        lut = _SRGB_LUT_8 if transfer == "srgb" else _LINEAR_LUT_8
+        lin = cv2.LUT(a, lut) if not colour or a.shape[2] == 3 else lut[a]
     else:
         lin = a.astype(np.float32)
         if bit_depth == 16:
@@ -414,7 +422,7 @@ def from_array(
             lin = srgb_to_linear(np.clip(lin, 0, 1)).astype(np.float32)
     if lin.ndim == 2:
         lin = lin[:, :, None]
-    names = channels or (("r", "g", "b") if colour else ("mono",))
+    names = tuple(channels) if channels else (("r", "g", "b") if colour else ("mono",))
     if len(names) != lin.shape[2]:
         raise InputError(f"{where}: {len(names)} channel names for {lin.shape[2]} channels")
     warnings: list[str] = []

@@ -105,6 +105,7 @@ class Segmentation:
         factor: the working copy's downsampling factor.
         um_per_px: the scale used for areas.
         warnings: messages for the user.
+        background: the background correction finally used (refitted without the flakes).
     """
 
     channels: tuple[str, ...]
@@ -119,6 +120,7 @@ class Segmentation:
     factor: int
     um_per_px: float
     warnings: tuple[str, ...] = ()
+    background: Background | None = None
 
     def to_dict(self) -> dict:
         return {
@@ -140,6 +142,10 @@ def substrate_colour(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The dominant colour of an image and the pixels that have it.
 
+    The colour with most pixels around it: a histogram of log intensity (so that dark regions,
+    whose absolute noise is smaller, do not win by a sharper peak), summed over a 3-bin
+    neighbourhood in every channel, then refined to the median and spread of the pixels near it.
+
     Args:
         work: float ``[row, col, ch]`` intensity (background-corrected).
         valid: bool ``[row, col]`` of pixels that may count (e.g. unsaturated).
@@ -148,13 +154,19 @@ def substrate_colour(
     Returns:
         (level per channel, robust standard deviation per channel, bool mask of substrate pixels).
     """
+    from scipy.ndimage import uniform_filter
+
     rows, cols, nch = work.shape
+    if nch > 3:
+        bins = max(4, int(round(110_000 ** (1.0 / nch))))
     step = max(1, int(np.sqrt(rows * cols / 4e5)))
-    sample = work[::step, ::step].reshape(-1, nch)
+    lin = work[::step, ::step].reshape(-1, nch)
     if valid is not None:
-        sample = sample[valid[::step, ::step].ravel()]
-    if sample.shape[0] == 0:
+        lin = lin[valid[::step, ::step].ravel()]
+    if lin.shape[0] == 0:
         raise InputError("no usable (unsaturated) pixels in the image")
+    floor = max(float(np.percentile(lin, 99.5)) * 1e-3, 1e-6)
+    sample = np.log(np.maximum(lin, floor))
     lo = np.percentile(sample, 0.5, axis=0)
     hi = np.percentile(sample, 99.5, axis=0)
     width = np.maximum(hi - lo, 1e-6) / bins
@@ -162,16 +174,11 @@ def substrate_colour(
     key = np.zeros(q.shape[0], np.int64)
     for c in range(nch):
         key = key * bins + q[:, c]
-    counts = np.bincount(key, minlength=bins**nch)
-    peak = int(np.argmax(counts))
-    idx = []
-    for _c in range(nch):
-        idx.append(peak % bins)
-        peak //= bins
-    centre = lo + (np.array(idx[::-1]) + 0.5) * width
-    # Refine: median and MAD of the pixels near the peak, twice.
-    tol = 1.5 * width
-    level = centre
+    counts = np.bincount(key, minlength=bins**nch).astype(np.float64).reshape((bins,) * nch)
+    mass = uniform_filter(counts, size=3, mode="constant")
+    idx = np.array(np.unravel_index(int(np.argmax(mass)), mass.shape))
+    level = lo + (idx + 0.5) * width
+    tol = 2.0 * width
     sd = width
     for _ in range(3):
         near = np.all(np.abs(sample - level) <= tol, axis=1)
@@ -179,12 +186,15 @@ def substrate_colour(
             break
         level = np.median(sample[near], axis=0)
         sd = 1.4826 * np.median(np.abs(sample[near] - level), axis=0)
-        sd = np.maximum(sd, 1e-6 * np.maximum(np.abs(level), 1e-6))
+        sd = np.maximum(sd, 1e-6)
         tol = np.maximum(4.0 * sd, 0.5 * width)
-    mask = np.all(np.abs(work - level.astype(np.float32)) <= tol.astype(np.float32), axis=2)
+    lev_lin = np.exp(level)
+    lo_lin = np.exp(level - tol).astype(np.float32)
+    hi_lin = np.exp(level + tol).astype(np.float32)
+    mask = np.all((work >= lo_lin) & (work <= hi_lin), axis=2)
     if valid is not None:
         mask &= valid
-    return level, sd, mask
+    return lev_lin, sd * lev_lin, mask
 
 
 def contrast_image(intensity: np.ndarray, substrate: np.ndarray | dict) -> np.ndarray:
@@ -225,6 +235,11 @@ def correlation_area(patches: list[np.ndarray], max_lag: int = 8) -> float:
     if cov[0, 0] <= 0:
         return 1.0
     rho = cov / cov[0, 0]
+    # Lags whose correlation is not significant (3 standard errors) count as zero, so that the
+    # estimate of white noise is not the sum of a few hundred noisy terms.
+    insignificant = np.abs(rho) < 3.0 / np.sqrt(norm)
+    insignificant[0, 0] = False
+    rho = np.where(insignificant, 0.0, rho)
     return float(np.clip(rho.sum(), 1.0, (2 * max_lag + 1) ** 2))
 
 
@@ -346,9 +361,11 @@ def segment(
     min_area_um2: float = 20.0,
     background: Background | None = None,
     exclude: np.ndarray | None = None,
+    holes: list[tuple[float, float, float]] | None = None,
     work: np.ndarray | None = None,
     factor: int | None = None,
     threshold_sigma: float = 6.0,
+    refine_background: bool = True,
     min_contrast: float = 0.01,
     progress=None,
     cancel=None,
@@ -360,11 +377,16 @@ def segment(
         um_per_px: the image scale.
         min_area_um2: flakes and terraces smaller than this are left out.
         background: the background correction (default: a degree-2 polynomial fitted here).
-        exclude: optional bool working-resolution mask of pixels that are not flake (bare holes).
+        exclude: optional bool working-resolution mask of pixels that are not flake.
+        holes: hole disks ``(x, y, radius)`` in full-resolution pixels. Pixels of a bare hole
+            (those whose contrast lies between the substrate's and that of the holes with bare
+            substrate around them) are not flake; a terrace lying over a hole is kept even when
+            smaller than ``min_area_um2`` (a membrane).
         work, factor: a working copy of the raw intensity and its factor, if the caller has one.
         threshold_sigma: a pixel is non-substrate where its smoothed contrast exceeds this many
             noise standard deviations in some channel (and ``min_contrast``).
         min_contrast: the smallest contrast magnitude counted as a flake.
+        refine_background: refit a polynomial background once with the flakes found left out.
         progress, cancel: INTERFACE.md's progress callback and cancel event.
 
     Returns:
@@ -387,49 +409,79 @@ def segment(
     check_cancel(cancel)
     # Working copy corrected for dark offset and illumination: gain evaluated at the working
     # pixel centres (an exact evaluation of the smooth surface on the coarse grid).
-    wgain = _work_gain(background, wr, wc, f)
-    wcorr = (work - np.asarray(background.dark_offset, np.float32)) * wgain
     valid = ~_grid.block_max(image.saturated, f)[:wr, :wc]
-    if not np.any(valid):
-        raise InputError(
-            f"{image.path or 'image'}: every pixel is saturated; accepted: an image exposed below "
-            "the camera's full scale"
-        )
-    level, sd_work, sub_mask = substrate_colour(wcorr, valid)
-    if np.any(level <= 0):
-        raise InputError(
-            f"{image.path or 'image'}: the substrate is black (level {level.min():.3g}); "
-            "accepted: an exposed image of a chip with bare substrate in view"
-        )
-    frac = float(np.count_nonzero(sub_mask)) / float(np.count_nonzero(valid))
-    if frac < 0.05:
-        raise InputError(
-            f"{image.path or 'image'}: no bare substrate visible (the dominant colour covers "
-            f"{100 * frac:.1f}% of the image); accepted: an image with bare substrate in view"
-        )
-    if frac < 0.2:
-        warnings.append(
-            f"little bare substrate: the dominant colour covers only {100 * frac:.0f}% of the "
-            "image, so the reference for contrast may be wrong"
-        )
-    if progress:
-        progress(0.2, "substrate")
+    hole_w = [
+        (float(_grid.to_work(x, f)), float(_grid.to_work(y, f)), r / f) for x, y, r in holes or ()
+    ]
+    for attempt in range(2):
+        wgain = _work_gain(background, wr, wc, f)
+        wcorr = (work - np.asarray(background.dark_offset, np.float32)) * wgain
+        if not np.any(valid):
+            raise InputError(
+                f"{image.path or 'image'}: every pixel is saturated; accepted: an image exposed below "
+                "the camera's full scale"
+            )
+        level, sd_work, sub_mask = substrate_colour(wcorr, valid)
+        if np.any(level <= 0):
+            raise InputError(
+                f"{image.path or 'image'}: the substrate is black (level {level.min():.3g}); "
+                "accepted: an exposed image of a chip with bare substrate in view"
+            )
+        frac = float(np.count_nonzero(sub_mask)) / float(np.count_nonzero(valid))
+        spread = float(np.max(sd_work / level))
+        if spread > 0.2:
+            raise InputError(
+                f"{image.path or 'image'}: no bare substrate visible (no uniform dominant colour: "
+                f"its spread is {100 * spread:.0f}%); accepted: an image with bare substrate in view"
+            )
+        if frac < 0.05:
+            raise InputError(
+                f"{image.path or 'image'}: no bare substrate visible (the dominant colour covers "
+                f"{100 * frac:.1f}% of the image); accepted: an image with bare substrate in view"
+            )
+        if frac < 0.2:
+            warnings.append(
+                f"little bare substrate: the dominant colour covers only {100 * frac:.0f}% of the "
+                "image, so the reference for contrast may be wrong"
+            )
+        if progress:
+            progress(0.2, "substrate")
 
-    # Smoothed contrast on the working grid; its noise on the substrate sets the threshold.
-    cw = contrast_image(wcorr, level)
-    cs = cv2.GaussianBlur(cw, (0, 0), 1.0)
-    if cs.ndim == 2:
-        cs = cs[:, :, None]
-    sub_vals = cs[sub_mask]
-    sd_s = 1.4826 * np.median(np.abs(sub_vals - np.median(sub_vals, axis=0)), axis=0)
-    quant = 1.0 / (255.0 if image.bit_depth == 8 else 65535.0) / np.maximum(level, 1e-6)
-    sd_s = np.maximum(sd_s, quant)
-    if np.all(sd_s <= quant * 1.0001) and float(np.ptp(cw[valid])) < 1e-6:
-        warnings.append("the image is uniform: no flakes and no noise to measure")
-    thr = np.maximum(threshold_sigma * sd_s, min_contrast).astype(np.float32)
-    fg = np.any(np.abs(cs) > thr, axis=2) & valid
-    if exclude is not None:
-        fg &= ~exclude[:wr, :wc]
+        # Smoothed contrast on the working grid; its noise on the substrate sets the threshold.
+        cw = contrast_image(wcorr, level)
+        cs = cv2.GaussianBlur(cw, (0, 0), 1.0)
+        if cs.ndim == 2:
+            cs = cs[:, :, None]
+        sub_vals = cs[sub_mask]
+        sd_s = 1.4826 * np.median(np.abs(sub_vals - np.median(sub_vals, axis=0)), axis=0)
+        quant = 1.0 / (255.0 if image.bit_depth == 8 else 65535.0) / np.maximum(level, 1e-6)
+        sd_s = np.maximum(sd_s, quant)
+        if np.all(sd_s <= quant * 1.0001) and float(np.ptp(cw[valid])) < 1e-6:
+            warnings.append("the image is uniform: no flakes and no noise to measure")
+        thr = np.maximum(threshold_sigma * sd_s, min_contrast).astype(np.float32)
+        fg = np.any(np.abs(cs) > thr, axis=2) & valid
+        if exclude is not None:
+            fg &= ~exclude[:wr, :wc]
+        bare_mask, bare_c = _bare_hole_pixels(cs, sub_mask, hole_w, thr)
+        fg &= ~bare_mask
+        # A smooth surface can bend into a large flake; fit it again with everything that is
+        # not bare substrate left out.
+        if attempt == 0 and refine_background and background.method == "polynomial" and fg.any():
+            grow_ex = cv2.dilate((~sub_mask | fg).astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
+            try:
+                background = fit_background(
+                    image,
+                    dark_offset=dict(zip(image.channels, background.dark_offset)),
+                    degree=background.degree,
+                    work=work,
+                    factor=f,
+                    exclude_work=grow_ex,
+                    _refit=True,
+                )
+            except InputError:
+                break
+            continue
+        break
     fg = cv2.morphologyEx(
         fg.astype(np.uint8), cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (3, 3))
     )
@@ -441,8 +493,10 @@ def segment(
         progress(0.4, "flakes")
 
     # Noise at full resolution and its correlation, from patches of bare substrate.
-    psize = 48
-    corners = _substrate_patches(sub_mask, f, psize)
+    for psize in (48, 32, 24):
+        corners = _substrate_patches(sub_mask, f, psize)
+        if corners:
+            break
     noise = {}
     corr = {}
     if corners:
@@ -454,7 +508,7 @@ def segment(
             ps = [p[:, :, c] for p in pcs]
             allv = np.concatenate([p.ravel() for p in ps])
             noise[name] = float(1.4826 * np.median(np.abs(allv - np.median(allv))))
-            corr[name] = correlation_area(ps)
+            corr[name] = correlation_area(ps, max_lag=min(8, psize // 3))
     else:
         for c, name in enumerate(image.channels):
             noise[name] = float(sd_work[c] / level[c] * f)
@@ -464,7 +518,7 @@ def segment(
     n_sub = max(1.0, float(np.count_nonzero(sub_mask)) * f * f)
     sub_rel = {name: noise[name] * np.sqrt(corr[name] / n_sub) for name in image.channels}
 
-    bw = np.maximum(3.0 * sd_s, 0.004)
+    bw = np.maximum(3.0 * sd_s, 0.015)
     flakes: list[Flake] = []
     regions: list[Region] = []
     labels = np.zeros((wr, wc), np.int32)
@@ -472,38 +526,66 @@ def segment(
     kernel = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (3, 3))
     order = [i for i in range(1, nlab) if stats[i, cv2.CC_STAT_AREA] >= min_px_work]
     order.sort(key=lambda i: -stats[i, cv2.CC_STAT_AREA])
+    pad = 3
+    erode5 = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
+    grow = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * pad + 1, 2 * pad + 1))
+    usable = valid & ~bare_mask
+    if exclude is not None:
+        usable &= ~exclude[:wr, :wc]
     for k, comp in enumerate(order):
         check_cancel(cancel)
         x0, y0, w, h = (int(v) for v in stats[comp, :4])
-        sl = (slice(y0, y0 + h), slice(x0, x0 + w))
-        fmask = flab[sl] == comp
-        fid = len(flakes) + 1
-        flake_labels[sl][fmask] = fid
-        vecs = cs[sl][fmask]
+        cmask = (flab[y0 : y0 + h, x0 : x0 + w] == comp).astype(np.uint8)
+        # Modes from the interior only: the blurred rim between flake and substrate would
+        # otherwise form rings of intermediate contrast.
+        interior = cv2.erode(np.pad(cmask, 2), erode5)[2:-2, 2:-2] > 0
+        if np.count_nonzero(interior) < 6:
+            interior = cmask > 0
+        vecs = cs[y0 : y0 + h, x0 : x0 + w][interior]
         lab, centres = _terrace_labels(vecs, bw)
-        tl = np.zeros((h, w), np.int32)
-        tl[fmask] = lab + 1
+        weight = np.bincount(lab, minlength=len(centres))
+        centres = centres[weight >= max(6, 0.1 * min_px_work)]
+        if len(centres) == 0:
+            continue
+        # Every pixel near the component goes to the nearest of {substrate, terrace modes} by
+        # its smoothed contrast: edges then sit half-way, where a blurred step crosses 50%.
+        px0, py0 = max(0, x0 - pad), max(0, y0 - pad)
+        px1, py1 = min(wc, x0 + w + pad), min(wr, y0 + h + pad)
+        near = cv2.dilate((flab[py0:py1, px0:px1] == comp).astype(np.uint8), grow) > 0
+        near &= usable[py0:py1, px0:px1]
+        near &= flake_labels[py0:py1, px0:px1] == 0
+        z = cs[py0:py1, px0:px1] / bw
+        cz = np.vstack([np.zeros((1, z.shape[2])), centres / bw])
+        d2 = ((z[:, :, None, :] - cz[None, None, :, :]) ** 2).sum(-1)
+        tl = np.argmin(d2, axis=2).astype(np.int32)
+        tl[~near] = 0
+        fmask = tl > 0
+        if np.count_nonzero(fmask) < min_px_work:
+            continue
+        fid = len(flakes) + 1
+        flake_labels[py0:py1, px0:px1][fmask] = fid
         rids = []
-        for t in range(len(centres)):
-            tm = (tl == t + 1).astype(np.uint8)
-            if np.count_nonzero(tm) < min_px_work:
+        for t in range(1, len(cz)):
+            tm = (tl == t).astype(np.uint8)
+            if np.count_nonzero(tm) < 6:
                 continue
             tm = cv2.morphologyEx(tm, cv2.MORPH_OPEN, kernel)
             n2, lab2, st2, _ = cv2.connectedComponentsWithStats(tm, connectivity=8)
             for j in range(1, n2):
-                if st2[j, cv2.CC_STAT_AREA] < min_px_work:
+                if st2[j, cv2.CC_STAT_AREA] < min_px_work and not _over_hole(
+                    st2[j], px0, py0, hole_w
+                ):
                     continue
                 rx, ry, rw, rh = (int(v) for v in st2[j, :4])
                 rmask = lab2[ry : ry + rh, rx : rx + rw] == j
                 rid = len(regions) + 1
-                labels[y0 + ry : y0 + ry + rh, x0 + rx : x0 + rx + rw][rmask] = rid
                 reg = _measure_region(
                     image,
                     background,
                     level,
                     rmask,
-                    x0 + rx,
-                    y0 + ry,
+                    px0 + rx,
+                    py0 + ry,
                     f,
                     rid,
                     fid,
@@ -513,19 +595,24 @@ def segment(
                     sub_rel,
                 )
                 if reg is not None:
+                    labels[py0 + ry : py0 + ry + rh, px0 + rx : px0 + rx + rw][rmask] = rid
                     regions.append(reg)
                     rids.append(rid)
-        full = _full_crop_mask(fmask, f)
+        ys, xs = np.nonzero(fmask)
+        bx0, bx1, by0, by1 = xs.min(), xs.max(), ys.min(), ys.max()
+        crop = fmask[by0 : by1 + 1, bx0 : bx1 + 1]
+        full = _full_crop_mask(crop, f)
         yy, xx = np.nonzero(full)
         area_px = int(len(yy))
+        ox, oy = (px0 + bx0) * f, (py0 + by0) * f
         flakes.append(
             Flake(
                 id=fid,
                 area_px=area_px,
                 area_um2=float(area_px * um_per_px**2),
-                bbox_px=(x0 * f, y0 * f, (x0 + w) * f - 1, (y0 + h) * f - 1),
-                centroid_px=(float(xx.mean() + x0 * f), float(yy.mean() + y0 * f)),
-                outline_px=_outline(fmask, x0, y0, f),
+                bbox_px=(ox, oy, ox + full.shape[1] - 1, oy + full.shape[0] - 1),
+                centroid_px=(float(xx.mean() + ox), float(yy.mean() + oy)),
+                outline_px=_outline(crop, px0 + bx0, py0 + by0, f),
                 region_ids=tuple(rids),
             )
         )
@@ -546,7 +633,67 @@ def segment(
         factor=f,
         um_per_px=float(um_per_px),
         warnings=tuple(warnings),
+        background=background,
     )
+
+
+def _bare_hole_pixels(
+    cs: np.ndarray, sub_mask: np.ndarray, hole_w: list, thr: np.ndarray
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """Pixels of bare holes (working grid) and the bare holes' contrast vector."""
+    mask = np.zeros(cs.shape[:2], bool)
+    if not hole_w:
+        return mask, None
+    rows, cols = mask.shape
+    inner, bare = [], []
+    for x, y, r in hole_w:
+        x0, x1 = max(0, int(x - 1.6 * r - 3)), min(cols, int(x + 1.6 * r + 4))
+        y0, y1 = max(0, int(y - 1.6 * r - 3)), min(rows, int(y + 1.6 * r + 4))
+        if x1 <= x0 or y1 <= y0:
+            inner.append(None)
+            continue
+        yy, xx = np.ogrid[y0:y1, x0:x1]
+        d = np.hypot(xx - x, yy - y)
+        core = d < 0.6 * r
+        ring = (d > r + 1.5) & (d < 1.5 * r + 1.5)
+        if not core.any():
+            inner.append(None)
+            continue
+        c = np.median(cs[y0:y1, x0:x1][core], axis=0)
+        inner.append(c)
+        if ring.any() and np.mean(sub_mask[y0:y1, x0:x1][ring]) > 0.9:
+            bare.append(c)
+    if not bare:
+        return mask, None
+    cb = np.median(np.array(bare), axis=0)
+    # Distance of each pixel's contrast from the segment [0, cb] (mixtures of substrate and bare
+    # hole at the edge), in units of the detection threshold.
+    nb = float(np.dot(cb / thr, cb / thr))
+    for x, y, r in hole_w:
+        x0, x1 = max(0, int(x - r - 3)), min(cols, int(x + r + 4))
+        y0, y1 = max(0, int(y - r - 3)), min(rows, int(y + r + 4))
+        if x1 <= x0 or y1 <= y0:
+            continue
+        yy, xx = np.ogrid[y0:y1, x0:x1]
+        disk = np.hypot(xx - x, yy - y) <= r + 2.0
+        v = cs[y0:y1, x0:x1] / thr
+        t = np.clip((v @ (cb / thr)) / max(nb, 1e-12), 0, 1)
+        dist = np.sqrt(((v - t[..., None] * (cb / thr)) ** 2).sum(-1))
+        mask[y0:y1, x0:x1] |= disk & (dist < 1.5)
+    return mask, cb
+
+
+def _over_hole(stat: np.ndarray, x0: int, y0: int, hole_w: list) -> bool:
+    """Whether a small component (crop stats) lies over a hole and fills a good part of it."""
+    if not hole_w:
+        return False
+    cx = x0 + stat[0] + stat[2] / 2.0
+    cy = y0 + stat[1] + stat[3] / 2.0
+    area = float(stat[cv2.CC_STAT_AREA])
+    for x, y, r in hole_w:
+        if np.hypot(cx - x, cy - y) < r and area >= max(6.0, 0.2 * np.pi * r * r):
+            return True
+    return False
 
 
 def _work_gain(bg: Background, wr: int, wc: int, f: int) -> np.ndarray:

@@ -1,0 +1,388 @@
+"""Survey of a micrograph: flakes, terraces, their layer evidence, holes and coverage.
+
+One call does the whole path for one image: read it (linear intensity), subtract the dark offset
+and flatten the illumination, find the holes, find the bare substrate, the flakes and their
+terraces, measure each terrace's contrast (C = 1 - I / I_substrate per channel, DESIGN.md), turn it
+into a likelihood over layer number with the thin-film model of the sample and the microscope
+(flakebook.optics.layers.layer_likelihood; a terrace over a hole uses the suspended model with the
+bare supported substrate as reference), and rank the terraces by their probability of having a
+layer number in ``target_layers``. The results are frozen dataclasses with ``to_dict()`` giving
+INTERFACE.md's survey JSON.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from flakebook import evidence
+from flakebook.errors import InputError, check_cancel
+from flakebook.imaging import _grid
+from flakebook.imaging.background import Background, fit_background
+from flakebook.imaging.holes import (
+    Coverage,
+    Hole,
+    Lattice,
+    circle_polygon_area,
+    detect_holes,
+    fit_lattice,
+    hole_coverage,
+    predict_hidden_holes,
+)
+from flakebook.imaging.io import Micrograph, from_array, read_image
+from flakebook.imaging.scale import Scale, given_scale
+from flakebook.imaging.segment import Flake, Region, Segmentation, segment
+
+
+@dataclass(frozen=True, eq=False)
+class SurveyRegion:
+    """A terrace with its contrast and layer evidence."""
+
+    region: Region
+    geometry: str  # "supported" or "suspended"
+    hole_index: int | None  # index into SurveyResult.holes for a suspended terrace
+    layers: int | None
+    probability: float | None
+    ambiguous_with: tuple[int, ...]
+    likelihood: np.ndarray | None
+    posterior: np.ndarray | None
+    target_probability: float
+    decider: str = ""
+    warnings: tuple[str, ...] = ()
+
+    @property
+    def id(self) -> int:
+        return self.region.id
+
+    def to_dict(self) -> dict:
+        r = self.region
+        return {
+            "id": r.id,
+            "flake_id": r.flake_id,
+            "centroid_px": list(r.centroid_px),
+            "area_um2": r.area_um2,
+            "bbox_px": list(r.bbox_px),
+            "outline_px": r.outline_px.tolist(),
+            "contrast": dict(r.contrast),
+            "contrast_err": dict(r.contrast_err),
+            "geometry": self.geometry,
+            "hole_index": self.hole_index,
+            "layers": self.layers,
+            "probability": self.probability,
+            "ambiguous_with": list(self.ambiguous_with),
+            "likelihood": None if self.likelihood is None else self.likelihood.tolist(),
+            "target_probability": self.target_probability,
+            "decider": self.decider,
+            "warnings": list(self.warnings),
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class FlakeHole:
+    """Coverage of one hole by one flake."""
+
+    flake_id: int
+    hole_index: int
+    coverage: Coverage
+
+    def to_dict(self) -> dict:
+        return {"flake_id": self.flake_id, "hole_index": self.hole_index, **self.coverage.to_dict()}
+
+
+@dataclass(frozen=True, eq=False)
+class SurveyResult:
+    """Everything a survey of one image found.
+
+    ``regions`` are ranked by ``target_probability`` (most promising first).
+    """
+
+    path: str | None
+    shape: tuple[int, int]
+    channels: tuple[str, ...]
+    scale: Scale
+    background: Background
+    segmentation: Segmentation
+    regions: tuple[SurveyRegion, ...]
+    flakes: tuple[Flake, ...]
+    holes: tuple[Hole, ...]
+    lattice: Lattice | None
+    coverage: tuple[FlakeHole, ...]
+    target_layers: tuple[int, ...]
+    warnings: tuple[str, ...] = ()
+    provenance: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        return {
+            "path": self.path,
+            "width_px": self.shape[1],
+            "height_px": self.shape[0],
+            "um_per_px": self.scale.um_per_px,
+            "scale": self.scale.to_dict(),
+            "target_layers": list(self.target_layers),
+            "substrate": dict(self.segmentation.substrate),
+            "background": self.background.to_dict(),
+            "regions": [r.to_dict() for r in self.regions],
+            "flakes": [f.to_dict() for f in self.flakes],
+            "holes": [h.to_dict() for h in self.holes],
+            "lattice": None if self.lattice is None else self.lattice.to_dict(),
+            "coverage": [c.to_dict() for c in self.coverage],
+            "warnings": list(self.warnings),
+            "provenance": self.provenance,
+        }
+
+
+def _as_image(source, transfer: str) -> Micrograph:
+    if isinstance(source, Micrograph):
+        return source
+    if isinstance(source, str | os.PathLike):
+        return read_image(source, transfer=transfer)
+    if isinstance(source, np.ndarray):
+        return from_array(source, transfer=transfer)
+    raise InputError(
+        f"cannot survey a {type(source).__name__}; accepted: a file path, a Micrograph or an array"
+    )
+
+
+def _mono(image: Micrograph) -> Micrograph:
+    """A colour image as one channel (mean of the channels) for monochromatic illumination."""
+    from dataclasses import replace
+
+    if image.channels == ("mono",):
+        return image
+    lin = image.intensity.mean(axis=2, keepdims=True, dtype=np.float32)
+    lin.setflags(write=False)
+    return replace(image, intensity=lin, channels=("mono",))
+
+
+def survey_image(
+    source,
+    *,
+    material,
+    substrate,
+    microscope,
+    scale_um_per_px: float | Scale,
+    min_area_um2: float = 20.0,
+    target_layers: Sequence[int] = (1, 2, 3),
+    max_layers: int = 15,
+    dark_offset: float | dict[str, float] = 0.0,
+    oxide_err_nm: float = 0.0,
+    contrast_scale: float = 1.0,
+    contrast_scale_err: float = 0.0,
+    background: str = "polynomial",
+    reference: Micrograph | None = None,
+    find_holes: bool = True,
+    hole_radius_um: float | None = None,
+    hole=None,
+    transfer: str = "auto",
+    progress: Callable[[float, str], None] | None = None,
+    cancel=None,
+) -> SurveyResult:
+    """Survey one micrograph.
+
+    Args:
+        source: an image file path, a :class:`Micrograph`, or an array (see ``from_array``).
+        material: a material name (``"MoSe2"``) or a ``flakebook.optics.materials.Material``.
+        substrate: a substrate spec (``"SiO2:285,Si"``) or a ``Substrate``.
+        microscope: a ``flakebook.optics.microscope.Microscope`` (its channels must match the
+            image's: ``r, g, b`` for colour, ``mono`` for a single channel; a colour image under
+            monochromatic illumination is averaged to one channel).
+        scale_um_per_px: micrometres per pixel, or a :class:`Scale`.
+        min_area_um2: smallest flake and terrace reported (terraces over a hole are kept).
+        target_layers: the layer numbers a candidate should have; regions are ranked by their
+            posterior probability of lying in this set.
+        max_layers: N_max of the likelihoods.
+        dark_offset: the camera's dark offset (fraction of full scale), subtracted once.
+        oxide_err_nm, contrast_scale, contrast_scale_err: passed to the layer likelihood.
+        background: ``"polynomial"``, ``"reference"`` (with ``reference``) or ``"none"``.
+        find_holes: look for holes; ``hole_radius_um`` narrows the search to 0.6x-1.6x of it.
+        hole: a ``flakebook.optics.substrate.Hole`` (bottom and depth) for suspended terraces.
+        progress, cancel: INTERFACE.md's progress callback and cancel event.
+
+    Returns:
+        A :class:`SurveyResult`.
+    """
+    from flakebook.optics.layers import layer_likelihood
+    from flakebook.optics.materials import Material, get_material
+    from flakebook.optics.substrate import Hole as OpticsHole
+    from flakebook.optics.substrate import Substrate, parse_substrate
+
+    def report(frac: float, text: str) -> None:
+        if progress is not None:
+            progress(frac, text)
+
+    check_cancel(cancel)
+    mat = material if isinstance(material, Material) else get_material(str(material))
+    sub = substrate if isinstance(substrate, Substrate) else parse_substrate(str(substrate))
+    scale = scale_um_per_px if isinstance(scale_um_per_px, Scale) else given_scale(scale_um_per_px)
+    targets = tuple(sorted({int(n) for n in target_layers}))
+    if not targets or min(targets) < 1 or max(targets) > max_layers:
+        raise InputError(
+            f"target layers {list(target_layers)}; accepted: layer numbers from 1 to {max_layers}"
+        )
+    report(0.0, "reading")
+    image = _as_image(source, transfer)
+    names = tuple(microscope.channel_names)
+    if names == ("mono",) and image.channels != ("mono",):
+        image = _mono(image)
+    if image.channels != names:
+        raise InputError(
+            f"{image.path or 'image'} has channels {', '.join(image.channels)} but the microscope "
+            f"gives {', '.join(names)}; accepted: a colour image with --channels srgb, a mono "
+            "image with --channels mono or --wavelength-nm"
+        )
+    check_cancel(cancel)
+    warnings = list(image.warnings)
+    f = _grid.choose_factor(image.shape)
+    work = _grid.downsample(image.intensity, f)
+    report(0.1, "background")
+    bg = fit_background(
+        image, dark_offset=dark_offset, method=background, reference=reference, work=work, factor=f
+    )
+    warnings.extend(bg.warnings)
+    check_cancel(cancel)
+
+    holes: tuple[Hole, ...] = ()
+    if find_holes:
+        report(0.25, "holes")
+        holes = detect_holes(
+            image.intensity,
+            um_per_px=scale.um_per_px,
+            um_per_px_err=scale.um_per_px_err,
+            radius_um=hole_radius_um,
+            work=work,
+            factor=f,
+            cancel=cancel,
+        )
+    report(0.4, "flakes")
+    seg = segment(
+        image,
+        um_per_px=scale.um_per_px,
+        min_area_um2=min_area_um2,
+        background=bg,
+        holes=[(h.center_px[0], h.center_px[1], h.radius_px) for h in holes],
+        work=work,
+        factor=f,
+        cancel=cancel,
+    )
+    warnings.extend(w for w in seg.warnings if w not in warnings)
+    bg = seg.background or bg
+    check_cancel(cancel)
+
+    lattice = None
+    if len(holes) >= 4:
+        lattice = fit_lattice(np.array([h.center_px for h in holes]))
+        if lattice is not None:
+            hidden = predict_hidden_holes(
+                holes, lattice, image.shape, [fl.outline_px for fl in seg.flakes]
+            )
+            holes = holes + hidden
+
+    coverage: list[FlakeHole] = []
+    for fl in seg.flakes:
+        x0, y0, x1, y1 = fl.bbox_px
+        for k, h in enumerate(holes):
+            cx, cy = h.center_px
+            r = h.radius_px
+            if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
+                continue
+            cov = hole_coverage(fl.outline_px, h, scale.um_per_px)
+            if cov.covered_fraction > 0:
+                coverage.append(FlakeHole(fl.id, k, cov))
+
+    report(0.7, "layer evidence")
+    ohole = hole if hole is not None else OpticsHole()
+    sat_channels = ()
+    out_regions: list[SurveyRegion] = []
+    for reg in seg.regions:
+        check_cancel(cancel)
+        geometry, hidx = "supported", None
+        for k, h in enumerate(holes):
+            if (
+                math.hypot(reg.centroid_px[0] - h.center_px[0], reg.centroid_px[1] - h.center_px[1])
+                > h.radius_px
+            ):
+                continue
+            inside = circle_polygon_area(reg.outline_px, h.center_px, h.radius_px)
+            if inside >= 0.5 * min(reg.area_px, math.pi * h.radius_px**2):
+                geometry, hidx = "suspended", k
+                break
+        rwarn: list[str] = []
+        try:
+            like = layer_likelihood(
+                reg.contrast,
+                reg.contrast_err,
+                material=mat,
+                substrate=sub,
+                microscope=microscope,
+                max_layers=max_layers,
+                oxide_err_nm=oxide_err_nm,
+                contrast_scale=contrast_scale,
+                contrast_scale_err=contrast_scale_err,
+                geometry=geometry,
+                hole=ohole if geometry == "suspended" else None,
+                saturated=sat_channels,
+            )
+        except InputError as exc:
+            rwarn.append(f"no layer evidence: {exc}")
+            out_regions.append(
+                SurveyRegion(reg, geometry, hidx, None, None, (), None, None, 0.0, "", tuple(rwarn))
+            )
+            continue
+        post = evidence.combine([like.likelihood])
+        tp = float(sum(post.posterior[n - 1] for n in targets))
+        rwarn.extend(like.warnings)
+        out_regions.append(
+            SurveyRegion(
+                reg,
+                geometry,
+                hidx,
+                post.layers,
+                post.probability,
+                post.ambiguous_with,
+                like.likelihood,
+                post.posterior,
+                tp,
+                like.decider,
+                tuple(rwarn),
+            )
+        )
+    out_regions.sort(key=lambda r: (-r.target_probability, -r.region.area_um2))
+    report(1.0, "done")
+    from flakebook import __version__
+
+    return SurveyResult(
+        path=image.path,
+        shape=image.shape,
+        channels=image.channels,
+        scale=scale,
+        background=bg,
+        segmentation=seg,
+        regions=tuple(out_regions),
+        flakes=seg.flakes,
+        holes=holes,
+        lattice=lattice,
+        coverage=tuple(coverage),
+        target_layers=targets,
+        warnings=tuple(warnings),
+        provenance={
+            "method": "flakebook survey: polynomial or reference flat field, dominant-colour "
+            "substrate, mean-shift terraces, robust mean contrast with correlated-noise error, "
+            "thin-film layer likelihood",
+            "version": __version__,
+            "material": mat.name,
+            "substrate": sub.spec,
+            "microscope": {
+                "na_illumination": microscope.na_illumination,
+                "illumination": microscope.illumination.label,
+                "channels": list(names),
+            },
+            "min_area_um2": min_area_um2,
+            "dark_offset": list(bg.dark_offset),
+            "background": bg.describe(),
+            "working_factor": f,
+        },
+    )
