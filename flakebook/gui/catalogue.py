@@ -145,7 +145,7 @@ class CatalogueModel(QAbstractTableModel):
                 return QBrush(QColor("#FFF1CC"))
         if role == Qt.ItemDataRole.DecorationRole and index.column() == 0 and self.thumbnail:
             fid = row["id"]
-            if fid not in self._thumbs:
+            if self._thumbs.get(fid) is None:
                 self._thumbs[fid] = self.thumbnail(row)
             return self._thumbs[fid]
         if role == Qt.ItemDataRole.ToolTipRole and row.get("stale"):

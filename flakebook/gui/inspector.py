@@ -148,7 +148,8 @@ class Inspector(QScrollArea):
         self.con_plot.hideButtons()
         self.con_plot.setLabel("left", "contrast C")
         self.con_plot.setLabel("bottom", "layers N")
-        self.con_plot.addLegend(offset=(5, 5), labelTextSize="8pt")
+        self.con_key = QLabel(body)
+        self.con_key.setTextFormat(Qt.TextFormat.RichText)
         self.con_note = QLabel(
             "Model per channel (points), measured contrast (line, band ±1σ), "
             "C = (R_substrate − R_flake)/R_substrate.",
@@ -166,6 +167,8 @@ class Inspector(QScrollArea):
         self.holes.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeMode.Stretch)
         self.holes.setMaximumHeight(120)
         self.holes.setEditTriggers(QTableWidget.EditTrigger.NoEditTriggers)
+
+        self.no_holes = QLabel("No hole under this flake.", body)
 
         # Appearances
         self.appearances = QLabel(body)
@@ -220,12 +223,14 @@ class Inspector(QScrollArea):
         g2 = QGroupBox("Contrast against the model", body)
         l2 = QVBoxLayout(g2)
         l2.addWidget(self.con_plot)
+        l2.addWidget(self.con_key)
         l2.addWidget(self.con_note)
         l2.addWidget(self.decide)
         lay.addWidget(g2)
         g3 = QGroupBox("Holes covered", body)
         l3 = QVBoxLayout(g3)
         l3.addWidget(self.holes)
+        l3.addWidget(self.no_holes)
         l3.addWidget(self.appearances)
         lay.addWidget(g3)
         g4 = QGroupBox("Tags and notes", body)
@@ -348,9 +353,7 @@ class Inspector(QScrollArea):
     def _show_contrast(self, flake: dict) -> None:
         plot = self.con_plot
         plot.clear()
-        legend = plot.plotItem.legend
-        if legend is not None:
-            legend.clear()
+        keys = []
         contrast = flake.get("contrast") or {}
         errs = flake.get("contrast_err") or {}
         raw_model = self.model_curves
@@ -362,10 +365,14 @@ class Inspector(QScrollArea):
         decider = (raw_model or {}).get("_decider") or ""
         nmax = int(flake.get("max_layers") or 15)
         best = flake.get("layers")
+        n_show = min(nmax, max(6, (best or 1) + 3))
+        ys: list[float] = []
         for i, ch in enumerate(sorted(set(contrast) | set(model or {}))):
             colour, symbol = channel_style(ch, i)
+            keys.append(f"<span style='color:{colour}'>&#9679; {ch}</span>")
             if model and ch in model:
-                curve = np.asarray(model[ch], float)[:nmax]
+                curve = np.asarray(model[ch], float)[:n_show]
+                ys.extend(curve.tolist())
                 n = np.arange(1, len(curve) + 1)
                 plot.plot(
                     n,
@@ -380,6 +387,7 @@ class Inspector(QScrollArea):
             if ch in contrast and contrast[ch] is not None:
                 c = float(contrast[ch])
                 e = float(errs.get(ch) or 0.0)
+                ys.extend([c - e, c + e])
                 band = pg.LinearRegionItem(
                     (c - e, c + e),
                     orientation="horizontal",
@@ -412,7 +420,12 @@ class Inspector(QScrollArea):
                         symbolPen=pg.mkPen(colour, width=2),
                         name=f"measured {ch}",
                     )
-        plot.setXRange(0.5, min(nmax, 10) + 0.5, padding=0)
+        plot.setXRange(0.5, n_show + 0.5, padding=0)
+        if ys:
+            lo, hi = min(ys), max(ys)
+            pad = 0.08 * max(hi - lo, 0.05)
+            plot.setYRange(lo - pad, hi + pad, padding=0)
+        self.con_key.setText("channels: " + " &nbsp; ".join(keys) if keys else "")
         amb = [best] + list(flake.get("ambiguous_with") or []) if best else []
         text = "<b>What would decide:</b> "
         if decider:
@@ -450,6 +463,7 @@ class Inspector(QScrollArea):
             for j, c in enumerate(cells):
                 self.holes.setItem(i, j, QTableWidgetItem(c))
         self.holes.setVisible(bool(holes))
+        self.no_holes.setVisible(not holes)
 
     # ---- edits ---------------------------------------------------------------------------
     def _on_tags(self) -> None:

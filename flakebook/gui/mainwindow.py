@@ -92,6 +92,7 @@ class MainWindow(QMainWindow):
         self.browser_dock = QDockWidget("Project", self)
         self.browser_dock.setObjectName("projectDock")
         self.browser_dock.setWidget(self.browser)
+        self.browser_dock.setMinimumWidth(270)
         self.addDockWidget(Qt.DockWidgetArea.LeftDockWidgetArea, self.browser_dock)
 
         self.inspector = Inspector(self)
@@ -573,10 +574,10 @@ class MainWindow(QMainWindow):
         add_recent(session.path)
         log.info("Opened %s%s", session.path, " read-only" if session.read_only else "")
         self.undo_stack.clear()
-        self.refresh()
         first = session.first_image()
         if first is not None:
-            self.show_image(first)
+            self._guard(lambda: self.show_image(first), "Show image")
+        self.refresh()
         self._update_title()
         self._update_enabled()
         self.projectChanged.emit()

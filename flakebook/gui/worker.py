@@ -46,12 +46,16 @@ class Job(QRunnable):
         self.signals = JobSignals()
         self.started_at = 0.0
         self.done = threading.Event()
+        #: functions called with (fraction, text) in the worker thread at each progress report
+        self.progress_hooks: list[Callable[[float, str], None]] = []
 
     def cancel(self) -> None:
         """Ask the job to stop (the function sees its ``cancel`` event set)."""
         self.cancel_event.set()
 
     def _progress(self, fraction: float, text: str = "") -> None:
+        for hook in self.progress_hooks:  # called in the worker thread
+            hook(float(fraction), str(text))
         self.signals.progress.emit(float(fraction), str(text))
 
     def run(self) -> None:  # runs in the worker thread

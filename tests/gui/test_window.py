@@ -365,3 +365,37 @@ def test_pan_zoom_keep_pixel_mapping(qtbot, window):
     assert rect.left() == pytest.approx(c0 * f - 0.5) and rect.top() == pytest.approx(r0 * f - 0.5)
     assert rect.width() == pytest.approx((c1 - c0) * f)
     QPoint  # noqa: B018 - imported for the helper's type
+
+
+def test_find_flakes_cancel_halfway(qtbot, window):
+    """Flake finding runs in a worker; cancelled halfway it leaves the project as it was."""
+    p = window.session.project
+    n0 = len(p.flakes_of(1))
+    job = window.find_flakes()
+    assert window.jobs.isVisible() and window.jobs.cancel_button.isVisible()
+    # press Cancel the moment the survey reports it is halfway (hole search done)
+    job.progress_hooks.append(lambda f, t: job.cancel() if f >= 0.25 else None)
+    cancelled = []
+    job.signals.cancelled.connect(lambda: cancelled.append(True))
+    qtbot.waitUntil(lambda: job.done.is_set() and not window.jobs.busy, timeout=20000)
+    assert cancelled
+    assert len(p.flakes_of(1)) == n0
+    assert window.undo_stack.count() == 0
+    assert not window.errors
+
+
+def test_find_flakes_then_undo(qtbot, window):
+    """A full run stores flakes with evidence and ranks them; undo removes them again."""
+    p = window.session.project
+    n0 = len(p.flakes_of(1))
+    job = window.find_flakes()
+    qtbot.waitUntil(lambda: job.done.is_set() and not window.jobs.busy, timeout=20000)
+    assert not window.errors, window.errors
+    n1 = len(p.flakes_of(1))
+    assert n1 > n0
+    new = [f for f in p.flakes_of(1)][n0:]
+    assert all(p.evidence_of(f) for f in new)
+    texts = [window.candidates.list.item(i).text() for i in range(window.candidates.list.count())]
+    assert any("1L," in t for t in texts)
+    window.a_undo.trigger()
+    assert len(p.flakes_of(1)) == n0
