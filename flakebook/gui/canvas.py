@@ -20,7 +20,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import QEvent, QPointF, QRectF, Qt, Signal
 from PySide6.QtGui import QBrush, QColor, QPainterPath, QPen, QPolygonF
-from PySide6.QtWidgets import QGraphicsPathItem, QLabel
+from PySide6.QtWidgets import QGraphicsEllipseItem, QGraphicsPathItem, QLabel
 
 from flakebook.gui import palette
 
@@ -113,27 +113,43 @@ class OutlineItem(QGraphicsPathItem):
         return 0.5 * abs(float(np.dot(x, np.roll(y, 1)) - np.dot(y, np.roll(x, 1))))
 
 
-class HoleItem(pg.CircleROI):
-    """A hole: drag to move, the handle to resize, right-click to remove."""
+class HoleItem(QGraphicsEllipseItem):
+    """A hole as drawn: a circle (dashed when found by detection or the lattice)."""
 
     def __init__(self, shape: HoleShape) -> None:
         r = float(shape.radius_px)
-        pen = pg.mkPen(
-            palette.HOLE_COLOUR,
-            width=1.5,
-            style=Qt.PenStyle.DashLine if shape.detected else Qt.PenStyle.SolidLine,
-        )
+        super().__init__(shape.x_px - r, shape.y_px - r, 2 * r, 2 * r)
+        pen = QPen(QColor(palette.HOLE_COLOUR), 1.5)
+        pen.setCosmetic(True)
+        if shape.detected:
+            pen.setStyle(Qt.PenStyle.DashLine)
+        self.setPen(pen)
+        self.hole_id = shape.hole_id
+        self.shape_data = shape
+        self.setZValue(20)
+
+    def centre_radius(self) -> tuple[float, float, float]:
+        s = self.shape_data
+        return float(s.x_px), float(s.y_px), float(s.radius_px)
+
+
+class HoleHandle(pg.CircleROI):
+    """The hole picked with the select tool: drag to move, the handle to resize, right-click
+    or Delete to remove."""
+
+    def __init__(self, hole: HoleItem) -> None:
+        x, y, r = hole.centre_radius()
         super().__init__(
-            (shape.x_px - r, shape.y_px - r),
+            (x - r, y - r),
             (2 * r, 2 * r),
-            pen=pen,
-            hoverPen=pg.mkPen("#FFFFFF", width=2),
-            handlePen=pg.mkPen(palette.HOLE_COLOUR),
+            pen=pg.mkPen("#FFFFFF", width=2),
+            hoverPen=pg.mkPen(palette.HOLE_COLOUR, width=2),
+            handlePen=pg.mkPen("#FFFFFF"),
             removable=True,
             movable=True,
         )
-        self.hole_id = shape.hole_id
-        self.setZValue(20)
+        self.hole_id = hole.hole_id
+        self.setZValue(25)
 
     def centre_radius(self) -> tuple[float, float, float]:
         pos = self.pos()
@@ -251,6 +267,7 @@ class ImageCanvas(pg.GraphicsView):
         self._measure_text.setVisible(False)
         self.view.addItem(self._measure_text)
         self._edit_roi: pg.PolyLineROI | None = None
+        self._hole_roi: HoleHandle | None = None
         self._edit_appearance: int | None = None
         self.um_per_px: float | None = None
 
@@ -366,15 +383,48 @@ class ImageCanvas(pg.GraphicsView):
 
     def set_holes(self, shapes: list[HoleShape]) -> None:
         """Replace the holes shown."""
+        self.release_hole()
         for item in self.holes.values():
             self.view.removeItem(item)
         self.holes = {}
         for shape in shapes:
             item = HoleItem(shape)
-            item.sigRegionChangeFinished.connect(self._on_hole_moved)
-            item.sigRemoveRequested.connect(self._on_hole_remove)
             self.view.addItem(item)
             self.holes[shape.hole_id] = item
+
+    def hole_at(self, x: float, y: float) -> int | None:
+        """The hole whose disk holds (x, y) (the nearest centre), else None."""
+        best, best_d = None, math.inf
+        for hid, item in self.holes.items():
+            hx, hy, r = item.centre_radius()
+            d = math.hypot(x - hx, y - hy)
+            if d <= r and d < best_d:
+                best, best_d = hid, d
+        return best
+
+    def pick_hole(self, hole_id: int) -> bool:
+        """Make a hole movable and resizable (one at a time)."""
+        self.release_hole()
+        item = self.holes.get(hole_id)
+        if item is None:
+            return False
+        roi = HoleHandle(item)
+        roi.sigRegionChangeFinished.connect(self._on_hole_moved)
+        roi.sigRemoveRequested.connect(self._on_hole_remove)
+        self.view.addItem(roi)
+        item.setVisible(False)
+        self._hole_roi = roi
+        return True
+
+    def release_hole(self) -> None:
+        roi = self._hole_roi
+        if roi is None:
+            return
+        self._hole_roi = None
+        self.view.removeItem(roi)
+        item = self.holes.get(roi.hole_id)
+        if item is not None:
+            item.setVisible(True)
 
     def set_legend(self, layers: list[int], unknown: bool = False) -> None:
         """The legend naming the layer numbers drawn (always shows the palette's name)."""
@@ -426,9 +476,7 @@ class ImageCanvas(pg.GraphicsView):
             raise ValueError(f"unknown tool {name!r}")
         self.cancel_tool()
         self.tool = name
-        movable = name == "select"
-        for item in self.holes.values():
-            item.translatable = movable
+        self.release_hole()
         self.setCursor(
             Qt.CursorShape.ArrowCursor if name == "select" else Qt.CursorShape.CrossCursor
         )
@@ -453,6 +501,11 @@ class ImageCanvas(pg.GraphicsView):
         """A left click at image point (x, y) with the current tool (the mouse calls this)."""
         tool = self.tool
         if tool == "select":
+            hole = self.hole_at(x, y)
+            if hole is not None:
+                self.pick_hole(hole)
+                return
+            self.release_hole()
             self.flakeClicked.emit(self.flake_at(x, y))
         elif tool == "hole":
             self.holePlaced.emit(x, y, float(self.default_hole_radius_px))
@@ -571,20 +624,22 @@ class ImageCanvas(pg.GraphicsView):
             return
         if self.tool == "select" and self._edit_roi is not None:
             return
-        # Clicks on a hole's handle or body belong to the hole in the select tool.
-        if self.tool == "select":
+        # Clicks on the picked hole or its handle belong to it.
+        if self.tool == "select" and self._hole_roi is not None:
             for item in self.scene().items(ev.scenePos()):
-                if isinstance(item, HoleItem | pg.graphicsItems.ROI.Handle):
+                if item is self._hole_roi or isinstance(item, pg.graphicsItems.ROI.Handle):
                     return
         x, y = self.image_point(ev.scenePos())
         self.click(x, y, double=ev.double())
 
-    def _on_hole_moved(self, roi: HoleItem) -> None:
+    def _on_hole_moved(self, roi: HoleHandle) -> None:
         x, y, r = roi.centre_radius()
         self.holeChanged.emit(roi.hole_id, x, y, r)
 
-    def _on_hole_remove(self, roi: HoleItem) -> None:
-        self.holeRemoveRequested.emit(roi.hole_id)
+    def _on_hole_remove(self, roi: HoleHandle) -> None:
+        hid = roi.hole_id
+        self.release_hole()
+        self.holeRemoveRequested.emit(hid)
 
     def eventFilter(self, obj, event) -> bool:  # noqa: N802 - Qt API
         if event.type() == QEvent.Type.Leave:
@@ -595,6 +650,11 @@ class ImageCanvas(pg.GraphicsView):
         key = ev.key()
         if key == Qt.Key.Key_Escape:
             self.cancel_tool()
+            self.release_hole()
+            ev.accept()
+            return
+        if key in (Qt.Key.Key_Delete, Qt.Key.Key_Backspace) and self._hole_roi is not None:
+            self._on_hole_remove(self._hole_roi)
             ev.accept()
             return
         if key in (Qt.Key.Key_Return, Qt.Key.Key_Enter):

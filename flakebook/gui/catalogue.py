@@ -305,11 +305,23 @@ class CatalogueView(QWidget):
     def set_rows(self, rows: list[dict]) -> None:
         current = self.current_flake()
         self._quiet = True
+        first = not self.model.rows
         self.model.set_rows(rows)
-        self.table.resizeColumnsToContents()
+        if first and rows:
+            self._fit_columns()
         self.select_flake(current)
         self._quiet = False
         self._count()
+
+    def _fit_columns(self) -> None:
+        """Column widths from the header and the first rows (not every row: that is slow)."""
+        fm = self.table.fontMetrics()
+        for i, (key, head, _tip) in enumerate(COLUMNS):
+            texts = [head] + [_text(key, r.get(key)) for r in self.model.rows[:50]]
+            w = max(fm.horizontalAdvance(t) for t in texts) + 18
+            if i == 0:
+                w += 50  # the thumbnail
+            self.table.setColumnWidth(i, min(w, 260))
 
     def _count(self, *args) -> None:
         total = len(self.model.rows)

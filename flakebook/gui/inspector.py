@@ -113,6 +113,7 @@ class Inspector(QScrollArea):
         body = QWidget(self)
         self.setWidget(body)
         self.flake: dict | None = None
+        self._ch_items: dict[str, dict] = {}
         self.model_curves: dict[str, np.ndarray] | None = None
 
         self.title = QLabel("No flake selected", body)
@@ -308,8 +309,7 @@ class Inspector(QScrollArea):
         post = flake.get("posterior")
         plot = self.post_plot
         if self.bars is not None:
-            plot.removeItem(self.bars)
-            self.bars = None
+            self.bars.setVisible(bool(post))
         if not post:
             self.verdict.setText(
                 "No layer evidence yet: find flakes on the image or add a spectrum."
@@ -323,10 +323,12 @@ class Inspector(QScrollArea):
             x=x, height=post, width=0.8, brushes=brushes, pen=pg.mkPen("#333333")
         )
         plot.addItem(self.bars)
-        ticks = [(int(n), str(int(n))) for n in x[:-1] if n <= 5 or n % 5 == 0 or n == nmax]
-        ticks.append((len(post), f">{nmax}"))
-        plot.getAxis("bottom").setTicks([ticks])
-        plot.setXRange(0.4, len(post) + 0.6, padding=0)
+        if getattr(self, "_post_nmax", None) != nmax:  # axis changes are slow: only when needed
+            self._post_nmax = nmax
+            ticks = [(int(n), str(int(n))) for n in x[:-1] if n <= 5 or n % 5 == 0 or n == nmax]
+            ticks.append((len(post), f">{nmax}"))
+            plot.getAxis("bottom").setTicks([ticks])
+            plot.setXRange(0.4, len(post) + 0.6, padding=0)
         layers = flake.get("layers")
         p = flake.get("probability")
         amb = flake.get("ambiguous_with") or []
@@ -350,9 +352,51 @@ class Inspector(QScrollArea):
             lines.append(f"• <b>{ev.get('method', '?')}</b>: {ev.get('reason') or ''}{src}{stale}")
         self.evidence.setText("<br>".join(lines) if lines else "<i>No evidence recorded.</i>")
 
+    def _channel_items(self, ch: str, index: int) -> dict:
+        """The plot items of one channel, made once and reused (rebuilding them is slow)."""
+        items = self._ch_items.get(ch)
+        if items is None:
+            colour, symbol = channel_style(ch, index)
+            plot = self.con_plot
+            items = {
+                "colour": colour,
+                "model": plot.plot(
+                    [],
+                    [],
+                    pen=pg.mkPen(colour, width=1),
+                    symbol=symbol,
+                    symbolSize=6,
+                    symbolBrush=colour,
+                    symbolPen=None,
+                ),
+                "band": pg.LinearRegionItem(
+                    (0, 0),
+                    orientation="horizontal",
+                    movable=False,
+                    brush=pg.mkBrush(colour + "30"),
+                    pen=pg.mkPen(None),
+                ),
+                "line": pg.InfiniteLine(
+                    0, angle=0, pen=pg.mkPen(colour, width=1, style=Qt.PenStyle.DashLine)
+                ),
+                "bar": pg.ErrorBarItem(
+                    x=np.array([1.0]),
+                    y=np.array([0.0]),
+                    height=np.array([0.0]),
+                    beam=0.25,
+                    pen=pg.mkPen(colour, width=2),
+                ),
+                "point": plot.plot(
+                    [], [], pen=None, symbol="x", symbolSize=10, symbolPen=pg.mkPen(colour, width=2)
+                ),
+            }
+            for key in ("band", "line", "bar"):
+                plot.addItem(items[key])
+            self._ch_items[ch] = items
+        return items
+
     def _show_contrast(self, flake: dict) -> None:
         plot = self.con_plot
-        plot.clear()
         keys = []
         contrast = flake.get("contrast") or {}
         errs = flake.get("contrast_err") or {}
@@ -367,64 +411,48 @@ class Inspector(QScrollArea):
         best = flake.get("layers")
         n_show = min(nmax, max(6, (best or 1) + 3))
         ys: list[float] = []
-        for i, ch in enumerate(sorted(set(contrast) | set(model or {}))):
-            colour, symbol = channel_style(ch, i)
+        channels = sorted(set(contrast) | set(model or {}))
+        for ch, items in self._ch_items.items():
+            if ch not in channels:
+                for key in ("model", "band", "line", "bar", "point"):
+                    items[key].setVisible(False)
+        for i, ch in enumerate(channels):
+            items = self._channel_items(ch, i)
+            colour = items["colour"]
             keys.append(f"<span style='color:{colour}'>&#9679; {ch}</span>")
             if model and ch in model:
                 curve = np.asarray(model[ch], float)[:n_show]
                 ys.extend(curve.tolist())
-                n = np.arange(1, len(curve) + 1)
-                plot.plot(
-                    n,
-                    curve,
-                    pen=pg.mkPen(colour, width=1),
-                    symbol=symbol,
-                    symbolSize=6,
-                    symbolBrush=colour,
-                    symbolPen=None,
-                    name=f"model {ch}",
-                )
-            if ch in contrast and contrast[ch] is not None:
+                items["model"].setData(np.arange(1, len(curve) + 1), curve)
+                items["model"].setVisible(True)
+            else:
+                items["model"].setVisible(False)
+            has = ch in contrast and contrast[ch] is not None
+            for key in ("band", "line"):
+                items[key].setVisible(has)
+            items["bar"].setVisible(bool(has and best))
+            items["point"].setVisible(bool(has and best))
+            if has:
                 c = float(contrast[ch])
                 e = float(errs.get(ch) or 0.0)
                 ys.extend([c - e, c + e])
-                band = pg.LinearRegionItem(
-                    (c - e, c + e),
-                    orientation="horizontal",
-                    movable=False,
-                    brush=pg.mkBrush(colour + "30"),
-                    pen=pg.mkPen(None),
-                )
-                plot.addItem(band)
-                plot.addItem(
-                    pg.InfiniteLine(
-                        c, angle=0, pen=pg.mkPen(colour, width=1, style=Qt.PenStyle.DashLine)
-                    )
-                )
+                items["band"].setRegion((c - e, c + e))
+                items["line"].setValue(c)
                 if best:
-                    plot.addItem(
-                        pg.ErrorBarItem(
-                            x=np.array([best]),
-                            y=np.array([c]),
-                            height=np.array([2 * e]),
-                            beam=0.25,
-                            pen=pg.mkPen(colour, width=2),
-                        )
+                    items["bar"].setData(
+                        x=np.array([float(best)]), y=np.array([c]), height=np.array([2 * e])
                     )
-                    plot.plot(
-                        [best],
-                        [c],
-                        pen=None,
-                        symbol="x",
-                        symbolSize=10,
-                        symbolPen=pg.mkPen(colour, width=2),
-                        name=f"measured {ch}",
-                    )
-        plot.setXRange(0.5, n_show + 0.5, padding=0)
+                    items["point"].setData([best], [c])
+        ranges = (n_show, None)
         if ys:
             lo, hi = min(ys), max(ys)
             pad = 0.08 * max(hi - lo, 0.05)
-            plot.setYRange(lo - pad, hi + pad, padding=0)
+            ranges = (n_show, (round(lo - pad, 3), round(hi + pad, 3)))
+        if ranges != getattr(self, "_con_ranges", None):  # range changes are slow: only when needed
+            self._con_ranges = ranges
+            plot.setXRange(0.5, n_show + 0.5, padding=0)
+            if ranges[1] is not None:
+                plot.setYRange(*ranges[1], padding=0)
         self.con_key.setText("channels: " + " &nbsp; ".join(keys) if keys else "")
         amb = [best] + list(flake.get("ambiguous_with") or []) if best else []
         text = "<b>What would decide:</b> "

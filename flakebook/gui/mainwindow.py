@@ -209,10 +209,10 @@ class MainWindow(QMainWindow):
         self.addAction(self.a_undo)
         self.addAction(self.a_redo)
         self.a_delete = A(
-            "&Delete selected flake",
+            "&Delete selection",
             self.delete_selected,
             S.Delete,
-            "Delete the selected flake and its outlines",
+            "Delete the picked hole, or the selected flake with its outlines",
             "deleteFlake",
         )
         self.a_edit_outline = A(
@@ -576,7 +576,7 @@ class MainWindow(QMainWindow):
         self.undo_stack.clear()
         first = session.first_image()
         if first is not None:
-            self._guard(lambda: self.show_image(first), "Show image")
+            self._guard(lambda: self.show_image(first, overlays=False), "Show image")
         self.refresh()
         self._update_title()
         self._update_enabled()
@@ -680,7 +680,7 @@ class MainWindow(QMainWindow):
         self.scale_label.setText(f"{um:.4g} µm/px" if um else "no scale: draw a scale line (S)")
 
     # ---- images and flakes -------------------------------------------------------------------
-    def show_image(self, image_id: int) -> None:
+    def show_image(self, image_id: int, *, overlays: bool = True) -> None:
         s = self._need_session(write=False)
         shown = s.load_image(image_id)
         self.current_image = image_id
@@ -690,10 +690,14 @@ class MainWindow(QMainWindow):
         self.canvas.set_image(shown.display, shown.um_per_px)
         for w in shown.warnings:
             log.warning("%s: %s", shown.name, w)
-        self._refresh_overlays()
+        if overlays:
+            self._refresh_overlays()
         self.browser.select_image(image_id)
         self.tabs.setCurrentWidget(self.canvas)
-        self._start_cursor_job(image_id)
+        # after the first paint: the conversion to linear intensity competes for the CPU
+        QTimer.singleShot(
+            300, lambda i=image_id: self._start_cursor_job(i) if self.current_image == i else None
+        )
         self.hint_label.setText(
             f"{shown.name}: {shown.display.shape[1]} × {shown.display.shape[0]} px"
         )
@@ -903,7 +907,14 @@ class MainWindow(QMainWindow):
         raise InputError("The selected flake has no outline in this image.")
 
     def delete_selected(self) -> None:
+        """Delete the picked hole, else the selected flake."""
         s = self._need_session()
+        roi = self.canvas._hole_roi
+        if roi is not None:
+            hid = roi.hole_id
+            self.canvas.release_hole()
+            self.delete_hole(hid)
+            return
         if self.current_flake is None:
             raise InputError("Select a flake to delete first.")
         fid = self.current_flake

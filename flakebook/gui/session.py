@@ -971,20 +971,20 @@ class Session:
     def model_job(self, details: dict):
         """Work giving the model contrast versus N per channel for the flake's measurement
         (flakebook.optics.layers.layer_likelihood) and its note on what would decide
-        (key ``"_decider"``)."""
-        from flakebook.optics.layers import layer_likelihood
-
+        (key ``"_decider"``). The optics objects are built in the worker (the material data
+        loads slowly the first time)."""
         sample = self.project.get(Sample, details["sample_id"])
         img = self.project.get(Image, details["image_id"])
-        material, substrate, microscope = optics_inputs(sample, img)
-        kw = {}
-        if details.get("geometry") == "suspended":
-            kw = {"geometry": "suspended", "hole": optics_hole(sample)}
+        suspended = details.get("geometry") == "suspended"
         contrast = dict(details["contrast"])
         err = dict(details.get("contrast_err") or {}) or None
         nmax = int(details.get("max_layers") or 15)
 
         def run(progress=None, cancel=None):
+            from flakebook.optics.layers import layer_likelihood
+
+            material, substrate, microscope = optics_inputs(sample, img)
+            kw = {"geometry": "suspended", "hole": optics_hole(sample)} if suspended else {}
             check_cancel(cancel)
             lk = layer_likelihood(
                 contrast,

@@ -32,6 +32,9 @@ class JobSignals(QObject):
     ended = Signal()
 
 
+_RUNNING: set = set()  # jobs in a worker thread, kept alive until their run() returns
+
+
 class Job(QRunnable):
     """``func(*args, progress=..., cancel=..., **kwargs)`` in a worker thread."""
 
@@ -69,13 +72,20 @@ class Job(QRunnable):
         except BaseException as exc:  # noqa: BLE001 - reported through the failed signal
             self.signals.failed.emit(exc)
         else:
-            if self.cancel_event.is_set():
-                self.signals.cancelled.emit()
-            else:
-                self.signals.finished.emit(result)
+            try:
+                if self.cancel_event.is_set():
+                    self.signals.cancelled.emit()
+                else:
+                    self.signals.finished.emit(result)
+            except RuntimeError:  # the window went away meanwhile
+                pass
         finally:
             self.done.set()
-            self.signals.ended.emit()
+            try:
+                self.signals.ended.emit()
+            except RuntimeError:  # the window went away meanwhile
+                pass
+            _RUNNING.discard(self)
 
 
 class JobBar(QWidget):
@@ -130,6 +140,7 @@ class JobBar(QWidget):
         self.bar.setValue(0)
         self.show()
         log.info("%s: started", job.title)
+        _RUNNING.add(job)
         QThreadPool.globalInstance().start(job)
         return job
 

@@ -399,3 +399,16 @@ def test_find_flakes_then_undo(qtbot, window):
     assert any("1L," in t for t in texts)
     window.a_undo.trigger()
     assert len(p.flakes_of(1)) == n0
+
+
+def test_pick_hole_and_delete_with_key(qtbot, window):
+    """With the select tool a click picks a hole up; Delete removes it; undo brings it back."""
+    p = window.session.project
+    n = len(p.holes_of(1))
+    _click_image(qtbot, window, 100, 380)  # the hole outside the flakes
+    assert window.canvas._hole_roi is not None
+    window.canvas.setFocus()
+    qtbot.keyClick(window.canvas, Qt.Key.Key_Delete)
+    assert len(p.holes_of(1)) == n - 1
+    window.a_undo.trigger()
+    assert len(p.holes_of(1)) == n
