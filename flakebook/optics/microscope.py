@@ -27,8 +27,14 @@ from pathlib import Path
 import numpy as np
 
 from flakebook.errors import InputError
-from flakebook.optics.materials import AIR, Material
-from flakebook.optics.stack import cone_nodes, transfer_matrix
+from flakebook.optics.materials import Material
+from flakebook.optics.stack import (
+    cone_nodes,
+    reflectance_from_admittance,
+    repeated_film_reflectance,
+    stack_admittance,
+    transfer_matrix,
+)
 from flakebook.optics.substrate import Hole, Substrate
 
 GEOMETRIES = ("supported", "suspended")
@@ -296,7 +302,7 @@ class Microscope:
     na_illumination: float = 0.0
     illumination: Illumination = field(default_factory=Illumination.halogen)
     channels: Channels = field(default_factory=Channels.srgb)
-    n_angles: int = 16
+    n_angles: int = 8
     wavelength_step_nm: float = DEFAULT_GRID_NM[2]
 
     def __post_init__(self) -> None:
@@ -378,17 +384,21 @@ def cone_reflectance(
     geometry: str = "supported",
     hole: Hole | None = None,
     quantity: str = "reflectance",
+    grid: bool = False,
 ) -> np.ndarray:
     """R (or T into the base, or the flake's absorbed fraction) averaged over a cone and s, p.
 
     ``material`` None (or ``layers`` empty) gives the bare stack. Returns shape
     (len(layers), len(wavelength_nm)); for the bare stack (1, len(wavelength_nm)).
-    ``quantity``: ``reflectance``, ``transmittance`` or ``absorptance_flake``.
+    ``quantity``: ``reflectance``, ``transmittance`` or ``absorptance_flake``. ``grid`` True
+    returns instead ``{"s": array, "p": array}`` of shape (layers, wavelengths, angles) before the
+    cone average (the nodes are :func:`flakebook.optics.stack.cone_nodes`).
     """
     lam = np.atleast_1d(np.asarray(wavelength_nm, float))
     st, wt = cone_nodes(na, n_angles)
     films, base = _below(substrate, geometry, hole)
     n_f, ne_f, d_f, n_b = _stack_indices(films, base, lam)
+    lay = None
     if material is not None:
         lay = np.atleast_1d(np.asarray(layers))
         if lay.size == 0:
@@ -396,37 +406,60 @@ def cone_reflectance(
         if np.any(lay < 0) or np.any(lay != np.round(lay)):
             raise InputError(f"layer numbers {layers!r}: accepted whole numbers >= 0")
         lay = lay.astype(int)
-        no, ne = _flake_indices(material, lay, lam)
-        d = _flake_thickness(material, lay)[:, None, None]
-        n_f = [no[:, :, None], *n_f]
-        ne_f = [ne[:, :, None] if material.is_uniaxial else None, *ne_f]
-        d_f = [d, *d_f]
+        _flake_thickness(material, lay)  # checks the layer spacing
     elif geometry != "supported":
         raise InputError("a suspended geometry needs a flake")
-    total = 0.0
+    if quantity not in ("reflectance", "transmittance", "absorptance_flake"):
+        raise InputError(f"quantity {quantity!r} unknown")
+    if quantity == "absorptance_flake" and material is None:
+        raise InputError("absorptance_flake needs a flake")
+    lam3, st3 = lam[None, :, None], st[None, None, :]
+    out: dict[str, np.ndarray] = {}
     for pol in ("s", "p"):
-        res = transfer_matrix(
-            n_f,
-            d_f,
-            AIR.nk(lam).real[None, :, None],
-            n_b,
-            lam[None, :, None],
-            st[None, None, :],
-            pol,
-            n_films_e=ne_f,
-        )
         if quantity == "reflectance":
-            q = res.reflectance
-        elif quantity == "transmittance":
-            q = res.transmittance
-        elif quantity == "absorptance_flake":
+            y_below = stack_admittance(n_f, d_f, 1.0, n_b, lam3, st3, pol, n_films_e=ne_f)
             if material is None:
-                raise InputError("absorptance_flake needs a flake")
-            q = res.absorptance_films[0]
+                q = reflectance_from_admittance(y_below, 1.0, st3, pol)
+            else:
+                q = np.empty((lay.size, lam.size, st.size))
+                for key, idx in _groups(material, lay).items():
+                    no = material.nk(lam, key)[None, :, None]
+                    ne = material.nk_extraordinary(lam, key)[None, :, None]
+                    q[idx] = repeated_film_reflectance(
+                        no,
+                        material.layer_spacing_nm,
+                        lay[idx],
+                        y_below,
+                        1.0,
+                        lam3,
+                        st3,
+                        pol,
+                        n_film_e=ne if material.is_uniaxial else None,
+                    )[:, 0]
         else:
-            raise InputError(f"quantity {quantity!r} unknown")
-        total = total + 0.5 * np.tensordot(q, wt, axes=([2], [0]))
-    return np.asarray(total)
+            nf, nef, df = n_f, ne_f, d_f
+            if material is not None:
+                no, ne = _flake_indices(material, lay, lam)
+                d = _flake_thickness(material, lay)[:, None, None]
+                nf = [no[:, :, None], *n_f]
+                nef = [ne[:, :, None] if material.is_uniaxial else None, *ne_f]
+                df = [d, *d_f]
+            res = transfer_matrix(nf, df, 1.0, n_b, lam3, st3, pol, n_films_e=nef)
+            q = res.transmittance if quantity == "transmittance" else res.absorptance_films[0]
+        out[pol] = np.broadcast_to(q, np.broadcast_shapes(np.shape(q), (1, lam.size, st.size)))
+    if grid:
+        return out
+    return 0.5 * (out["s"] @ wt + out["p"] @ wt)
+
+
+def _groups(material: Material, layers: np.ndarray) -> dict[int | None, np.ndarray]:
+    """Indices of ``layers`` that share one data set (layer-resolved sets, then bulk)."""
+    resolved = {n for n, _ in material.by_layers}
+    keys = [int(n) if int(n) in resolved else None for n in layers]
+    groups: dict[int | None, list[int]] = {}
+    for i, k in enumerate(keys):
+        groups.setdefault(k, []).append(i)
+    return {k: np.array(v) for k, v in groups.items()}
 
 
 @dataclass(frozen=True)

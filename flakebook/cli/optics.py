@@ -1,0 +1,403 @@
+"""Optics commands: materials, contrast, layers, absorptance (INTERFACE.md).
+
+Optical contrast here is C = 1 - (integral R_flake I S) / (integral R_reference I S) per channel,
+the reference being the bare supported substrate: positive when the flake is darker.
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import math
+from pathlib import Path
+
+from flakebook.cli import _common
+from flakebook.errors import InputError
+
+CONTRAST_NOTE = (
+    "contrast C = 1 - (integral R_flake I S)/(integral R_reference I S), reference: bare "
+    "substrate; positive when the flake is darker"
+)
+
+
+# ---- shared options -------------------------------------------------------------------------
+
+
+def _add_substrate(p: argparse.ArgumentParser, *, required: bool = True) -> None:
+    g = p.add_mutually_exclusive_group(required=required)
+    g.add_argument("--oxide-nm", type=float, help="SiO2 thickness on Si, nm")
+    g.add_argument("--substrate", metavar="SPEC", help="films top down, e.g. SiO2:285,Si")
+
+
+def _add_geometry(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--geometry", choices=("supported", "suspended"), default="supported")
+    p.add_argument("--hole-bottom", choices=("si", "au", "open"), default=None)
+    p.add_argument("--hole-depth-nm", type=float, default=None)
+
+
+def _add_light(p: argparse.ArgumentParser, *, required: bool = True) -> None:
+    g = p.add_mutually_exclusive_group(required=required)
+    g.add_argument("--wavelength-nm", type=float, help="one illumination wavelength, nm")
+    g.add_argument(
+        "--channels", metavar="srgb|mono|FILE.csv", help="camera channels (broadband light)"
+    )
+    p.add_argument(
+        "--na-illumination",
+        type=float,
+        default=0.3,
+        help="NA of the illumination cone (default 0.3; 0 = normal incidence)",
+    )
+    p.add_argument(
+        "--illumination",
+        default="halogen",
+        help="halogen (CIE illuminant A), blackbody:3200, band:450-650 or bandpass:550/10",
+    )
+
+
+def _substrate(args):
+    from flakebook.optics.substrate import substrate_from_options
+
+    if args.oxide_nm is not None:
+        _common.positive_float("--oxide-nm", args.oxide_nm, allow_zero=True)
+    return substrate_from_options(args.substrate, args.oxide_nm)
+
+
+def _hole(args):
+    from flakebook.optics.substrate import Hole
+
+    if args.geometry != "suspended":
+        if args.hole_bottom is not None or args.hole_depth_nm is not None:
+            raise InputError(
+                "--hole-bottom and --hole-depth-nm describe a hole; accepted only with "
+                "--geometry suspended"
+            )
+        return None
+    if args.hole_depth_nm is not None:
+        _common.positive_float("--hole-depth-nm", args.hole_depth_nm, allow_zero=True)
+    return Hole(args.hole_bottom or "si", args.hole_depth_nm)
+
+
+def _microscope(args):
+    from flakebook.optics.microscope import Channels, Illumination, Microscope
+
+    _common.positive_float("--na-illumination", args.na_illumination, allow_zero=True)
+    if args.wavelength_nm is not None:
+        _common.positive_float("--wavelength-nm", args.wavelength_nm)
+        illum = Illumination.monochromatic(args.wavelength_nm)
+        return Microscope(args.na_illumination, illum, Channels.mono())
+    illum = Illumination.parse(args.illumination)
+    return Microscope(args.na_illumination, illum, Channels.parse(args.channels))
+
+
+def _material(args):
+    from flakebook.optics.materials import get_material
+
+    return get_material(args.material)
+
+
+# ---- materials --------------------------------------------------------------------------------
+
+
+def _cmd_materials(args) -> int:
+    from flakebook.optics.materials import list_materials
+
+    rows = []
+    for m in list_materials():
+        lo, hi = m.wavelength_range_nm()
+        rows.append(
+            {
+                "name": m.name,
+                "data_set": m.data_set_text,
+                "wavelength_range_nm": [lo, hi],
+                "reference": m.reference,
+                "layer_spacing_nm": m.layer_spacing_nm,
+            }
+        )
+    if _common.output_format(args) == "table":
+        text = "\n\n".join(
+            f"{r['name']}  ({r['wavelength_range_nm'][0]:g}-{r['wavelength_range_nm'][1]:g} nm"
+            + (f", layer spacing {r['layer_spacing_nm']:g} nm" if r["layer_spacing_nm"] else "")
+            + f")\n  data: {r['data_set']}\n  reference: {r['reference']}"
+            for r in rows
+        )
+        _common.emit(args, {"materials": rows}, text=text)
+    else:
+        _common.emit(args, {"materials": rows}, rows=rows)
+    return 0
+
+
+# ---- contrast ---------------------------------------------------------------------------------
+
+
+def _cmd_contrast(args) -> int:
+    from flakebook.optics.microscope import channel_contrast
+
+    material = _material(args)
+    substrate = _substrate(args)
+    hole = _hole(args)
+    mic = _microscope(args)
+    layers = _common.parse_layer_range(args.layers)
+    table = channel_contrast(material, layers, substrate, mic, args.geometry, hole)
+    records = table.to_records()
+    cols = [
+        "layers",
+        "channel",
+        "wavelength_nm",
+        "contrast",
+        "reflectance_flake",
+        "reflectance_reference",
+    ]
+    if _common.output_format(args) == "table":
+        _common.message(CONTRAST_NOTE)
+    _common.emit(args, {"records": records}, rows=records, columns=cols)
+    return 0
+
+
+# ---- layers -----------------------------------------------------------------------------------
+
+
+def _parse_pairs(text: str, option: str, channels: tuple[str, ...]) -> dict[str, float]:
+    out: dict[str, float] = {}
+    for part in str(text).split(","):
+        part = part.strip()
+        if not part:
+            continue
+        if "=" not in part:
+            raise InputError(
+                f"{option} {text!r}: {part!r} lacks a channel name; accepted: "
+                + ",".join(f"{c}=VALUE" for c in channels)
+            )
+        key, value = (s.strip() for s in part.split("=", 1))
+        try:
+            out[key] = float(value)
+        except ValueError:
+            raise InputError(f"{option}: {value!r} for channel {key} is not a number") from None
+        if not math.isfinite(out[key]):
+            raise InputError(f"{option}: {value!r} for channel {key} is not a finite number")
+    if not out:
+        raise InputError(
+            f"{option} is empty; accepted e.g. " + ",".join(f"{c}=0.1" for c in channels)
+        )
+    return out
+
+
+def _read_layers_csv(path: str, channels: tuple[str, ...], single: bool):
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8-sig")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{p}: cannot read the measurement file ({exc})") from None
+    reader = csv.DictReader(line for line in text.splitlines() if line.strip())
+    header = [h.strip() for h in (reader.fieldnames or [])]
+    if "id" not in header:
+        raise InputError(f"{p}: the header needs an id column; found {', '.join(header) or 'none'}")
+    if single:
+        wanted = {"mono": ("contrast", "contrast_err")}
+    else:
+        wanted = {c: (f"contrast_{c}", f"contrast_err_{c}") for c in channels}
+    present = {c: cols for c, cols in wanted.items() if cols[0] in header}
+    if not present:
+        need = ", ".join(cols[0] for cols in wanted.values())
+        raise InputError(f"{p}: no contrast column; accepted: id and {need}")
+    rows = []
+    for i, row in enumerate(reader, start=2):
+        row = {(k or "").strip(): (v or "").strip() for k, v in row.items()}
+        c, e = {}, {}
+        for ch, (ccol, ecol) in present.items():
+            if row.get(ccol, "") == "":
+                continue
+            try:
+                c[ch] = float(row[ccol])
+                if row.get(ecol, "") != "":
+                    e[ch] = float(row[ecol])
+            except ValueError:
+                raise InputError(f"{p} line {i}: {ccol} or {ecol} is not a number") from None
+        if not c:
+            raise InputError(f"{p} line {i}: no contrast value")
+        rows.append((row.get("id") or None, c, e))
+    if not rows:
+        raise InputError(f"{p}: no measurement rows")
+    return rows
+
+
+def _cmd_layers(args) -> int:
+    from flakebook.optics.layers import layer_likelihood
+
+    material = _material(args)
+    substrate = _substrate(args)
+    hole = _hole(args)
+    if args.wavelength_nm is None and args.channels is None:
+        raise InputError("give --wavelength-nm L or --channels srgb|mono|FILE.csv")
+    mic = _microscope(args)
+    channels = mic.channel_names
+    single = args.wavelength_nm is not None
+    if args.oxide_err_nm is not None:
+        _common.positive_float("--oxide-err-nm", args.oxide_err_nm, allow_zero=True)
+    if not (1 <= args.max_layers <= 99):
+        raise InputError(f"--max-layers {args.max_layers}: accepted 1 to 99")
+    if args.csv is not None:
+        if args.contrast is not None or args.contrast_err is not None:
+            raise InputError("give either --csv FILE or --contrast, not both")
+        measurements = _read_layers_csv(args.csv, channels, single)
+    else:
+        if args.contrast is None:
+            raise InputError("the measured contrast is missing: give --contrast or --csv FILE")
+        if single:
+            try:
+                c = {"mono": float(args.contrast)}
+                e = {"mono": float(args.contrast_err)} if args.contrast_err is not None else {}
+            except ValueError:
+                raise InputError(
+                    "--contrast and --contrast-err take one number with --wavelength-nm"
+                ) from None
+        else:
+            c = _parse_pairs(args.contrast, "--contrast", channels)
+            e = (
+                _parse_pairs(args.contrast_err, "--contrast-err", channels)
+                if args.contrast_err
+                else {}
+            )
+        measurements = [(None, c, e)]
+    progress = _common.Progress()
+    cancel = _common.cancel_event()
+    results = []
+    for k, (ident, c, e) in enumerate(measurements):
+        from flakebook.errors import check_cancel
+
+        check_cancel(cancel)
+        like = layer_likelihood(
+            c,
+            e,
+            material=material,
+            substrate=substrate,
+            microscope=mic,
+            max_layers=args.max_layers,
+            oxide_err_nm=args.oxide_err_nm or 0.0,
+            geometry=args.geometry,
+            hole=hole,
+            progress=progress if k == 0 else None,
+            cancel=cancel,
+        )
+        post = like.posterior()
+        for w in like.warnings:
+            _common.message(f"{ident or 'measurement'}: {w}")
+        results.append(
+            {
+                "id": ident,
+                "layers": post.layers,
+                "probability": post.probability,
+                "ambiguous_with": list(post.ambiguous_with),
+                "likelihood": like.likelihood.tolist(),
+                "posterior": post.posterior.tolist(),
+                "decider": like.decider or None,
+                "warnings": list(like.warnings),
+            }
+        )
+        if len(measurements) > 1:
+            progress((k + 1) / len(measurements), "layer likelihoods")
+    fmt = _common.output_format(args)
+    more = f">{args.max_layers}"
+    rows = [
+        {
+            "id": r["id"],
+            "layers": more if r["layers"] == args.max_layers + 1 else r["layers"],
+            "probability": round(r["probability"], 4),
+            "ambiguous_with": [
+                more if n == args.max_layers + 1 else n for n in r["ambiguous_with"]
+            ],
+            "decider": r["decider"],
+        }
+        for r in results
+    ]
+    if fmt == "table":
+        _common.message(CONTRAST_NOTE + f"; layer {args.max_layers + 1} in lists stands for {more}")
+    if fmt == "csv":
+        rows = [{**row, "posterior": r["posterior"]} for row, r in zip(rows, results)]
+    _common.emit(args, {"results": results}, rows=rows)
+    return 0
+
+
+# ---- absorptance ------------------------------------------------------------------------------
+
+
+def _cmd_absorptance(args) -> int:
+    from flakebook.optics.absorptance import absorptance
+
+    material = _material(args)
+    hole = _hole(args)
+    open_hole = args.geometry == "suspended" and hole is not None and hole.bottom == "open"
+    if args.oxide_nm is None and args.substrate is None:
+        if not open_hole:
+            raise InputError(
+                "the substrate is missing; accepted: --oxide-nm D or --substrate SPEC "
+                "(only an open through-hole needs none)"
+            )
+        substrate = None
+    else:
+        substrate = _substrate(args)
+    if args.layers < 1:
+        raise InputError(f"--layers {args.layers}: accepted one whole number >= 1")
+    _common.positive_float("--laser-nm", args.laser_nm)
+    _common.positive_float("--na-objective", args.na_objective, allow_zero=True)
+    res = absorptance(
+        material,
+        args.layers,
+        args.laser_nm,
+        substrate,
+        geometry=args.geometry,
+        hole=hole,
+        na_objective=args.na_objective,
+    )
+    for w in res.warnings:
+        _common.message(f"warning: {w}")
+    payload = res.to_dict()
+    _common.emit(args, payload, rows=[payload])
+    return 0
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add the optics commands."""
+    p = sub.add_parser("materials", help="list the material library with references")
+    _common.add_format_option(p, csv_ok=True)
+    p.set_defaults(func=_cmd_materials)
+
+    p = sub.add_parser(
+        "contrast", help="model optical contrast versus layer number", description=CONTRAST_NOTE
+    )
+    p.add_argument("--material", required=True)
+    _add_substrate(p)
+    p.add_argument("--layers", required=True, help="range 1-10 or list 1,2,5")
+    _add_light(p)
+    _add_geometry(p)
+    _common.add_format_option(p, csv_ok=True)
+    p.set_defaults(func=_cmd_contrast)
+
+    p = sub.add_parser(
+        "layers", help="layer number from measured contrast", description=CONTRAST_NOTE
+    )
+    p.add_argument("--material", required=True)
+    _add_substrate(p)
+    p.add_argument("--oxide-err-nm", type=float, default=None)
+    _add_light(p, required=False)
+    p.add_argument("--contrast", default=None, help="C, or r=C1,g=C2,b=C3 for channels")
+    p.add_argument("--contrast-err", default=None, help="E, or r=E1,g=E2,b=E3")
+    p.add_argument("--csv", default=None, metavar="FILE", help="one measurement a row")
+    p.add_argument("--max-layers", type=int, default=15)
+    _add_geometry(p)
+    _common.add_format_option(p, csv_ok=True)
+    p.set_defaults(func=_cmd_layers)
+
+    p = sub.add_parser(
+        "absorptance",
+        help="fraction of the laser absorbed in a flake",
+        description="Fraction of the incident laser power absorbed in the flake. Follow your "
+        "institution's laser-safety rules and local regulations.",
+    )
+    p.add_argument("--material", required=True)
+    p.add_argument("--layers", type=int, required=True)
+    p.add_argument("--laser-nm", type=float, required=True)
+    _add_substrate(p, required=False)
+    _add_geometry(p)
+    p.add_argument("--na-objective", type=float, default=0.0)
+    _common.add_format_option(p)
+    p.set_defaults(func=_cmd_absorptance)
