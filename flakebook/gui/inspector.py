@@ -105,6 +105,7 @@ class Inspector(QScrollArea):
     tagsEdited = Signal(int, list)
     notesEdited = Signal(int, str)
     appearanceRequested = Signal(int, int)  # flake id, image id
+    calibrateRequested = Signal()
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -211,6 +212,12 @@ class Inspector(QScrollArea):
         )
         self.clear_button.clicked.connect(self._on_clear)
         self.read_only = False
+        self.calibrate_button = QPushButton("Calibrate optics from flakes of known N…", body)
+        self.calibrate_button.setToolTip(
+            "Fit the oxide thickness, dark offsets and contrast scale from this sample's flakes "
+            "with a manual assignment"
+        )
+        self.calibrate_button.clicked.connect(self.calibrateRequested)
 
         lay = QVBoxLayout(body)
         lay.addWidget(self.title)
@@ -248,6 +255,7 @@ class Inspector(QScrollArea):
         row.addWidget(self.clear_button)
         l5.addRow("Reason", self.assign_reason)
         l5.addRow("Layers", row)
+        l5.addRow(self.calibrate_button)
         lay.addWidget(g5)
         lay.addStretch(1)
         self._groups = [g1, g2, g3, g4, g5]
@@ -263,6 +271,7 @@ class Inspector(QScrollArea):
             self.assign_n,
             self.assign_reason,
             self.clear_button,
+            self.calibrate_button,
         ):
             w.setEnabled(not read_only)
         self.assign_button.setEnabled(False)

@@ -319,6 +319,13 @@ class MainWindow(QMainWindow):
             "Bring every stale result up to date",
             "recomputeStale",
         )
+        self.a_calibrate = A(
+            "&Calibrate optics from known flakes…",
+            self.calibrate_dialog,
+            "Ctrl+Shift+K",
+            "Fit the oxide thickness, dark offsets and contrast scale from flakes of known N",
+            "calibrateOptics",
+        )
         self.a_cancel = A(
             "Cancel running job",
             self.jobs.cancel_all,
@@ -368,7 +375,7 @@ class MainWindow(QMainWindow):
         for a in self.tool_actions.values():
             m.addAction(a)
         m.addSeparator()
-        for a in (self.a_find, self.a_holes, self.a_recompute, self.a_cancel):
+        for a in (self.a_find, self.a_holes, self.a_calibrate, self.a_recompute, self.a_cancel):
             m.addAction(a)
         m = mb.addMenu("&Help")
         m.addAction(self.a_about)
@@ -442,6 +449,9 @@ class MainWindow(QMainWindow):
         ins.notesEdited.connect(lambda f, t: self._guard(lambda: self.set_notes(f, t), "Notes"))
         ins.appearanceRequested.connect(
             lambda f, i: self._guard(lambda: self.show_appearance(f, i), "Show appearance")
+        )
+        ins.calibrateRequested.connect(
+            lambda: self._guard(self.calibrate_dialog, "Calibrate optics")
         )
         self.candidates.targetsChanged.connect(lambda *_: self.refresh())
         self.candidates.flakeActivated.connect(
@@ -537,6 +547,7 @@ class MainWindow(QMainWindow):
             self.a_new_sample,
             self.a_image_settings,
             self.a_link,
+            self.a_calibrate,
         ):
             a.setEnabled(rw)
         for name, a in self.tool_actions.items():
@@ -1034,6 +1045,57 @@ class MainWindow(QMainWindow):
         log.info("Recompute stale: %s", text)
         self.hint_label.setText(text)
         return report
+
+    def calibrate_dialog(self) -> None:
+        s = self._need_session()
+        sample_id = s.current_sample(self.current_image)
+        n = len(s.calibration_observations(sample_id))
+        text, ok = QInputDialog.getText(
+            self,
+            "Calibrate optics",
+            f"{n} flake(s) of known layer number (manual assignments) on this sample will be fitted.\n"
+            "Dark frame per channel as a fraction of full scale (e.g. r=0.012,g=0.011,b=0.013),\n"
+            "or empty: no dark frame, the dark offset is taken as 0 ± 0.005.",
+        )
+        if ok:
+            self.calibrate(sample_id, text)
+
+    def calibrate(self, sample_id: int, dark_text: str = "") -> Job:
+        """Fit oxide, dark offsets and contrast scale (flakebook.optics.camera) in a worker."""
+        s = self._need_session()
+        channels = ("r", "g", "b")
+        dark, dark_err = {c: 0.0 for c in channels}, {c: 0.005 for c in channels}
+        if dark_text.strip():
+            try:
+                dark = {
+                    k.strip(): float(v) for k, v in (p.split("=") for p in dark_text.split(","))
+                }
+            except ValueError:
+                raise InputError(
+                    f"Dark frame {dark_text!r} is not understood; accepted: r=0.012,g=0.011,b=0.013"
+                ) from None
+            dark_err = {k: 0.001 for k in dark}
+        run, n = s.calibration_job(sample_id, dark, dark_err)
+        job = Job(f"Calibrate optics ({n} flakes)", run)
+
+        def done(cal):
+            def do():
+                return s.store_calibration(sample_id, cal)
+
+            self._guard(lambda: self.edit("Optics calibration", do), "Calibrate optics")
+            msg = (
+                f"Oxide {cal.oxide_nm:.1f} ± {cal.oxide_err_nm:.1f} nm, contrast scale "
+                f"{cal.contrast_scale:.3f} ± {cal.contrast_scale_err:.3f} "
+                f"(chi² {cal.chi2:.3g} on {cal.dof} d.o.f.). Contrast evidence of this sample is "
+                "marked stale: Recompute stale (Ctrl+R) applies the calibration."
+            )
+            log.info("Calibrate optics: %s", msg)
+            self.hint_label.setText(msg)
+
+        self.jobs.start(
+            job, on_done=done, on_error=lambda e: self.report_error(e, "Calibrate optics")
+        )
+        return job
 
     def open_candidate(self, flake_id: int) -> None:
         self.select_flake(flake_id, centre=True)

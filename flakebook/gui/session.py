@@ -88,6 +88,43 @@ def optics_inputs(sample: Sample, image: Image):
     return material, substrate, microscope
 
 
+def calibration_values(project: Project, sample: Sample) -> dict | None:
+    """The sample's latest optics calibration as plain values (None without one)."""
+    cals = [c for c in project.calibrations_of(sample) if c.oxide_nm is not None]
+    if not cals:
+        return None
+    cal = cals[-1]
+    scale = list(cal.contrast_scale.values())
+    scale_err = list(cal.contrast_scale_err.values())
+    return {
+        "id": cal.id,
+        "oxide_nm": float(cal.oxide_nm),
+        "oxide_err_nm": float(cal.oxide_err_nm or 0.0),
+        "contrast_scale": float(np.mean(scale)) if scale else 1.0,
+        "contrast_scale_err": float(np.mean(scale_err)) if scale_err else 0.0,
+        "dark_offset": dict(cal.dark_offset),
+    }
+
+
+def likelihood_options(cal: dict | None, substrate) -> tuple[dict, str]:
+    """layer_likelihood keywords for a calibration (from :func:`calibration_values`), and a note."""
+    if cal is None:
+        return {"substrate": substrate}, ""
+    opts = {
+        "substrate": substrate.with_oxide(cal["oxide_nm"]),
+        "oxide_err_nm": cal["oxide_err_nm"],
+        "contrast_scale": cal["contrast_scale"],
+        "contrast_scale_err": cal["contrast_scale_err"],
+    }
+    note = f"calibrated oxide {cal['oxide_nm']:.1f}±{cal['oxide_err_nm']:.1f} nm (calibration {cal['id']})"
+    return opts, note
+
+
+def calibration_options(project: Project, sample: Sample, substrate) -> tuple[dict, str]:
+    """layer_likelihood keywords from the sample's latest optics calibration, and a note."""
+    return likelihood_options(calibration_values(project, sample), substrate)
+
+
 def optics_hole(sample: Sample):
     """The optics model's hole for a sample's hole pattern (None without one)."""
     if sample.hole_pattern is None:
@@ -445,6 +482,7 @@ class Session:
                 geometry,
                 tuple(sorted(contrast.items())),
                 tuple(sorted(contrast_err.items())),
+                cals[-1].id if cals else None,
             )
         return {
             "id": fid,
@@ -951,10 +989,14 @@ class Session:
         material, substrate, microscope = optics_inputs(sample, img)
         micro = self._micro_fn(image_id)
         hp = sample.hole_pattern
+        cal = calibration_values(self.project, sample)
+        opts, _note = likelihood_options(cal, substrate)
+        if cal is not None and cal["dark_offset"]:
+            opts["dark_offset"] = cal["dark_offset"]
         kw = dict(
             material=material,
-            substrate=substrate,
             microscope=microscope,
+            **opts,
             scale_um_per_px=img.pixel_size_um,
             target_layers=tuple(target_layers or (1, 2, 3)),
             max_layers=self.project.max_layers,
@@ -979,21 +1021,23 @@ class Session:
         contrast = dict(details["contrast"])
         err = dict(details.get("contrast_err") or {}) or None
         nmax = int(details.get("max_layers") or 15)
+        cal = calibration_values(self.project, sample)
 
         def run(progress=None, cancel=None):
             from flakebook.optics.layers import layer_likelihood
 
             material, substrate, microscope = optics_inputs(sample, img)
             kw = {"geometry": "suspended", "hole": optics_hole(sample)} if suspended else {}
+            opts, _note = likelihood_options(cal, substrate)
             check_cancel(cancel)
             lk = layer_likelihood(
                 contrast,
                 err,
                 material=material,
-                substrate=substrate,
                 microscope=microscope,
                 max_layers=nmax,
                 explain=True,
+                **opts,
                 **kw,
             )
             out = {
@@ -1061,6 +1105,96 @@ class Session:
 
         return run
 
+    def calibration_observations(self, sample_id: int) -> list:
+        """Flakes of known layer number (a manual assignment) on the sample, with the region
+        mean and substrate level their contrast evidence recorded, as calibration observations
+        (flakebook.optics.camera). Levels are linear intensity (1 = full scale)."""
+        from flakebook.optics.camera import CalibrationObservation
+
+        p = self.project
+        obs = []
+        for f in p.flakes_of(self._r("sample", sample_id)):
+            latest = p.latest_assignment(f)
+            if latest is None or not latest.manual:
+                continue
+            for e in p.evidence_of(f):
+                prm = e.parameters
+                ref = prm.get("substrate_level")
+                if e.method != CONTRAST_METHOD or not ref or prm.get("geometry") != "supported":
+                    continue
+                c = prm.get("contrast") or {}
+                err = prm.get("contrast_err") or {}
+                obs.append(
+                    CalibrationObservation(
+                        layers=int(latest.layers),
+                        flake={ch: ref[ch] * (1.0 - c[ch]) for ch in c if ch in ref},
+                        reference={ch: ref[ch] for ch in c if ch in ref},
+                        flake_err={ch: ref[ch] * err.get(ch, 0.0) for ch in c if ch in ref},
+                    )
+                )
+                break
+        return obs
+
+    def calibration_job(
+        self, sample_id: int, dark_frame: dict[str, float], dark_frame_err: dict[str, float]
+    ):
+        """Work fitting oxide, dark offsets and contrast scale (flakebook.optics.camera.calibrate)
+        from the sample's flakes of known layer number."""
+        from flakebook.optics.camera import calibrate
+
+        sample = self._get(Sample, sample_id)
+        obs = self.calibration_observations(sample.id)
+        if not obs:
+            raise InputError(
+                "No flake of known layer number with a measured contrast on this sample: record a "
+                "manual assignment (with its reason) on flakes found by Find flakes first."
+            )
+        imgs = self.project.images_of(sample)
+        img = imgs[0] if imgs else None
+
+        def run(progress=None, cancel=None):
+            material, substrate, microscope = optics_inputs(sample, img)
+            check_cancel(cancel)
+            return calibrate(
+                obs,
+                material=material,
+                substrate=substrate,
+                microscope=microscope,
+                dark_frame=dark_frame,
+                dark_frame_err=dark_frame_err,
+            )
+
+        return run, len(obs)
+
+    def store_calibration(self, sample_id: int, cal) -> Undo:
+        """Keep a calibration and mark the sample's contrast evidence stale (recompute uses it)."""
+        p = self.project
+        sample = self._get(Sample, sample_id)
+        with p.transaction():
+            rec = p.add_calibration(
+                sample,
+                oxide_nm=cal.oxide_nm,
+                oxide_err_nm=cal.oxide_err_nm,
+                dark_offset=cal.dark_offset,
+                dark_offset_err=cal.dark_offset_err,
+                contrast_scale={c: cal.contrast_scale for c in cal.channels},
+                contrast_scale_err={c: cal.contrast_scale_err for c in cal.channels},
+                method=cal.method,
+                notes=f"chi2 {cal.chi2:.3g} on {cal.dof} degrees of freedom",
+            )
+            marked = []
+            for f in p.flakes_of(sample):
+                for e in p.evidence_of(f):
+                    if e.method == CONTRAST_METHOD and not e.stale:
+                        p.update(e, stale=True)
+                        marked.append(e.id)
+
+        def undo():
+            with p.transaction():
+                p.delete("calibration", rec.id)
+
+        return undo
+
     def store_survey(self, image_id: int, result) -> Undo:
         """Write a survey's flakes, terraces, evidence, assignments, holes and coverage."""
         p = self.project
@@ -1119,6 +1253,9 @@ class Session:
                             "geometry": sr.geometry,
                             "image_id": img.id,
                             "decider": sr.decider,
+                            "substrate_level": {
+                                k: float(v) for k, v in result.segmentation.substrate.items()
+                            },
                             "target_probability": sr.target_probability,
                         },
                         source=OPTICS_SOURCE,
@@ -1264,17 +1401,19 @@ def _recompute_contrast(project: Project, rec: Evidence):
     kw = {}
     if rec.parameters.get("geometry") == "suspended":
         kw = {"geometry": "suspended", "hole": optics_hole(sample)}
+    opts, note = calibration_options(project, sample, substrate)
     lk = layer_likelihood(
         dict(rec.parameters["contrast"]),
         dict(rec.parameters.get("contrast_err") or {}) or None,
         material=material,
-        substrate=substrate,
         microscope=microscope,
         max_layers=rec.max_layers,
+        **opts,
         **kw,
     )
     params = dict(rec.parameters)
     params["decider"] = lk.decider
+    params["calibration"] = note or "none (nominal oxide)"
     return {
         "likelihood": lk.likelihood,
         "parameters": params,
