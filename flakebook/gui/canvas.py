@@ -26,7 +26,7 @@ from flakebook.gui import palette
 
 pg.setConfigOptions(imageAxisOrder="row-major", antialias=False)
 
-TOOLS = ("select", "scale", "outline", "hole", "measure", "segment")
+TOOLS = ("select", "scale", "outline", "hole", "measure", "segment", "split")
 TOOL_HINTS = {
     "select": "Click a flake to select it; drag holes to move them, their handle to resize.",
     "scale": "Click the two ends of a line of known length (a scale bar or a hole pitch).",
@@ -34,6 +34,7 @@ TOOL_HINTS = {
     "hole": "Click the centre of a hole to place it (radius from the chip's hole pattern).",
     "measure": "Click two points to measure their distance.",
     "segment": "Click inside a flake to outline it from the image.",
+    "split": "Click two points of a line across the selected flake to split it in two.",
 }
 
 
@@ -225,6 +226,7 @@ class ImageCanvas(pg.GraphicsView):
     holeRemoveRequested = Signal(int)
     scaleLineDrawn = Signal(float, float, float, float)
     distanceMeasured = Signal(float, float, float, float)
+    splitLineDrawn = Signal(float, float, float, float)
     outlineDrawn = Signal(object)
     outlineEdited = Signal(int, object)
     segmentRequested = Signal(float, float)
@@ -511,7 +513,7 @@ class ImageCanvas(pg.GraphicsView):
             self.holePlaced.emit(x, y, float(self.default_hole_radius_px))
         elif tool == "segment":
             self.segmentRequested.emit(x, y)
-        elif tool in ("scale", "measure"):
+        elif tool in ("scale", "measure", "split"):
             self._points.append((x, y))
             if len(self._points) == 2:
                 (x0, y0), (x1, y1) = self._points
@@ -519,6 +521,9 @@ class ImageCanvas(pg.GraphicsView):
                 if tool == "scale":
                     self._rubber.setData([], [])
                     self.scaleLineDrawn.emit(x0, y0, x1, y1)
+                elif tool == "split":
+                    self._rubber.setData([], [])
+                    self.splitLineDrawn.emit(x0, y0, x1, y1)
                 else:
                     self._show_measure(x0, y0, x1, y1)
                     self.distanceMeasured.emit(x0, y0, x1, y1)
@@ -612,7 +617,7 @@ class ImageCanvas(pg.GraphicsView):
             self.cursorMoved.emit(x, y)
         else:
             self.cursorLeft.emit()
-        if self._points and self.tool in ("scale", "measure"):
+        if self._points and self.tool in ("scale", "measure", "split"):
             x0, y0 = self._points[0]
             self._rubber.setData([x0, x], [y0, y])
         elif self._points and self.tool == "outline":

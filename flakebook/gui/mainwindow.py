@@ -243,6 +243,13 @@ class MainWindow(QMainWindow):
             "Objective, pixel size and apertures of the current image",
             "imageSettings",
         )
+        self.a_merge = A(
+            "&Merge with a neighbour…",
+            self.merge_dialog,
+            "Ctrl+M",
+            "Join the selected flake's outline with a touching one on this image",
+            "mergeFlakes",
+        )
         self.a_link = A(
             "&Link to a flake…",
             self.link_dialog,
@@ -286,6 +293,7 @@ class MainWindow(QMainWindow):
             ("hole", "Place &hole", "H"),
             ("scale", "&Scale line", "S"),
             ("measure", "&Measure distance", "M"),
+            ("split", "S&plit flake", "P"),
         ):
             a = QAction(text, self)
             a.setObjectName(f"tool_{name}")
@@ -355,7 +363,7 @@ class MainWindow(QMainWindow):
         for a in (self.a_undo, self.a_redo):
             m.addAction(a)
         m.addSeparator()
-        for a in (self.a_edit_outline, self.a_link, self.a_delete):
+        for a in (self.a_edit_outline, self.a_merge, self.a_link, self.a_delete):
             m.addAction(a)
         m.addSeparator()
         for a in (self.a_new_sample, self.a_sample, self.a_image_settings):
@@ -414,6 +422,9 @@ class MainWindow(QMainWindow):
         )
         c.scaleLineDrawn.connect(lambda *p: self._guard(lambda: self.scale_line(*p), "Set scale"))
         c.distanceMeasured.connect(self._on_measured)
+        c.splitLineDrawn.connect(
+            lambda *pts: self._guard(lambda: self.split_selected(pts[:2], pts[2:]), "Split flake")
+        )
         c.outlineDrawn.connect(
             lambda pts: self._guard(lambda: self.add_outline(pts), "New outline")
         )
@@ -497,15 +508,19 @@ class MainWindow(QMainWindow):
 
         ``do`` returns ``undo``; redo calls ``do`` again (and keeps the new undo it returns).
         """
-        self._need_session(write=True)
-        state = {"undo": do()}
+        s = self._need_session(write=True)
+        created = s.epoch
+        state = {"undo": do(), "epoch": s.epoch}
         refresh = refresh or self.refresh
 
         def redo():
-            state["undo"] = do()
+            with s.resolving(created):
+                state["undo"] = do()
+                state["epoch"] = s.epoch
 
         def undo():
-            state["undo"]()
+            with s.resolving(state["epoch"]):
+                state["undo"]()
 
         cmd = Edit(text, redo, undo, after=refresh, on_error=self._undo_failed)
         self.undo_stack.push(cmd)
@@ -547,6 +562,7 @@ class MainWindow(QMainWindow):
             self.a_new_sample,
             self.a_image_settings,
             self.a_link,
+            self.a_merge,
             self.a_calibrate,
         ):
             a.setEnabled(rw)
@@ -917,6 +933,57 @@ class MainWindow(QMainWindow):
                 return
         raise InputError("The selected flake has no outline in this image.")
 
+    def split_selected(self, p0, p1) -> None:
+        """Split the selected flake (else the one under the line's middle) along a line."""
+        s = self._need_session()
+        image = self._need_image()
+        fid = self.current_flake
+        if fid is None:
+            mid = (0.5 * (p0[0] + p1[0]), 0.5 * (p0[1] + p1[1]))
+            fid = self.canvas.flake_at(*mid)
+            if fid < 0:
+                raise InputError("Select the flake to split first (or draw the line across one).")
+        state: dict = {}
+
+        def do():
+            state["new"], undo = s.split_flake(fid, image, p0, p1)
+            return undo
+
+        self.edit(f"Split {s.flake_label(fid)}", do)
+
+    def merge_dialog(self) -> None:
+        s = self._need_session()
+        image = self._need_image()
+        if self.current_flake is None:
+            raise InputError(
+                "Select the flake to keep first; then choose the one to merge into it."
+            )
+        others = [
+            (it.shape_data.flake_id, it.shape_data.label)
+            for it in self.canvas.outlines.values()
+            if it.shape_data.flake_id != self.current_flake
+        ]
+        if not others:
+            raise InputError("There is no other flake on this image to merge with.")
+        names = [n for _, n in others]
+        name, ok = QInputDialog.getItem(
+            self,
+            "Merge flakes",
+            f"Merge into {s.flake_label(self.current_flake)}:",
+            names,
+            0,
+            False,
+        )
+        if ok:
+            self.merge(self.current_flake, others[names.index(name)][0], image)
+
+    def merge(self, keep: int, other: int, image: int) -> None:
+        s = self._need_session()
+        label = s.flake_label(other)
+        self.edit(
+            f"Merge {label} into {s.flake_label(keep)}", lambda: s.merge_flakes(keep, other, image)
+        )
+
     def delete_selected(self) -> None:
         """Delete the picked hole, else the selected flake."""
         s = self._need_session()
@@ -1110,13 +1177,19 @@ class MainWindow(QMainWindow):
         if paths:
             self.import_images([Path(p) for p in paths])
 
-    def import_images(self, paths: list[Path], sample_id: int | None = None) -> list[int]:
+    def import_images(
+        self, paths: list[Path], sample_id: int | None = None, settings: dict | None = None
+    ) -> list[int]:
+        """Add micrographs to a sample; ``settings`` (objective, pixel size, ...) default to
+        those of the image shown (the same microscope session)."""
         s = self._need_session()
         sample_id = sample_id if sample_id is not None else s.current_sample(self.current_image)
+        if settings is None:
+            settings = s.microscope_settings(self.current_image)
         added: list[int] = []
 
         def do():
-            added[:] = s.add_images(sample_id, paths)
+            added[:] = s.add_images(sample_id, paths, settings)
             return lambda: s.delete_images(added)
 
         self.edit(f"Add {len(paths)} image(s)", do)
@@ -1127,8 +1200,26 @@ class MainWindow(QMainWindow):
     def watch_folder_dialog(self) -> None:
         s = self._need_session()
         folder = QFileDialog.getExistingDirectory(self, "Watch the camera's folder")
-        if folder:
-            self.candidates.watch(Path(folder), s, self)
+        if not folder:
+            return
+        settings = s.microscope_settings(self.current_image)
+        if not settings.get("pixel_size_um"):
+            from flakebook.imaging.scale import load_objectives
+
+            presets = load_objectives()
+            name, ok = QInputDialog.getItem(
+                self,
+                "Watch the camera's folder",
+                "Objective of the new images:",
+                list(presets),
+                0,
+                False,
+            )
+            if not ok:
+                return
+            o = presets[name]
+            settings = {"objective": o.name, "pixel_size_um": o.um_per_px, "na_objective": o.na}
+        self.candidates.watch(Path(folder), s, self, settings)
 
     def sample_dialog(self, sample_id: int | None = None) -> None:
         from flakebook.gui.dialogs import SampleDialog

@@ -15,6 +15,7 @@ from __future__ import annotations
 import dataclasses
 import logging
 from collections.abc import Callable, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -168,7 +169,10 @@ class Session:
 
     def __init__(self, project: Project) -> None:
         self.project = project
-        self._alias: dict[tuple[str, int], int] = {}
+        self._alias: dict[tuple[str, int], list[tuple[int, int]]] = {}
+        self._ctx: int | None = None
+        self._resolved: set[tuple[str, int]] = set()
+        self.epoch = 0
         self._raw: dict[int, np.ndarray] = {}  # decoded image data (last two)
         self._micro: dict[int, object] = {}
 
@@ -215,16 +219,43 @@ class Session:
         self.project.close()
 
     # ---- ids -------------------------------------------------------------------------------
+    # Ids and undo. SQLite may give a restored record the id of another deleted one, so an
+    # alias says "record (kind, old) lives on as new since epoch E". Commands resolve the ids
+    # they captured at epoch e through the aliases made after e only (see resolving()); ids
+    # coming from the window's current state are live and resolve to themselves.
+
+    @contextmanager
+    def resolving(self, epoch: int):
+        """Resolve ids captured at ``epoch`` (an undo or redo runs in a new epoch of its own)."""
+        prev, prev_resolved = self._ctx, self._resolved
+        self._ctx = epoch
+        self._resolved = set()
+        self.epoch += 1
+        try:
+            yield
+        finally:
+            self._ctx, self._resolved = prev, prev_resolved
+
     def _r(self, kind: str, rid: int) -> int:
-        seen = 0
-        while (kind, rid) in self._alias and seen < 1000:
-            rid = self._alias[(kind, rid)]
-            seen += 1
+        e = self._ctx
+        if e is None or rid is None or (kind, rid) in self._resolved:
+            return rid  # live already (resolution is idempotent within an undo or redo)
+        start = rid
+        for _ in range(1000):
+            later = [(ep, new) for ep, new in self._alias.get((kind, rid), ()) if ep > e]
+            if not later:
+                break
+            e, rid = min(later)
+        if rid != start:
+            self._resolved.add((kind, rid))
         return rid
 
     def _alias_to(self, kind: str, old: int, new: int) -> None:
         if old != new:
-            self._alias[(kind, old)] = new
+            self._alias.setdefault((kind, old), []).append((self.epoch, new))
+
+    def _born(self, kind: str, rid: int) -> None:
+        """A record was stored with id ``rid`` (kept for symmetry; epochs keep ids apart)."""
 
     def _get(self, cls, rid: int):
         return self.project.get(cls, self._r(cls.KIND, rid))
@@ -545,6 +576,7 @@ class Session:
         iid = self._r("image", image_id)
         with p.transaction():
             hole = p.add_hole(iid, (x, y), r, source="manual")
+            self._born("hole", hole.id)
             self._update_coverage_for_hole(hole)
         if hole_id is not None:
             self._alias_to("hole", hole_id, hole.id)
@@ -646,6 +678,8 @@ class Session:
         with p.transaction():
             flake = p.add_flake(sample, label or self.next_label(sample))
             app = p.add_appearance(flake, img, np.asarray(points, float))
+            self._born("flake", flake.id)
+            self._born("appearance", app.id)
             self._update_coverage_for_appearance(app)
         return flake.id
 
@@ -661,6 +695,80 @@ class Session:
                 outline_um=None,
             )
             self._update_coverage_for_appearance(app)
+
+    def split_flake(self, flake_id: int, image_id: int, p0, p1) -> tuple[int, Undo]:
+        """Split a flake's outline in this image along a line; the far side becomes a new flake.
+        Returns the new flake's id and the undo."""
+        from flakebook.gui.geometry import split_outline
+
+        p = self.project
+        fid = self._r("flake", flake_id)
+        app = next(
+            (a for a in p.appearances_of(fid) if a.image_id == self._r("image", image_id)), None
+        )
+        if app is None:
+            raise InputError("The selected flake has no outline in this image.")
+        a, b = split_outline(app.outline_px, p0, p1)
+        before = app.outline_px.copy()
+        img = p.get(Image, app.image_id)
+        with p.transaction():
+            self.set_outline(app.id, a)
+            sample = p.get(Sample, img.sample_id)
+            new = p.add_flake(sample, self.next_label(sample))
+            new_app = p.add_appearance(new, img, b)
+            self._born("flake", new.id)
+            self._born("appearance", new_app.id)
+            self._update_coverage_for_appearance(new_app)
+
+        def undo():
+            with p.transaction():
+                rid = self._r("flake", new.id)
+                if p.records(Flake, id=rid):
+                    p.delete(Flake, rid)
+                self.set_outline(self._r("appearance", app.id), before)
+
+        return new.id, undo
+
+    def merge_flakes(self, keep_id: int, other_id: int, image_id: int) -> Undo:
+        """Merge ``other``'s outline in this image into ``keep``'s (its terraces, evidence and
+        hole links move over; ``other`` goes when it has no other appearance)."""
+        from flakebook.gui.geometry import merge_outlines
+
+        p = self.project
+        keep, other = self._r("flake", keep_id), self._r("flake", other_id)
+        iid = self._r("image", image_id)
+        if keep == other:
+            raise InputError("Choose another flake to merge with.")
+        ka = next((a for a in p.appearances_of(keep) if a.image_id == iid), None)
+        oa = next((a for a in p.appearances_of(other) if a.image_id == iid), None)
+        if ka is None or oa is None:
+            raise InputError("Both flakes need an outline in the image shown.")
+        union = merge_outlines(ka.outline_px, oa.outline_px)
+        snap_keep, snap_other = self._capture_flake(keep), self._capture_flake(other)
+        with p.transaction():
+            for t in p.records(Terrace, appearance_id=oa.id):
+                p.update(t, appearance_id=ka.id)
+            for e in p.evidence_of(other):
+                p.update(e, flake_id=keep)
+            for asg in p.assignments_of(other):
+                p.delete(asg)
+            for lk in p.records(FlakeHole, flake_id=other):
+                p.delete(lk)
+            p.delete(oa)
+            if not p.appearances_of(other):
+                p.delete(Flake, other)
+            self.set_outline(ka.id, union)
+
+        def undo():
+            with p.transaction():
+                for fid in (keep, other):
+                    rid = self._r("flake", fid)
+                    if p.records(Flake, id=rid):
+                        p.delete(Flake, rid)
+                self._restore_flake(snap_keep)
+                self._restore_flake(snap_other)
+
+        return undo
 
     def _capture_flake(self, fid: int) -> dict:
         p = self.project
@@ -863,8 +971,19 @@ class Session:
         p.update(img, **values)
         return lambda: p.update(self._get(Image, img.id), **before)
 
-    def add_images(self, sample_id: int, paths: Sequence[Path]) -> list[int]:
-        """Add image files to a sample (checked by decoding their header first)."""
+    def microscope_settings(self, image_id: int | None) -> dict:
+        """An image's microscope settings, to give new images of the same session."""
+        if image_id is None or not self.has_image(image_id):
+            return {}
+        img = self._get(Image, image_id)
+        keys = ("objective", "pixel_size_um", "na_objective", "na_illumination", "illumination")
+        return {k: getattr(img, k) for k in keys if getattr(img, k) not in (None, "")}
+
+    def add_images(
+        self, sample_id: int, paths: Sequence[Path], settings: dict | None = None
+    ) -> list[int]:
+        """Add image files to a sample (checked by decoding their header first), with the
+        microscope ``settings`` (objective, pixel size, apertures) when given."""
         from flakebook.imaging.io import read_header
 
         p = self.project
@@ -873,7 +992,9 @@ class Session:
         with p.transaction():
             for path in paths:
                 head = read_header(path)
-                img = p.add_image(sid, path, width_px=head.width, height_px=head.height)
+                img = p.add_image(
+                    sid, path, width_px=head.width, height_px=head.height, **(settings or {})
+                )
                 ids.append(img.id)
         return ids
 
@@ -1231,6 +1352,7 @@ class Session:
                 made_holes.append(rec.id)
             for fl in result.flakes:
                 flake = p.add_flake(sample, self.next_label(sample))
+                self._born("flake", flake.id)
                 made_flakes.append(flake.id)
                 app = p.add_appearance(flake, img, fl.outline_px)
                 for rid in fl.region_ids:

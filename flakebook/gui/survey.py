@@ -120,9 +120,13 @@ class CandidateList(QWidget):
         self.flakeActivated.emit(int(item.data(Qt.ItemDataRole.UserRole)))
 
     # ---- watching ------------------------------------------------------------------------
-    def watch(self, folder: Path, session, window) -> FolderWatch:
+    def watch(self, folder: Path, session, window, settings: dict | None = None) -> FolderWatch:
+        """Watch ``folder``; new images get the microscope ``settings`` (default: those of the
+        image shown)."""
         self.stop_watch()
-        self.watcher = FolderWatch(folder, window)
+        if settings is None:
+            settings = session.microscope_settings(window.current_image)
+        self.watcher = FolderWatch(folder, window, settings)
         self.watch_label.setText(f"Watching {folder}")
         self.stop_button.show()
         return self.watcher
@@ -138,11 +142,12 @@ class CandidateList(QWidget):
 class FolderWatch:
     """New image files in ``folder`` are added to the project and surveyed one by one."""
 
-    def __init__(self, folder: Path, window) -> None:
+    def __init__(self, folder: Path, window, settings: dict | None = None) -> None:
         self.folder = Path(folder)
         if not self.folder.is_dir():
             raise InputError(f"{folder} is not a folder; choose the folder the camera saves into")
         self.window = window
+        self.settings = dict(settings or {})
         self.seen = {p.name for p in self.folder.iterdir()}
         self.queue: list[Path] = []
         self.busy: Job | None = None
@@ -189,7 +194,7 @@ class FolderWatch:
         def ready(p: Path):
             self.busy = None
             w = self.window
-            ids = w._guard(lambda: w.import_images([p]), "Add image") or []
+            ids = w._guard(lambda: w.import_images([p], settings=self.settings), "Add image") or []
             if ids:
                 w._guard(w.find_flakes, "Find flakes")
             self._next()
