@@ -10,13 +10,25 @@ from pathlib import Path
 from flakebook.errors import InputError
 
 
-def _prepare_platform(offscreen: bool) -> None:
-    if offscreen or (
+def _headless() -> bool:
+    return (
         sys.platform.startswith("linux")
         and not os.environ.get("DISPLAY")
         and not os.environ.get("WAYLAND_DISPLAY")
-    ):
-        os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    )
+
+
+def _prepare_platform(offscreen: bool) -> None:
+    """Offscreen for a snapshot without a display; a clear refusal for a window without one."""
+    if offscreen:
+        if _headless():
+            os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+        return
+    if _headless() and not os.environ.get("QT_QPA_PLATFORM"):
+        raise InputError(
+            "no display found (DISPLAY is not set), so the window cannot open; "
+            "use --snapshot FILE.png to render it offscreen, or the commands (flakebook --help)"
+        )
 
 
 def parse_show(text: str | None) -> tuple[str, str | None]:

@@ -170,7 +170,7 @@ class MainWindow(QMainWindow):
             "&Open project…", self.open_project_dialog, S.Open, "Open a project file", "openProject"
         )
         self.a_close = A(
-            "&Close project", self.close_project, S.Close, "Close the project", "closeProject"
+            "&Close project", self.close_project, "Ctrl+W", "Close the project", "closeProject"
         )
         self.a_import = A(
             "&Add images…",
@@ -205,7 +205,8 @@ class MainWindow(QMainWindow):
         self.a_undo = self.undo_stack.createUndoAction(self, "&Undo")
         self.a_undo.setShortcut(S.Undo)
         self.a_redo = self.undo_stack.createRedoAction(self, "&Redo")
-        self.a_redo.setShortcuts([QKeySequence(S.Redo), QKeySequence("Ctrl+Y")])
+        redo_keys = {QKeySequence(S.Redo).toString(), "Ctrl+Y", "Ctrl+Shift+Z"} - {""}
+        self.a_redo.setShortcuts([QKeySequence(k) for k in sorted(redo_keys)])
         self.addAction(self.a_undo)
         self.addAction(self.a_redo)
         self.a_delete = A(
