@@ -1,9 +1,416 @@
-"""Project commands: new, demo, info, export, pack, relink, recompute, assign, handoff, series."""
+"""Project commands: new, info, export, pack, relink, recompute, assign, handoff.
+
+Commands that only read open the project read-only, so they work while the desktop program holds
+it open; the others take the writer's lock.
+"""
 
 from __future__ import annotations
 
 import argparse
+import json
+import math
+from pathlib import Path
+
+from flakebook.cli._common import (
+    Progress,
+    add_format_option,
+    cancel_event,
+    csv_text,
+    dumps,
+    emit,
+    message,
+    output_format,
+    positive_float,
+    table_text,
+)
+from flakebook.errors import InputError
+from flakebook.store import DEFAULT_MAX_LAYERS, Project, record_to_dict
+from flakebook.store.project import EXPORT_COLUMNS
+from flakebook.store.recompute import load_recomputers
+from flakebook.substrate import format_substrate, oxide_stack, parse_substrate
 
 
 def register(sub: argparse._SubParsersAction) -> None:
     """Add the project commands to the parser."""
+    p = sub.add_parser("new", help="create a project with its first sample")
+    p.add_argument("project", help="the new project file (.flakebook is added if missing)")
+    p.add_argument("--sample", required=True, metavar="NAME", help="the chip's name")
+    p.add_argument(
+        "--material", required=True, metavar="M", help="the flakes' material, e.g. MoSe2"
+    )
+    g = p.add_mutually_exclusive_group(required=True)
+    g.add_argument("--oxide-nm", type=float, metavar="D", help="SiO2 thickness on Si, in nm")
+    g.add_argument(
+        "--substrate", metavar="SPEC", help="layers from the top down, e.g. Au:100,Ti:5,SiO2:285,Si"
+    )
+    p.add_argument(
+        "--max-layers",
+        type=int,
+        default=DEFAULT_MAX_LAYERS,
+        help=f"N_max of the layer likelihoods (default {DEFAULT_MAX_LAYERS})",
+    )
+    add_format_option(p)
+    p.set_defaults(func=_new)
+
+    p = sub.add_parser("info", help="summarise a project")
+    p.add_argument("project")
+    add_format_option(p)
+    p.set_defaults(func=_info)
+
+    p = sub.add_parser("export", help="the catalogue of flakes as JSON or CSV")
+    p.add_argument("project")
+    add_format_option(p, csv_ok=True)
+    p.add_argument("--out", metavar="FILE", help="write to FILE instead of stdout")
+    p.set_defaults(func=_export)
+
+    p = sub.add_parser("pack", help="embed every image so the project file stands alone")
+    p.add_argument("project")
+    add_format_option(p)
+    p.set_defaults(func=_pack)
+
+    p = sub.add_parser("relink", help="find moved or changed images again by their hash")
+    p.add_argument("project")
+    p.add_argument("--search", required=True, metavar="DIR", help="folder to search (recursively)")
+    add_format_option(p)
+    p.set_defaults(func=_relink)
+
+    p = sub.add_parser("recompute", help="bring stale evidence and results up to date")
+    p.add_argument("project")
+    add_format_option(p)
+    p.set_defaults(func=_recompute)
+
+    p = sub.add_parser(
+        "assign", help="show a flake's layer evidence, or assign its layer number by hand"
+    )
+    p.add_argument("project")
+    p.add_argument("--flake", required=True, metavar="ID", help="the flake's ID")
+    p.add_argument("--layers", metavar="N", help="the layer number to assign")
+    p.add_argument("--reason", metavar="TEXT", help="why (required with --layers)")
+    add_format_option(p)
+    p.set_defaults(func=_assign)
+
+    p = sub.add_parser("handoff", help="exchange flakes and results with an outside analysis")
+    hsub = p.add_subparsers(dest="handoff_command", metavar="export|import", required=True)
+    h = hsub.add_parser("export", help="write a JSON bundle of flakes")
+    h.add_argument("project")
+    h.add_argument("--flakes", required=True, metavar="ID,...", help="flake IDs, comma-separated")
+    h.add_argument("--out", required=True, metavar="FILE.json")
+    h.set_defaults(func=_handoff_export)
+    h = hsub.add_parser("import", help="import a CSV of results keyed by flake ID")
+    h.add_argument("project")
+    h.add_argument(
+        "csv",
+        metavar="FILE.csv",
+        help="columns flake_id, kappa_w_mk, kappa_p16_w_mk, kappa_p84_w_mk, method, note",
+    )
+    add_format_option(h)
+    h.set_defaults(func=_handoff_import)
+
+
+def _show_warnings(project: Project) -> None:
+    for text in project.warnings:
+        message(f"flakebook: {text}")
+
+
+def _new(args: argparse.Namespace) -> int:
+    if args.oxide_nm is not None:
+        positive_float("--oxide-nm", args.oxide_nm)
+        stack = oxide_stack(args.oxide_nm)
+    else:
+        stack = parse_substrate(args.substrate)
+    if not args.sample.strip():
+        raise InputError("--sample is empty; accepted: the chip's name, e.g. K7-north")
+    if not args.material.strip():
+        raise InputError("--material is empty; accepted: a material name, e.g. MoSe2")
+    if args.max_layers < 1:
+        raise InputError(f"--max-layers {args.max_layers} is not allowed; accepted: 1 or more")
+    project = Project.create(args.project, max_layers=args.max_layers)
+    path = project.path
+    try:
+        project.add_sample(args.sample, args.material, stack)
+    except BaseException:
+        project.close()
+        path.unlink(missing_ok=True)  # the file this command made, and nothing else
+        raise
+    project.close()
+    payload = {
+        "project": str(path),
+        "sample": args.sample,
+        "material": args.material,
+        "substrate": [layer.to_dict() for layer in stack],
+    }
+    emit(
+        args, payload, text=f"created {path} with sample {args.sample} ({format_substrate(stack)})"
+    )
+    return 0
+
+
+def _info(args: argparse.Namespace) -> int:
+    with Project.open(args.project, read_only=True) as project:
+        _show_warnings(project)
+        info = project.info()
+    lines = [
+        f"{info['path']}  (project format {info['project_format']}, N_max {info['max_layers']})",
+        "  " + ", ".join(f"{n} {kind}" for kind, n in info["counts"].items() if n),
+        f"  images embedded: {info['images_embedded']}; stale records: {info['stale']}",
+    ]
+    for s in info["samples"]:
+        spec = format_substrate(s["substrate"])
+        holes = ""
+        if s["hole_pattern"]:
+            hp = s["hole_pattern"]
+            holes = f", holes {hp['diameter_um']:g} um ({hp['bottom']}, {hp['lattice']})"
+        lines.append(
+            f"  sample {s['name']}: {s['material']} on {spec}{holes}; "
+            f"{s['images']} images, {s['flakes']} flakes"
+        )
+    emit(args, info, text="\n".join(lines))
+    return 0
+
+
+def _export(args: argparse.Namespace) -> int:
+    with Project.open(args.project, read_only=True) as project:
+        _show_warnings(project)
+        rows = project.export_rows()
+    fmt = args.format
+    if args.out:
+        out = Path(args.out)
+        if fmt is None:
+            fmt = "csv" if out.suffix.lower() == ".csv" else "json"
+        if fmt == "csv":
+            text = csv_text(rows, EXPORT_COLUMNS)
+        elif fmt == "json":
+            text = dumps({"flakes": rows}) + "\n"
+        else:
+            text = table_text(rows, EXPORT_COLUMNS) + "\n"
+        try:
+            out.write_text(text, encoding="utf-8")
+        except OSError as exc:
+            raise InputError(f"--out {out} cannot be written: {exc.strerror}") from None
+        message(f"flakebook: wrote {len(rows)} flakes to {out}")
+        return 0
+    emit(args, {"flakes": rows}, rows=rows, columns=EXPORT_COLUMNS)
+    return 0
+
+
+def _pack(args: argparse.Namespace) -> int:
+    with Project.open(args.project) as project:
+        _show_warnings(project)
+        added = project.pack(progress=Progress(), cancel=cancel_event())
+        total = project.count("image")
+    emit(
+        args,
+        {"embedded": added, "images": total},
+        text=f"embedded {added} images; all {total} images are now in {args.project}",
+    )
+    return 0
+
+
+def _relink(args: argparse.Namespace) -> int:
+    with Project.open(args.project) as project:
+        _show_warnings(project)
+        result = project.relink(args.search, progress=Progress(), cancel=cancel_event())
+        missing = [project.get("image", i).path for i in result["not_found"]]
+    payload = {
+        "relinked": [{"image_id": i, "path": p} for i, p in result["relinked"]],
+        "not_found": [{"image_id": i, "path": p} for i, p in zip(result["not_found"], missing)],
+    }
+    if missing:
+        message(
+            f"flakebook: {len(missing)} images not found under {args.search}: "
+            + ", ".join(missing[:5])
+            + (" ..." if len(missing) > 5 else "")
+        )
+    lines = [f"relinked {i}: {p}" for i, p in result["relinked"]] or ["nothing to relink"]
+    emit(args, payload, text="\n".join(lines))
+    return 0
+
+
+def _recompute(args: argparse.Namespace) -> int:
+    load_recomputers()
+    with Project.open(args.project) as project:
+        _show_warnings(project)
+        report = project.recompute_stale(progress=Progress(), cancel=cancel_event())
+    payload = {
+        "recomputed": [{"kind": k, "id": i} for k, i in report.recomputed],
+        "unregistered": [{"kind": k, "id": i, "method": m} for k, i, m in report.unregistered],
+        "failed": [{"kind": k, "id": i, "reason": r} for k, i, r in report.failed],
+        "stale_left": len(report.unregistered) + len(report.failed),
+    }
+    if report.unregistered:
+        methods = sorted({m for _, _, m in report.unregistered})
+        message(
+            f"flakebook: {len(report.unregistered)} records stay stale: this flakebook has no "
+            f"recompute function for {', '.join(methods)}"
+        )
+    for kind, rid, reason in report.failed[:3]:
+        message(f"flakebook: {kind} {rid} stays stale: {reason}")
+    emit(
+        args,
+        payload,
+        text=f"recomputed {len(report.recomputed)} records; {payload['stale_left']} stay stale",
+    )
+    return 0
+
+
+def _parse_layers(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise InputError(f"--layers {text!r} is not a layer number; accepted: a whole number >= 1")
+    return value
+
+
+def _assign(args: argparse.Namespace) -> int:
+    if args.layers is None:
+        if args.reason is not None:
+            raise InputError("--reason goes with --layers N (the layer number you assign)")
+        return _show_evidence(args)
+    layers = _parse_layers(args.layers)
+    if not (args.reason or "").strip():
+        raise InputError("--layers needs --reason TEXT: a manual assignment keeps why it was made")
+    with Project.open(args.project) as project:
+        _show_warnings(project)
+        flake = project.find_flake(args.flake)
+        asg = project.assign(flake, layers, reason=args.reason)
+    payload = {
+        "flake_id": flake.label,
+        "layers": asg.layers,
+        "manual": True,
+        "reason": asg.reason,
+        "who": asg.who,
+        "assigned_at": asg.assigned_at,
+    }
+    emit(args, payload, text=f"{flake.label}: {layers} layers (by {asg.who}: {asg.reason})")
+    return 0
+
+
+def _show_evidence(args: argparse.Namespace) -> int:
+    with Project.open(args.project, read_only=True) as project:
+        _show_warnings(project)
+        flake = project.find_flake(args.flake)
+        evidence = project.evidence_of(flake)
+        asg = project.latest_assignment(flake)
+        primary = project.primary_terrace_id(flake)
+    ev_rows = [
+        {
+            "method": e.method,
+            "terrace_id": e.terrace_id,
+            "likelihood": e.likelihood.tolist(),
+            "most_likely": _most_likely(e.likelihood),
+            "reason": e.reason,
+            "source": e.source,
+            "stale": e.stale,
+        }
+        for e in evidence
+    ]
+    assignment = None
+    if asg is not None:
+        assignment = {
+            "layers": asg.layers,
+            "probability": asg.probability,
+            "ambiguous_with": list(asg.ambiguous_with),
+            "posterior": None if asg.posterior is None else asg.posterior.tolist(),
+            "manual": asg.manual,
+            "reason": asg.reason,
+            "method": asg.method,
+            "who": asg.who,
+            "assigned_at": asg.assigned_at,
+            "stale": asg.stale,
+        }
+    payload = {
+        "flake_id": flake.label,
+        "primary_terrace_id": primary,
+        "evidence": ev_rows,
+        "combined": _combined(evidence, primary),
+        "assignment": assignment,
+    }
+    if output_format(args) == "table":
+        lines = [f"{flake.label}: layer evidence ({len(ev_rows)})"]
+        for e in ev_rows:
+            mark = " (stale)" if e["stale"] else ""
+            lines.append(f"  {e['method']}: most likely {e['most_likely']}{mark}  {e['reason']}")
+        combined = payload["combined"]
+        if combined is not None:
+            amb = combined["ambiguous_with"]
+            also = f", ambiguous with {', '.join(map(str, amb))}" if amb else ""
+            lines.append(
+                f"  combined: {combined['layers']} layers, p = {combined['probability']:.3g}{also}"
+            )
+        if assignment is None:
+            lines.append("  no assignment yet")
+        else:
+            how = (
+                f"by {assignment['who']}: {assignment['reason']}"
+                if assignment["manual"]
+                else (
+                    f"p = {assignment['probability']}"
+                    if assignment["probability"] is not None
+                    else ""
+                )
+            )
+            lines.append(f"  assigned: {assignment['layers']} layers ({how})")
+        emit(args, payload, text="\n".join(lines))
+    else:
+        emit(args, payload)
+    return 0
+
+
+def _combined(evidence, primary_terrace_id) -> dict | None:
+    """The posterior of the primary terrace's evidence (and the flake's own) with a flat prior,
+    from flakebook.evidence; None without evidence (or without that module)."""
+    try:
+        from flakebook.evidence import combine
+    except ImportError:
+        return None
+    chosen = [e for e in evidence if e.terrace_id in (None, primary_terrace_id)]
+    if not chosen:
+        return None
+    try:
+        return combine([e.likelihood for e in chosen]).to_dict()
+    except InputError as exc:
+        message(f"flakebook: the evidence cannot be combined: {exc}")
+        return None
+
+
+def _most_likely(likelihood) -> str:
+    values = list(likelihood)
+    if not values or not any(math.isfinite(v) and v > 0 for v in values):
+        return "-"
+    best = max(range(len(values)), key=lambda i: values[i])
+    return f"more than {len(values) - 1}" if best == len(values) - 1 else str(best + 1)
+
+
+def _handoff_export(args: argparse.Namespace) -> int:
+    keys = [k.strip() for k in args.flakes.split(",") if k.strip()]
+    if not keys:
+        raise InputError("--flakes is empty; accepted: flake IDs separated by commas")
+    with Project.open(args.project, read_only=True) as project:
+        _show_warnings(project)
+        bundle = project.handoff_bundle(keys)
+    out = Path(args.out)
+    try:
+        out.write_text(json.dumps(bundle, ensure_ascii=False, indent=1) + "\n", encoding="utf-8")
+    except OSError as exc:
+        raise InputError(f"--out {out} cannot be written: {exc.strerror}") from None
+    message(f"flakebook: wrote {len(keys)} flakes to {out}")
+    return 0
+
+
+def _handoff_import(args: argparse.Namespace) -> int:
+    with Project.open(args.project) as project:
+        _show_warnings(project)
+        added = project.import_external_results(args.csv)
+        labels = {r.flake_id: project.get("flake", r.flake_id).label for r in added}
+    rows = [{"flake_id": labels[r.flake_id], **_result_fields(r)} for r in added]
+    emit(args, {"imported": rows}, text=f"imported {len(rows)} results from {args.csv}")
+    return 0
+
+
+def _result_fields(rec) -> dict:
+    data = record_to_dict(rec)
+    return {
+        k: data[k] for k in ("kappa_w_mk", "kappa_p16_w_mk", "kappa_p84_w_mk", "method", "note")
+    }

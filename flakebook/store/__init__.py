@@ -19,6 +19,7 @@ from flakebook.store.records import (
     BeamProfile,
     Calibration,
     CatalogueRow,
+    DeletedRows,
     Evidence,
     ExternalResult,
     Flake,
@@ -36,6 +37,7 @@ from flakebook.store.records import (
     ThermometryResult,
     ThermometrySeries,
     layer_spacing_nm,
+    record_to_dict,
 )
 from flakebook.store.schema import SCHEMA_VERSION
 from flakebook.substrate import SubstrateLayer, parse_substrate
@@ -74,7 +76,9 @@ __all__ = [
     "ExternalResult",
     "Calibration",
     "CatalogueRow",
+    "DeletedRows",
     "ImageCheck",
     "RecomputeReport",
     "parse_substrate",
+    "record_to_dict",
 ]

@@ -97,9 +97,12 @@ def _process_alive(pid: int) -> bool:
 
 
 def _refusal(project_path: Path, holder: LockInfo) -> ProjectLocked:
+    hint = "Open it read-only instead, or close it there first."
+    if holder.host != socket.gethostname():
+        hint += f" If it no longer runs there, delete {lock_path(project_path).name}."
     return ProjectLocked(
         f"{project_path} is already open by {holder.user} on {holder.host} since {holder.time} "
-        f"(process {holder.pid}).\nOpen it read-only instead, or close it there first.",
+        f"(process {holder.pid}).\n{hint}",
         holder,
     )
 
@@ -115,42 +118,43 @@ def acquire(project_path: str | os.PathLike) -> tuple[LockInfo, list[str]]:
     path = lock_path(project_path)
     mine = this_process()
     warnings: list[str] = []
-    for _attempt in range(3):
-        try:
-            fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
-        except FileExistsError:
-            holder = read_lock(path)
-            if holder is None:
-                raise ProjectLocked(
-                    f"{project_path} has a lock file {path.name} that cannot be read.\n"
-                    "Open the project read-only, or delete the lock file if no one has it open.",
-                    None,
-                ) from None
-            if holder.host != mine.host or _process_alive(holder.pid):
-                raise _refusal(project_path, holder) from None
-            # The process that left the lock no longer runs on this host: take it over.
-            tmp = path.with_name(f"{path.name}.{mine.pid}.tmp")
-            try:
-                tmp.write_text(mine.to_json(), encoding="utf-8")
-                os.replace(tmp, path)
-            except OSError as exc:
-                raise ProjectError(f"cannot write the lock file {path}: {exc.strerror}") from None
-            warnings.append(
-                f"{project_path.name} was left open by {holder.user} (process {holder.pid}, no "
-                f"longer running) since {holder.time}; its lock was taken over."
-            )
-            return mine, warnings
-        except OSError as exc:
-            raise ProjectError(
-                f"cannot write the lock file {path}: {exc.strerror}.\n"
-                "Open the project read-only, or move it to a folder you can write to."
+    try:
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+    except FileExistsError:
+        holder = read_lock(path)
+        if holder is None:
+            raise ProjectLocked(
+                f"{project_path} has a lock file {path.name} that cannot be read.\n"
+                "Open the project read-only, or delete the lock file if no one has it open.",
+                None,
             ) from None
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(mine.to_json())
-            fh.flush()
-            os.fsync(fh.fileno())
+        if holder.host != mine.host or _process_alive(holder.pid):
+            raise _refusal(project_path, holder) from None
+        # The process that left the lock no longer runs on this host: take it over.
+        tmp = path.with_name(f"{path.name}.{mine.pid}.tmp")
+        try:
+            tmp.write_text(mine.to_json(), encoding="utf-8")
+            os.replace(tmp, path)
+        except OSError as exc:
+            raise ProjectError(f"cannot write the lock file {path}: {exc.strerror}") from None
+        now = read_lock(path)
+        if now != mine:  # another program took the stale lock over at the same moment
+            raise _refusal(project_path, now or holder) from None
+        warnings.append(
+            f"{project_path.name} was left open by {holder.user} (process {holder.pid}, no "
+            f"longer running) since {holder.time}; its lock was taken over."
+        )
         return mine, warnings
-    raise ProjectError(f"cannot take the lock {path}")  # pragma: no cover
+    except OSError as exc:
+        raise ProjectError(
+            f"cannot write the lock file {path}: {exc.strerror}.\n"
+            "Open the project read-only, or move it to a folder you can write to."
+        ) from None
+    with os.fdopen(fd, "w", encoding="utf-8") as fh:
+        fh.write(mine.to_json())
+        fh.flush()
+        os.fsync(fh.fileno())
+    return mine, warnings
 
 
 def release(project_path: str | os.PathLike, mine: LockInfo) -> None:

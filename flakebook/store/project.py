@@ -44,6 +44,7 @@ from flakebook.store.records import (
     BeamProfile,
     Calibration,
     CatalogueRow,
+    DeletedRows,
     Evidence,
     ExternalResult,
     Flake,
@@ -61,18 +62,36 @@ from flakebook.store.records import (
     ThermometryResult,
     ThermometrySeries,
     layer_spacing_nm,
+    record_to_dict,
     record_type,
 )
 from flakebook.substrate import SubstrateLayer, check_stack, oxide_stack, parse_substrate
 
 SUFFIX = ".flakebook"
+#: The keys of ``flakebook export`` rows, in order (INTERFACE.md).
+EXPORT_COLUMNS = (
+    "flake_id",
+    "sample",
+    "area_um2",
+    "layers",
+    "probability",
+    "holes_covered",
+    "thickness_nm",
+    "kappa_w_mk",
+    "kappa_p16_w_mk",
+    "kappa_p84_w_mk",
+    "stale",
+)
 DEFAULT_MAX_LAYERS = 15
 _SQLITE_MAGIC = b"SQLite format 3\x00"
 _ACCEPTED = "accepted: a .flakebook project file written by flakebook"
 _TIMESTAMP_COLUMNS = frozenset({"computed_at", "assigned_at", "imported_at"})
 _TIMESTAMP_META = frozenset({"created_at"})
-# Columns that are no dataclass field: kept in step with the record on every write.
+# Columns that are no dataclass field (area_um2; terraces.flake_id, appearances.pixel_size_um):
+# kept in step with the records on every write, for the catalogue's speed.
 _AREA_TABLES = frozenset({"appearances", "terraces"})
+
+_TABLE_KINDS = {cls.TABLE: kind for kind, cls in KINDS.items()}
 
 Clock = Callable[[], datetime | str]
 Progress = Callable[[float, str], None]
@@ -207,6 +226,14 @@ def _check_header(path: Path) -> None:
         )
     if len(header) < 100:
         raise ProjectError(f"{path} is damaged: it is cut short ({size} bytes); {_ACCEPTED}")
+    # The header's own fields, read before SQLite is given the file (so that not even a
+    # leftover journal of some other database is rolled back): application id and user version.
+    (user_version,) = struct.unpack(">I", header[60:64])
+    (app_id,) = struct.unpack(">I", header[68:72])
+    if app_id != schema.APPLICATION_ID:
+        raise ProjectError(f"{path} is an SQLite database but not a flakebook project; {_ACCEPTED}")
+    if user_version > schema.SCHEMA_VERSION:
+        raise ProjectError(_newer_message(path, user_version))
     (page_size,) = struct.unpack(">H", header[16:18])
     page_size = 65536 if page_size == 1 else page_size
     change_counter, page_count = struct.unpack(">II", header[24:32])
@@ -237,14 +264,18 @@ def _inspect(con: sqlite3.Connection, path: Path) -> int:
     if app_id != schema.APPLICATION_ID or "meta" not in tables:
         raise ProjectError(f"{path} is an SQLite database but not a flakebook project; {_ACCEPTED}")
     if version > schema.SCHEMA_VERSION:
-        raise ProjectError(
-            f"{path} was written by a newer flakebook (project format {version}; this is "
-            f"flakebook {flakebook.__version__}, which reads formats up to "
-            f"{schema.SCHEMA_VERSION}).\nThe file was not changed; open it with a newer flakebook."
-        )
+        raise ProjectError(_newer_message(path, version))
     if version < 1:
         raise ProjectError(f"{path} has no project format version; {_ACCEPTED}")
     return version
+
+
+def _newer_message(path: Path, version: int) -> str:
+    return (
+        f"{path} was written by a newer flakebook (project format {version}; this is "
+        f"flakebook {flakebook.__version__}, which reads formats up to "
+        f"{schema.SCHEMA_VERSION}).\nThe file was not changed; open it with a newer flakebook."
+    )
 
 
 def _connect_ro(path: Path) -> sqlite3.Connection:
@@ -416,6 +447,10 @@ class Project:
             )
         if ro is not None:
             ro.close()
+        if not os.access(path, os.W_OK):
+            raise ProjectError(
+                f"{path} cannot be written (no write permission); open it read-only instead"
+            )
         lock_info, warnings = lock.acquire(path)
         try:
             con = cls._connect_rw(path)
@@ -559,18 +594,28 @@ class Project:
         self._depth += 1
         try:
             yield self
-        except BaseException:
+            if depth == 0:
+                con.execute("COMMIT")
+        except BaseException as exc:
             self._depth -= 1
             if depth == 0:
-                con.execute("ROLLBACK")
+                if con.in_transaction:
+                    con.execute("ROLLBACK")
             else:
                 con.execute(f"ROLLBACK TO sp{depth}")
                 con.execute(f"RELEASE sp{depth}")
+            if isinstance(exc, sqlite3.IntegrityError):
+                raise InputError(
+                    f"{self._path.name}: this change refers to a record that does not exist or "
+                    f"repeats a unique name ({exc}); nothing was changed"
+                ) from None
+            if isinstance(exc, sqlite3.Error):
+                raise ProjectError(
+                    f"{self._path} could not be saved ({exc}); nothing of this action was saved"
+                ) from None
             raise
         self._depth -= 1
-        if depth == 0:
-            con.execute("COMMIT")
-        else:
+        if depth > 0:
             con.execute(f"RELEASE sp{depth}")
 
     # ---- generic records -----------------------------------------------------------------
@@ -581,6 +626,15 @@ class Project:
         values.pop("revision")
         if rec.TABLE in _AREA_TABLES:
             values["area_um2"] = rec.area_um2
+        if isinstance(rec, Terrace):
+            row = self._db.execute(
+                "SELECT flake_id FROM appearances WHERE id = ?", (rec.appearance_id,)
+            ).fetchone()
+            if row is None:
+                raise InputError(f"{self._path.name} has no appearance with id {rec.appearance_id}")
+            values["flake_id"] = row[0]
+        elif isinstance(rec, Appearance):
+            values["pixel_size_um"] = self._pixel_size(rec.image_id)
         return values
 
     def _from_row(self, cls: type[Record], row: Sequence[Any]) -> Record:
@@ -694,11 +748,19 @@ class Project:
         self._after_update(old, stored)
         return stored
 
-    def delete(self, record: Record | str | type[Record], record_id: int | None = None) -> None:
+    def delete(
+        self,
+        record: Record | str | type[Record],
+        record_id: int | None = None,
+        *,
+        undo: bool = True,
+    ) -> DeletedRows:
         """Delete a record (``delete(rec)`` or ``delete("flake", 3)``) and what belongs to it.
 
         Deleting a sample deletes its images, flakes and everything on them (foreign keys);
-        records derived from a deleted record are marked stale.
+        records derived from anything deleted are marked stale. Returns what was removed, which
+        :meth:`restore` puts back exactly (for undo); ``undo=False`` keeps no copy (for large
+        deletes whose data need not stay in memory) and returns an empty :class:`DeletedRows`.
         """
         if isinstance(record, Record):
             cls, rid = type(record), _id_of(record)
@@ -706,7 +768,43 @@ class Project:
             cls, rid = record_type(record), _id_of(record_id)
         with self.transaction():
             self.get(cls, rid)
-            self._mark_dependents(cls.KIND, rid)
+            doomed = self._cascade(cls.TABLE, rid)
+            rows, nulled = [], []
+            for table, ids in doomed.items() if undo else ():
+                cur = self._db.execute(
+                    f"SELECT rowid, * FROM {table} WHERE rowid IN ({_qmarks(ids)}) ORDER BY rowid",
+                    sorted(ids),
+                )
+                columns = tuple(d[0] for d in cur.description[1:])
+                rows.append((table, columns, tuple(tuple(r[1:]) for r in cur)))
+                for child, column in self._foreign_keys().get(table, {}).get("SET NULL", ()):
+                    keep = self._db.execute(
+                        f"SELECT rowid, {column} FROM {child} WHERE {column} IN ({_qmarks(ids)})",
+                        sorted(ids),
+                    ).fetchall()
+                    nulled.extend(
+                        (child, column, r, v) for r, v in keep if r not in doomed.get(child, ())
+                    )
+            staled: list[tuple[str, int]] = []
+            for table, ids in doomed.items():
+                kind = _TABLE_KINDS.get(table)
+                if kind is not None:
+                    for i in ids:
+                        staled.extend(self._mark_dependents(kind, i))
+            dead = {(_TABLE_KINDS.get(t), i) for t, ids in doomed.items() for i in ids}
+            staled = [x for x in staled if (_TABLE_KINDS.get(x[0]), x[1]) not in dead]
+            deps = []
+            for kind in DERIVED_KINDS:
+                ids = doomed.get(KINDS[kind].TABLE)
+                if ids:
+                    deps.extend(
+                        self._db.execute(
+                            "SELECT derived_kind, derived_id, position, input_kind, input_id, "
+                            f"input_revision FROM dependencies WHERE derived_kind = ? AND "
+                            f"derived_id IN ({_qmarks(ids)})",
+                            (kind, *sorted(ids)),
+                        ).fetchall()
+                    )
             self._db.execute(f"DELETE FROM {cls.TABLE} WHERE id = ?", (rid,))
             for kind in DERIVED_KINDS:
                 self._db.execute(
@@ -714,6 +812,73 @@ class Project:
                     f"(SELECT id FROM {KINDS[kind].TABLE})",
                     (kind,),
                 )
+        if not undo:
+            return DeletedRows()
+        return DeletedRows(tuple(rows), tuple(nulled), tuple(staled), tuple(deps))
+
+    def restore(self, deleted: DeletedRows) -> None:
+        """Put back exactly what a :meth:`delete` removed (same ids, values and revisions), and
+        undo the stale marks and emptied references it caused. Raises :class:`InputError` when
+        an id has been taken since."""
+        with self.transaction():
+            self._db.execute("PRAGMA defer_foreign_keys = ON")
+            for table, columns, rows in deleted.rows:
+                self._db.executemany(
+                    f"INSERT INTO {table} ({', '.join(columns)}) VALUES ({_qmarks(columns)})",
+                    rows,
+                )
+            for table, column, rowid, value in deleted.nulled:
+                self._db.execute(
+                    f"UPDATE {table} SET {column} = ? WHERE rowid = ? AND {column} IS NULL",
+                    (value, rowid),
+                )
+            for table, rid in deleted.staled:
+                self._db.execute(f"UPDATE {table} SET stale = 0 WHERE id = ?", (rid,))
+            self._db.executemany(
+                "INSERT OR IGNORE INTO dependencies (derived_kind, derived_id, position, "
+                "input_kind, input_id, input_revision) VALUES (?, ?, ?, ?, ?, ?)",
+                deleted.dependencies,
+            )
+
+    def _foreign_keys(self) -> dict[str, dict[str, list[tuple[str, str]]]]:
+        """parent table -> on-delete action -> [(child table, column)], from the schema."""
+        fks = getattr(self, "_fk_cache", None)
+        if fks is None:
+            fks = {}
+            tables = [
+                r[0]
+                for r in self._db.execute(
+                    "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%'"
+                )
+            ]
+            for child in tables:
+                for row in self._db.execute(f"PRAGMA foreign_key_list({child})"):
+                    parent, column, action = row[2], row[3], row[6]
+                    fks.setdefault(parent, {}).setdefault(action, []).append((child, column))
+            self._fk_cache = fks
+        return fks
+
+    def _cascade(self, table: str, rid: int) -> dict[str, set[int]]:
+        """Every row (table -> rowids) that deleting ``table`` row ``rid`` removes."""
+        doomed: dict[str, set[int]] = {}
+        todo = [(table, {rid})]
+        while todo:
+            t, ids = todo.pop()
+            ids = ids - doomed.get(t, set())
+            if not ids:
+                continue
+            doomed.setdefault(t, set()).update(ids)
+            for child, column in self._foreign_keys().get(t, {}).get("CASCADE", ()):
+                found = {
+                    r[0]
+                    for r in self._db.execute(
+                        f"SELECT rowid FROM {child} WHERE {column} IN ({_qmarks(ids)})",
+                        sorted(ids),
+                    )
+                }
+                if found:
+                    todo.append((child, found))
+        return doomed
 
     # ---- per-kind rules applied on every add and update -----------------------------------
 
@@ -748,6 +913,11 @@ class Project:
                     f"terrace {terrace.id} is not on flake {rec.label}; a flake's primary terrace "
                     "must be one of its own"
                 )
+        if isinstance(rec, Evidence) and rec.likelihood.size != self.max_layers + 1:
+            raise InputError(
+                f"layer evidence has {rec.likelihood.size} values; this project needs "
+                f"{self.max_layers + 1} (N = 1..{self.max_layers} and one 'more' bin)"
+            )
         if rec.DERIVED:
             self._check_inputs(rec)
             if old is None:
@@ -778,9 +948,18 @@ class Project:
         return self._pixel_size(self.get(Appearance, rec.appearance_id).image_id)
 
     def _after_update(self, old: Record, new: Record) -> None:
-        """A new pixel size rescales what was measured in um on that image."""
+        """Keep the catalogue's columns in step; a new pixel size rescales what was measured in
+        um on that image."""
+        if isinstance(new, Appearance) and new.flake_id != old.flake_id:
+            self._db.execute(
+                "UPDATE terraces SET flake_id = ? WHERE appearance_id = ?", (new.flake_id, new.id)
+            )
         if not isinstance(new, Image) or new.pixel_size_um == old.pixel_size_um:
             return
+        self._db.execute(
+            "UPDATE appearances SET pixel_size_um = ? WHERE image_id = ?",
+            (new.pixel_size_um, new.id),
+        )
         size = new.pixel_size_um
         if size is None:
             return
@@ -833,8 +1012,10 @@ class Project:
             [(rec.KIND, rec.id, i, r.kind, r.id, r.revision) for i, r in enumerate(rec.inputs)],
         )
 
-    def _mark_dependents(self, kind: str, rid: int) -> None:
-        todo, seen = [(kind, rid)], set()
+    def _mark_dependents(self, kind: str, rid: int) -> list[tuple[str, int]]:
+        """Mark everything computed from a record stale (transitively); returns the (table, id)
+        of records that were not stale before."""
+        todo, seen, newly = [(kind, rid)], set(), []
         while todo:
             k, i = todo.pop()
             rows = self._db.execute(
@@ -846,8 +1027,14 @@ class Project:
                 if (dk, did) in seen or dk not in KINDS:
                     continue
                 seen.add((dk, did))
-                self._db.execute(f"UPDATE {KINDS[dk].TABLE} SET stale = 1 WHERE id = ?", (did,))
+                table = KINDS[dk].TABLE
+                cur = self._db.execute(
+                    f"UPDATE {table} SET stale = 1 WHERE id = ? AND stale = 0", (did,)
+                )
+                if cur.rowcount:
+                    newly.append((table, did))
                 todo.append((dk, did))
+        return newly
 
     def stale_records(self) -> list[Record]:
         """Every derived record marked stale (evidence, assignments, thermometry results)."""
@@ -1118,12 +1305,6 @@ class Project:
         """Add layer evidence: a likelihood over N = 1..N_max and the 'more' bin (length
         ``max_layers + 1``), what it was computed from (``inputs``), how (``method``,
         ``parameters``) and the published ``source`` of its constants."""
-        lk = codec.decode_array(codec.encode_array(likelihood))
-        if lk is not None and lk.ndim == 1 and lk.size != self.max_layers + 1:
-            raise InputError(
-                f"layer evidence has {lk.size} values; this project needs {self.max_layers + 1} "
-                f"(N = 1..{self.max_layers} and one 'more' bin)"
-            )
         return self.add(
             Evidence(
                 flake_id=_id_of(flake),
@@ -1314,25 +1495,23 @@ class Project:
         """The flakes (of one sample, or all) with their latest assignment, area (from the
         finest-pixel image), fully covered holes and whether anything of theirs is stale."""
         sid = _id_of(sample)
-        rows = self._db.execute(_CATALOGUE_SQL, (sid, sid)).fetchall()
+        con = self._db
+        # Few flakes cover holes or have stale records: two small queries, looked up per row.
+        covered = {r[0]: r[1:] for r in con.execute(_COVERED_SQL)}
+        stale = {r[0] for r in con.execute(_STALE_SQL)}
+        make = CatalogueRow._make
         return [
-            CatalogueRow(
-                flake_id=r[0],
-                label=r[1],
-                sample_id=r[2],
-                sample=r[3],
-                material=r[4],
-                status=r[5],
-                tags=tuple(json.loads(r[6])),
-                area_um2=r[7],
-                primary_terrace_id=r[8],
-                layers=r[9],
-                probability=r[10],
-                manual=bool(r[11]),
-                holes_covered=r[12],
-                stale=bool(r[13]),
+            make(
+                (
+                    *r[:6],
+                    _tags(r[6]),
+                    *r[7:11],
+                    bool(r[11]),
+                    *covered.get(r[0], (0, None)),
+                    r[0] in stale,
+                )
             )
-            for r in rows
+            for r in con.execute(_CATALOGUE_SQL, (sid, sid))
         ]
 
     def export_rows(self, sample: RecordRef | None = None) -> list[dict[str, Any]]:
@@ -1367,21 +1546,20 @@ class Project:
             if thickness is None and row.layers is not None:
                 spacing = layer_spacing_nm(row.material)
                 thickness = None if spacing is None else round(row.layers * spacing, 6)
-            out.append(
-                {
-                    "flake_id": row.label,
-                    "sample": row.sample,
-                    "area_um2": row.area_um2,
-                    "layers": row.layers,
-                    "probability": row.probability,
-                    "holes_covered": row.holes_covered,
-                    "thickness_nm": thickness,
-                    "kappa_w_mk": kappa,
-                    "kappa_p16_w_mk": p16,
-                    "kappa_p84_w_mk": p84,
-                    "stale": row.stale,
-                }
+            values = (
+                row.label,
+                row.sample,
+                row.area_um2,
+                row.layers,
+                row.probability,
+                row.holes_covered,
+                thickness,
+                kappa,
+                p16,
+                p84,
+                row.stale,
             )
+            out.append(dict(zip(EXPORT_COLUMNS, values, strict=True)))
         return out
 
     def info(self) -> dict[str, Any]:
@@ -1581,9 +1759,9 @@ class Project:
                         }
                         for link, hole in self.holes_covered_by(flake)
                     ],
-                    "spectra": [_public(s) for s in self.spectra_of(flake)],
-                    "thermometry_series": [_public(s) for s in series],
-                    "thermometry_results": [_public(r) for r in results],
+                    "spectra": [record_to_dict(s) for s in self.spectra_of(flake)],
+                    "thermometry_series": [record_to_dict(s) for s in series],
+                    "thermometry_results": [record_to_dict(r) for r in results],
                 }
             )
         return {
@@ -1664,6 +1842,14 @@ class Project:
         return out
 
 
+def _qmarks(items) -> str:
+    return ", ".join("?" * len(items))
+
+
+def _tags(text: str) -> tuple:
+    return () if text == "[]" else tuple(json.loads(text))
+
+
 def _same_array(a, b) -> bool:
     return a is b or (a is not None and b is not None and np.array_equal(a, b))
 
@@ -1673,21 +1859,6 @@ def _canonical_value(value: Any) -> Any:
         data = bytes(value)
         return {"sha256": hashlib.sha256(data).hexdigest(), "bytes": len(data)}
     return value
-
-
-def _public(rec: Record) -> dict[str, Any]:
-    """A record as JSON-able data (arrays as lists, inputs as [kind, id, revision])."""
-    out = {}
-    for f in dataclasses.fields(rec):
-        v = getattr(rec, f.name)
-        if hasattr(v, "tolist"):
-            v = v.tolist()
-        elif f.name == "inputs":
-            v = [[r.kind, r.id, r.revision] for r in v]
-        elif isinstance(v, tuple):
-            v = list(v)
-        out[f.name] = v
-    return out
 
 
 def _construct(cls: type[Record], kwargs: dict[str, Any]) -> Record:
@@ -1754,11 +1925,10 @@ _PRIMARY_TERRACE = """COALESCE(
     (SELECT fh.terrace_id FROM flake_holes fh
       WHERE fh.flake_id = f.id AND fh.terrace_id IS NOT NULL
       ORDER BY fh.fully_covered DESC, fh.covered_fraction DESC, fh.id LIMIT 1),
-    (SELECT t.id FROM appearances a JOIN terraces t ON t.appearance_id = a.id
-      WHERE a.flake_id = f.id ORDER BY t.area_um2 DESC, t.id LIMIT 1))"""
+    (SELECT t.id FROM terraces t WHERE t.flake_id = f.id ORDER BY t.area_um2 DESC, t.id LIMIT 1))"""
 
 _CATALOGUE_SQL = f"""
-WITH base AS (
+WITH base AS MATERIALIZED (
     SELECT f.id, f.label, f.sample_id, f.status, f.tags, {_PRIMARY_TERRACE} AS tid
     FROM flakes f WHERE (? IS NULL OR f.sample_id = ?)
 ), latest AS (
@@ -1769,18 +1939,22 @@ WITH base AS (
     FROM base b
 )
 SELECT l.id, l.label, l.sample_id, s.name, s.material, l.status, l.tags,
-    (SELECT ap.area_um2 FROM appearances ap JOIN images i ON i.id = ap.image_id
-      WHERE ap.flake_id = l.id
-      ORDER BY i.pixel_size_um IS NULL, i.pixel_size_um, ap.id LIMIT 1),
-    l.tid, asg.layers, asg.probability, COALESCE(asg.manual, 0),
-    (SELECT COUNT(*) FROM flake_holes fh WHERE fh.flake_id = l.id AND fh.fully_covered),
-    EXISTS(SELECT 1 FROM evidence e WHERE e.flake_id = l.id AND e.stale)
-      OR EXISTS(SELECT 1 FROM assignments a2 WHERE a2.flake_id = l.id AND a2.stale)
-      OR EXISTS(SELECT 1 FROM thermometry_results r WHERE r.flake_id = l.id AND r.stale)
+    (SELECT ap.area_um2 FROM appearances ap WHERE ap.flake_id = l.id
+      ORDER BY COALESCE(ap.pixel_size_um, 1e308), ap.id LIMIT 1),
+    asg.layers, asg.probability, l.tid, COALESCE(asg.manual, 0)
 FROM latest l
 JOIN samples s ON s.id = l.sample_id
 LEFT JOIN assignments asg ON asg.id = l.aid
 ORDER BY l.sample_id, l.label
 """
 
-__all__ = ["Project", "SUFFIX", "DEFAULT_MAX_LAYERS"]
+_COVERED_SQL = (
+    "SELECT flake_id, COUNT(*), MAX(margin_um) FROM flake_holes WHERE fully_covered "
+    "GROUP BY flake_id"
+)
+_STALE_SQL = (
+    "SELECT flake_id FROM evidence WHERE stale UNION SELECT flake_id FROM assignments WHERE stale "
+    "UNION SELECT flake_id FROM thermometry_results WHERE stale"
+)
+
+__all__ = ["Project", "SUFFIX", "DEFAULT_MAX_LAYERS", "EXPORT_COLUMNS"]

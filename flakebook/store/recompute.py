@@ -43,3 +43,22 @@ def registered_recomputers(extra: Mapping[str, Recomputer] | None = None) -> dic
     if extra:
         out.update(extra)
     return out
+
+
+#: Modules that register recompute functions when imported (the packages that compute derived
+#: records add themselves here, e.g. ``"flakebook.optics.recompute"``).
+RECOMPUTER_MODULES: tuple[str, ...] = ()
+
+
+def load_recomputers() -> list[str]:
+    """Import every module of :data:`RECOMPUTER_MODULES`; returns those that could not be
+    imported (their records stay stale and are reported)."""
+    import importlib
+
+    missing = []
+    for name in RECOMPUTER_MODULES:
+        try:
+            importlib.import_module(name)
+        except ImportError:
+            missing.append(name)
+    return missing

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, fields
-from typing import ClassVar
+from typing import ClassVar, NamedTuple
 
 import numpy as np
 
@@ -82,6 +82,8 @@ def _as_array(obj, name: str, *, ndim: int | None = None, pairs: bool = False) -
                 f"{type(obj).__name__}.{name} must be a polygon of (x, y) points, an N x 2 array; "
                 f"got shape {arr.shape}"
             )
+        if not np.all(np.isfinite(arr)):
+            raise InputError(f"{type(obj).__name__}.{name} has points that are not finite numbers")
     elif ndim is not None and arr.ndim != ndim:
         raise InputError(f"{type(obj).__name__}.{name} must be a {ndim}-D array, got {arr.ndim}-D")
     arr.flags.writeable = False
@@ -200,12 +202,15 @@ class Record:
 
 @dataclass(frozen=True, kw_only=True)
 class Derived(Record):
-    """Provenance of a computed record."""
+    """Provenance of a computed record: ``method`` and its ``parameters``, the published
+    ``source`` of any constants used, the ``inputs`` (kind, id, revision), the flakebook version,
+    when, and whether an input has changed since (``stale``)."""
 
     DERIVED: ClassVar[bool] = True
 
     method: str = ""
     parameters: dict = _json()
+    source: str = ""
     inputs: tuple = field(default=(), metadata={"codec": "inputs"})
     flakebook_version: str = ""
     computed_at: str | None = None
@@ -213,6 +218,7 @@ class Derived(Record):
 
     def _check_provenance(self):
         _text(self, "method", required=True)
+        _text(self, "source")
         refs = []
         for item in self.inputs:
             if isinstance(item, SourceRef):
@@ -500,8 +506,7 @@ class BeamProfile(Record):
 class Evidence(Derived):
     """Layer evidence: a likelihood over N = 1..max_layers plus one "more" bin.
 
-    ``source`` names the published source of the constants used; ``reason`` says in words what
-    the evidence rests on.
+    ``reason`` says in words what the evidence rests on.
     """
 
     KIND: ClassVar[str] = "evidence"
@@ -510,7 +515,6 @@ class Evidence(Derived):
     flake_id: int
     terrace_id: int | None = None
     likelihood: np.ndarray = _array()
-    source: str = ""
     reason: str = ""
 
     def __post_init__(self):
@@ -524,7 +528,6 @@ class Evidence(Derived):
                 "Evidence.likelihood must hold at least 2 finite values >= 0 "
                 "(N = 1..N_max and a 'more' bin)"
             )
-        _text(self, "source")
         _text(self, "reason")
 
     @property
@@ -724,9 +727,31 @@ def record_type(kind: str | type[Record] | Record) -> type[Record]:
         ) from None
 
 
-@dataclass(frozen=True)
-class CatalogueRow:
-    """One flake in the catalogue with its latest assignment and whether anything is stale."""
+def record_to_dict(rec: Record) -> dict:
+    """A record as JSON-able data (arrays as lists, inputs as ``[kind, id, revision]``)."""
+    out = {}
+    for f in fields(rec):
+        v = getattr(rec, f.name)
+        if hasattr(v, "tolist"):
+            v = v.tolist()
+        elif f.name == "inputs":
+            v = [[r.kind, r.id, r.revision] for r in v]
+        elif isinstance(v, HolePattern):
+            v = v.to_dict()
+        elif f.name == "substrate":
+            v = [layer.to_dict() for layer in v]
+        elif isinstance(v, tuple):
+            v = list(v)
+        out[f.name] = v
+    return out
+
+
+class CatalogueRow(NamedTuple):
+    """One flake in the catalogue with its latest assignment and whether anything is stale.
+
+    ``holes_covered`` counts the holes it covers fully; ``margin_um`` is the largest margin to
+    the flake's edge among them (None without a fully covered hole or a margin).
+    """
 
     flake_id: int
     label: str
@@ -738,9 +763,10 @@ class CatalogueRow:
     area_um2: float | None
     layers: int | None
     probability: float | None
-    manual: bool
     primary_terrace_id: int | None
+    manual: bool
     holes_covered: int
+    margin_um: float | None
     stale: bool
 
 
@@ -753,6 +779,22 @@ class ImageCheck:
     status: str
     embedded: bool
     file: str
+
+
+@dataclass(frozen=True)
+class DeletedRows:
+    """What ``Project.delete`` removed, for ``Project.restore`` (undo): the rows of every table
+    (columns and values), references the delete emptied, stale marks it set, and the
+    provenance rows of deleted derived records."""
+
+    rows: tuple = ()
+    nulled: tuple = ()
+    staled: tuple = ()
+    dependencies: tuple = ()
+
+    def count(self) -> int:
+        """How many rows were deleted."""
+        return sum(len(rows) for _, _, rows in self.rows)
 
 
 @dataclass(frozen=True)
@@ -794,9 +836,11 @@ __all__ = [
     "CatalogueRow",
     "ImageCheck",
     "RecomputeReport",
+    "DeletedRows",
     "KINDS",
     "DERIVED_KINDS",
     "record_type",
+    "record_to_dict",
     "layer_spacing_nm",
     "polygon_area",
 ]

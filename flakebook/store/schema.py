@@ -10,6 +10,10 @@ Version history:
      ``{"material", "thickness_nm"}`` from the top down; v1 files get ``SiO2:oxide_nm, Si``);
      results imported from outside analyses (``external_results``) and optics calibrations
      (``calibrations``).
+  3. for the catalogue's speed, terraces carry their flake (``terraces.flake_id``) and
+     appearances their image's pixel size (``appearances.pixel_size_um``), both kept in step by
+     the store, with indexes for the catalogue; every derived record names the published source
+     of its constants (``source`` on assignments and thermometry results, as evidence had).
 """
 
 from __future__ import annotations
@@ -20,7 +24,7 @@ from collections.abc import Callable
 
 #: "FLKB": marks a SQLite file as a flakebook project.
 APPLICATION_ID = 0x464C4B42
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 _PROVENANCE = """
     method TEXT NOT NULL DEFAULT '',
@@ -301,8 +305,38 @@ CREATE TABLE calibrations (
 CREATE INDEX calibrations_sample ON calibrations(sample_id)
 """
 
+
+def _v2_to_v3(con: sqlite3.Connection) -> None:
+    """Catalogue columns and indexes; provenance source on every derived record."""
+    for statement in _V3_CHANGES.split(";"):
+        if statement.strip():
+            con.execute(statement)
+    con.execute(
+        "UPDATE terraces SET flake_id = "
+        "(SELECT a.flake_id FROM appearances a WHERE a.id = terraces.appearance_id)"
+    )
+    con.execute(
+        "UPDATE appearances SET pixel_size_um = "
+        "(SELECT i.pixel_size_um FROM images i WHERE i.id = appearances.image_id)"
+    )
+
+
+_V3_CHANGES = """
+ALTER TABLE terraces ADD COLUMN flake_id INTEGER REFERENCES flakes(id) ON DELETE CASCADE;
+CREATE INDEX terraces_flake ON terraces(flake_id, area_um2 DESC, id);
+ALTER TABLE appearances ADD COLUMN pixel_size_um REAL;
+CREATE INDEX appearances_finest ON appearances(flake_id, COALESCE(pixel_size_um, 1e308), id);
+CREATE INDEX flake_holes_primary ON flake_holes(flake_id, fully_covered DESC, covered_fraction DESC, id)
+    WHERE terrace_id IS NOT NULL;
+CREATE INDEX flake_holes_covered ON flake_holes(flake_id, fully_covered);
+CREATE INDEX assignments_stale ON assignments(flake_id) WHERE stale;
+CREATE INDEX thermometry_results_stale ON thermometry_results(flake_id) WHERE stale;
+ALTER TABLE assignments ADD COLUMN source TEXT NOT NULL DEFAULT '';
+ALTER TABLE thermometry_results ADD COLUMN source TEXT NOT NULL DEFAULT ''
+"""
+
 #: MIGRATIONS[v] brings a file from version v to v + 1 (run inside one transaction).
-MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {1: _v1_to_v2}
+MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {1: _v1_to_v2, 2: _v2_to_v3}
 
 
 def create_v1(con: sqlite3.Connection) -> None:
