@@ -12,7 +12,6 @@ Layer numbers, contrast, holes and coverage come from the core (``flakebook.imag
 
 from __future__ import annotations
 
-import dataclasses
 import logging
 from collections.abc import Callable, Sequence
 from contextlib import contextmanager
@@ -34,9 +33,7 @@ from flakebook.store import (
     Image,
     Project,
     ProjectLocked,
-    Record,
     Sample,
-    SourceRef,
     Terrace,
     register_recomputer,
 )
@@ -597,28 +594,10 @@ class Session:
             self._update_coverage_for_hole(hole)
 
     def delete_hole(self, hole_id: int) -> Undo:
+        """Delete a hole (and its flake links); the undo puts back exactly the same rows."""
         p = self.project
-        hole = self._get(Hole, hole_id)
-        links = p.records(FlakeHole, hole_id=hole.id)
-        p.delete(hole)
-
-        def restore():
-            with p.transaction():
-                new = p.add(dataclasses.replace(hole, id=None, revision=0))
-                for lk in links:
-                    if p.records(Flake, id=self._r("flake", lk.flake_id)):
-                        p.add(
-                            dataclasses.replace(
-                                lk,
-                                id=None,
-                                revision=0,
-                                hole_id=new.id,
-                                flake_id=self._r("flake", lk.flake_id),
-                            )
-                        )
-            self._alias_to("hole", hole.id, new.id)
-
-        return restore
+        deleted = p.delete(self._get(Hole, hole_id))
+        return lambda: p.restore(deleted)
 
     def _update_coverage_for_hole(self, hole: Hole) -> None:
         """Coverage of this hole by every flake outlined in its image (imaging.holes)."""
@@ -744,122 +723,42 @@ class Session:
         if ka is None or oa is None:
             raise InputError("Both flakes need an outline in the image shown.")
         union = merge_outlines(ka.outline_px, oa.outline_px)
-        snap_keep, snap_other = self._capture_flake(keep), self._capture_flake(other)
+        before = ka.outline_px.copy()
+        moved_t = [t.id for t in p.records(Terrace, appearance_id=oa.id)]
+        moved_e = [e.id for e in p.evidence_of(other)]
+        deleted = []
         with p.transaction():
-            for t in p.records(Terrace, appearance_id=oa.id):
-                p.update(t, appearance_id=ka.id)
-            for e in p.evidence_of(other):
-                p.update(e, flake_id=keep)
+            for tid in moved_t:
+                p.update(p.get(Terrace, tid), appearance_id=ka.id)
+            for eid in moved_e:
+                p.update(p.get(Evidence, eid), flake_id=keep)
             for asg in p.assignments_of(other):
-                p.delete(asg)
+                deleted.append(p.delete(asg))
             for lk in p.records(FlakeHole, flake_id=other):
-                p.delete(lk)
-            p.delete(oa)
+                deleted.append(p.delete(lk))
+            deleted.append(p.delete(oa))
             if not p.appearances_of(other):
-                p.delete(Flake, other)
+                deleted.append(p.delete(Flake, other))
             self.set_outline(ka.id, union)
 
         def undo():
             with p.transaction():
-                for fid in (keep, other):
-                    rid = self._r("flake", fid)
-                    if p.records(Flake, id=rid):
-                        p.delete(Flake, rid)
-                self._restore_flake(snap_keep)
-                self._restore_flake(snap_other)
+                for d in reversed(deleted):
+                    p.restore(d)
+                for tid in moved_t:
+                    p.update(p.get(Terrace, tid), appearance_id=oa.id)
+                for eid in moved_e:
+                    p.update(p.get(Evidence, eid), flake_id=other)
+                self.set_outline(ka.id, before)
 
         return undo
 
-    def _capture_flake(self, fid: int) -> dict:
-        p = self.project
-        apps = p.appearances_of(fid)
-        return {
-            "flake": p.get(Flake, fid),
-            "apps": [(a, p.records(Terrace, appearance_id=a.id)) for a in apps],
-            "evidence": p.evidence_of(fid),
-            "assignments": p.assignments_of(fid),
-            "links": p.records(FlakeHole, flake_id=fid),
-        }
-
-    def _restore_flake(self, snap: dict) -> int:
-        """Add a captured flake again (new ids; derived records keep their provenance)."""
-        p = self.project
-        idmap: dict[tuple[str, int], Record] = {}
-        with p.transaction():
-            f = snap["flake"]
-            new_f = p.add(dataclasses.replace(f, id=None, revision=0, primary_terrace_id=None))
-            idmap[("flake", f.id)] = new_f
-            for a, terraces in snap["apps"]:
-                na = p.add(dataclasses.replace(a, id=None, revision=0, flake_id=new_f.id))
-                idmap[("appearance", a.id)] = na
-                for t in terraces:
-                    idmap[("terrace", t.id)] = p.add(
-                        dataclasses.replace(t, id=None, revision=0, appearance_id=na.id)
-                    )
-            if f.primary_terrace_id is not None and ("terrace", f.primary_terrace_id) in idmap:
-                p.update(new_f, primary_terrace_id=idmap[("terrace", f.primary_terrace_id)].id)
-
-            def remap(rec):
-                refs = []
-                stale = rec.stale
-                for ref in rec.inputs:
-                    new = idmap.get((ref.kind, ref.id))
-                    if new is not None:
-                        refs.append(SourceRef.of(new))
-                    else:
-                        rid = self._r(ref.kind, ref.id)
-                        try:
-                            cur = p.get(ref.kind, rid)
-                        except InputError:
-                            stale = True
-                            continue
-                        refs.append(
-                            SourceRef(
-                                ref.kind, rid, ref.revision if rid == ref.id else cur.revision
-                            )
-                        )
-                tid = rec.terrace_id
-                if tid is not None:
-                    tid = idmap[("terrace", tid)].id if ("terrace", tid) in idmap else None
-                return dataclasses.replace(
-                    rec,
-                    id=None,
-                    revision=0,
-                    flake_id=new_f.id,
-                    terrace_id=tid,
-                    inputs=tuple(refs),
-                    stale=stale,
-                )
-
-            for e in snap["evidence"]:
-                idmap[("evidence", e.id)] = p.add(remap(e))
-            for a in snap["assignments"]:
-                p.add(remap(a))
-            for lk in snap["links"]:
-                hid = self._r("hole", lk.hole_id)
-                if p.records(Hole, id=hid):
-                    tid = (
-                        idmap[("terrace", lk.terrace_id)].id
-                        if lk.terrace_id is not None and ("terrace", lk.terrace_id) in idmap
-                        else None
-                    )
-                    p.add(
-                        dataclasses.replace(
-                            lk, id=None, revision=0, flake_id=new_f.id, hole_id=hid, terrace_id=tid
-                        )
-                    )
-        for (kind, old), new in idmap.items():
-            self._alias_to(kind, old, new.id)
-        return new_f.id
-
     def delete_flake(self, flake_id: int) -> Undo:
+        """Delete a flake and all that is on it; the undo restores the same rows and ids."""
         p = self.project
-        fid = self._r("flake", flake_id)
-        snap = self._capture_flake(fid)
-        p.delete(Flake, fid)
-        return lambda: self._restore_flake(snap)
+        deleted = p.delete(Flake, self._r("flake", flake_id))
+        return lambda: p.restore(deleted)
 
-    # ---- flake fields and assignments --------------------------------------------------------
     def set_flake_fields(self, flake_id: int, **fields) -> Undo:
         p = self.project
         flake = self._get(Flake, flake_id)
@@ -880,28 +779,15 @@ class Session:
         if not manual:
             raise InputError("This flake has no manual assignment to remove.")
         with p.transaction():
-            for a in manual:
-                p.delete(a)
+            deleted = [p.delete(a) for a in manual]
 
         def restore():
             with p.transaction():
-                for a in manual:
-                    new = p.add(
-                        dataclasses.replace(
-                            a,
-                            id=None,
-                            revision=0,
-                            flake_id=self._r("flake", a.flake_id),
-                            terrace_id=None
-                            if a.terrace_id is None
-                            else self._r("terrace", a.terrace_id),
-                        )
-                    )
-                    self._alias_to("assignment", a.id, new.id)
+                for d in reversed(deleted):
+                    p.restore(d)
 
         return restore
 
-    # ---- samples and images --------------------------------------------------------------------
     def sample_values(self, sample_id: int) -> dict:
         s = self._get(Sample, sample_id)
         return {
@@ -1014,40 +900,32 @@ class Session:
         p = self.project
         src = self._r("flake", source_id)
         dst = self._r("flake", target_id)
-        snap = self._capture_flake(src)
+        apps = p.appearances_of(src)
         target_images = {a.image_id for a in p.appearances_of(dst)}
-        clash = [a for a, _ in snap["apps"] if a.image_id in target_images]
-        if clash:
+        if any(a.image_id in target_images for a in apps):
             raise InputError(
                 "The chosen flake already has an outline in this image; pick another one."
             )
+        moved = [("appearance", a.id) for a in apps]
+        moved += [("evidence", e.id) for e in p.evidence_of(src)]
+        moved += [("flake_hole", lk.id) for lk in p.records(FlakeHole, flake_id=src)]
+        moved += [("assignment", a.id) for a in p.assignments_of(src) if a.manual]
+        deleted = []
         with p.transaction():
-            for a, _terr in snap["apps"]:
-                p.update(a, flake_id=dst)
-            for e in snap["evidence"]:
-                p.update(e, flake_id=dst)
-            for lk in snap["links"]:
-                p.update(lk, flake_id=dst)
-            for asg in snap["assignments"]:
-                if asg.manual:
-                    p.update(asg, flake_id=dst)
-                else:
-                    p.delete(asg)
-            p.delete(Flake, src)
-        moved = [(a.id, a.image_id) for a, _ in snap["apps"]]
+            for kind, rid in moved:
+                p.update(p.get(kind, rid), flake_id=dst)
+            for a in p.assignments_of(src):
+                deleted.append(p.delete(a))
+            deleted.append(p.delete(Flake, src))
 
         def undo():
             with p.transaction():
-                for app_id, _img in moved:
-                    p.delete(Appearance, self._r("appearance", app_id))
-            self._restore_flake(snap)
+                for d in reversed(deleted):
+                    p.restore(d)
+                for kind, rid in moved:
+                    p.update(p.get(kind, rid), flake_id=src)
 
         return undo
-
-    # ---- long work ---------------------------------------------------------------------------
-    # Worker threads never touch the project (its SQLite connection belongs to the window's
-    # thread): each *_job method gathers what the work needs here and returns a function of
-    # (progress, cancel) that runs on plain data.
 
     def _survey_inputs(self, image_id: int):
         img = self._get(Image, image_id)
