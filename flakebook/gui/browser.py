@@ -84,7 +84,7 @@ class ProjectBrowser(QWidget):
                 text = (
                     "-"
                     if layers is None
-                    else (f"{layers}L" + (f" {p:.2f}" if p is not None else ""))
+                    else (palette.layer_label(layers) + (f" {p:.2f}" if p is not None else ""))
                 )
                 if f.get("stale"):
                     text += " (stale)"

@@ -83,7 +83,7 @@ class OutlineItem(QGraphicsPathItem):
         for poly, layers in shape.terraces:
             item = QGraphicsPathItem(_path(poly), self)
             colour = palette.layer_colour(layers)
-            colour.setAlpha(70)
+            colour.setAlpha(38)
             item.setBrush(QBrush(colour))
             pen = QPen(palette.layer_colour(layers), 1.0)
             pen.setCosmetic(True)
@@ -101,7 +101,7 @@ class OutlineItem(QGraphicsPathItem):
             pen.setStyle(Qt.PenStyle.DashLine)
         self.setPen(pen)
         fill = QColor(colour)
-        fill.setAlpha(45 if selected else 0)
+        fill.setAlpha(0)
         self.setBrush(QBrush(fill) if selected else QBrush(Qt.BrushStyle.NoBrush))
         self.setZValue(12 if selected else 10)
 
@@ -432,7 +432,7 @@ class ImageCanvas(pg.GraphicsView):
         """The legend naming the layer numbers drawn (always shows the palette's name)."""
         rows = []
         for n in layers:
-            label = f"{n}L" if n <= palette.MAX_DISTINCT_LAYERS else f"{n}L"
+            label = palette.layer_label(n)
             rows.append((label, palette.layer_hex(n)))
         if unknown:
             rows.append(("not assigned", palette.UNKNOWN_COLOUR))

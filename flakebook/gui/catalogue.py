@@ -76,7 +76,7 @@ def _text(key: str, value) -> str:
     if key in ("area_um2", "margin_um"):
         return f"{value:.1f}"
     if key == "layers":
-        return f"{value}L"
+        return palette.layer_label(value)
     if key == "stale":
         return "stale" if value else ""
     if key == "manual":

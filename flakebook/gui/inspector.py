@@ -342,15 +342,15 @@ class Inspector(QScrollArea):
         p = flake.get("probability")
         amb = flake.get("ambiguous_with") or []
         if flake.get("manual"):
-            text = f"<b>{layers}L</b> set by hand: {flake.get('manual_reason') or ''}"
+            text = f"<b>{palette.layer_label(layers)}</b> set by hand: {flake.get('manual_reason') or ''}"
             if p is not None:
                 text += f" (evidence alone: {flake.get('evidence_layers')}L, P = {flake.get('evidence_probability', 0):.2f})"
         elif layers is None:
             text = "No layer number yet."
         else:
-            text = f"<b>{layers}L</b>, P = {p:.2f}"
+            text = f"<b>{palette.layer_label(layers)}</b>, P = {p:.2f}"
             if amb:
-                text += " · ambiguous with " + ", ".join(f"{n}L" for n in amb)
+                text += " · ambiguous with " + ", ".join(palette.layer_label(n) for n in amb)
         self.verdict.setText(text)
 
     def _show_evidence(self, flake: dict) -> None:

@@ -599,6 +599,7 @@ class MainWindow(QMainWindow):
     def _set_session(self, session) -> None:
         self.close_project()
         self.session = session
+        palette.MAX_LAYERS = session.project.max_layers
         add_recent(session.path)
         log.info("Opened %s%s", session.path, " read-only" if session.read_only else "")
         self.undo_stack.clear()

@@ -40,6 +40,19 @@ SELECTION_COLOUR = "#FFFFFF"
 MAX_DISTINCT_LAYERS = len(_LAYER_ORDER)
 
 
+#: N_max of the open project: a layer number above it is the likelihood's "more" bin.
+MAX_LAYERS = 15
+
+
+def layer_label(layers: int | None) -> str:
+    """``"3L"``, or ``">15L"`` for the "more than N_max" bin, or ``"-"``."""
+    if layers is None:
+        return "-"
+    if layers > MAX_LAYERS:
+        return f">{MAX_LAYERS}L"
+    return f"{layers}L"
+
+
 def layer_hex(layers: int | None) -> str:
     """Hex colour for a layer number (None: not yet known)."""
     if layers is None or layers < 1:

@@ -1384,7 +1384,7 @@ class HoleResult:
 
 
 def _contrast_reason(contrast: dict, err: dict, geometry: str, stack: str) -> str:
-    parts = [f"{ch} {c:+.3f}±{err.get(ch, 0):.3f}" for ch, c in contrast.items()]
+    parts = [f"{ch} {c:+.3f}±{err.get(ch, 0):.2g}" for ch, c in contrast.items()]
     where = "over a hole (suspended model)" if geometry == "suspended" else "on the substrate"
     return f"contrast {', '.join(parts)} {where}, against the thin-film model of {stack}"
 

@@ -49,9 +49,10 @@ def candidate_text(c: dict) -> str:
         return f"{layers}L, set by hand"
     amb = c.get("ambiguous_with") or []
     if amb:
-        return " or ".join(f"{n}L" for n in [layers, *amb[:2]]) + ", ambiguous"
+        return " or ".join(palette.layer_label(n) for n in [layers, *amb[:2]]) + ", ambiguous"
     p = c.get("probability")
-    return f"{layers}L, {p:.2f}" if p is not None else f"{layers}L"
+    label = palette.layer_label(layers)
+    return f"{label}, {p:.2f}" if p is not None else label
 
 
 class CandidateList(QWidget):
