@@ -37,6 +37,7 @@ class ProjectBrowser(QWidget):
         self.tree.setColumnWidth(0, 170)
         self.tree.setUniformRowHeights(True)
         self.tree.currentItemChanged.connect(self._on_current)
+        self.tree.setSelectionMode(QTreeWidget.SelectionMode.ExtendedSelection)
         lay = QVBoxLayout(self)
         lay.setContentsMargins(2, 2, 2, 2)
         lay.addWidget(self.filter)
@@ -120,6 +121,15 @@ class ProjectBrowser(QWidget):
         for it in self._iter():
             if it.data(0, KIND_ROLE) in ("flake", "image"):
                 it.setHidden(bool(text) and text not in it.text(0).lower())
+
+    def selected_images(self) -> list[int]:
+        """Images selected in the tree (Ctrl/Shift-click), in tree order; [] for one or none."""
+        ids = [
+            it.data(0, ID_ROLE)
+            for it in self.tree.selectedItems()
+            if it.data(0, KIND_ROLE) == "image"
+        ]
+        return ids if len(ids) > 1 else []
 
     def select_flake(self, flake_id: int | None) -> None:
         """Show ``flake_id`` as current without emitting signals."""

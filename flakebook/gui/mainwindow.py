@@ -120,7 +120,12 @@ class MainWindow(QMainWindow):
         self.contrast_label = QLabel(self)
         self.contrast_label.setObjectName("cursorContrast")
         self.contrast_label.setMinimumWidth(230)
-        self.contrast_label.setToolTip("C = (R_substrate − R_pixel)/R_substrate per channel")
+        self.contrast_label.setToolTip(
+            "Contrast of the pixel under the cursor, C = (I_substrate − I_pixel)/I_substrate per "
+            "channel in linear intensity, against the image's bare-substrate level "
+            "(flakebook.imaging); no flat-field correction, so it is a guide: the flakes' own "
+            "contrast in the inspector is the measured one."
+        )
         self.scale_label = QLabel(self)
         self.scale_label.setObjectName("pixelSize")
         self.mode_label = QLabel(self)
@@ -1041,23 +1046,37 @@ class MainWindow(QMainWindow):
         self.edit(f"Notes of {s.flake_label(flake_id)}", do)
 
     # ---- long work ---------------------------------------------------------------------------
-    def find_flakes(self) -> Job | None:
+    def find_flakes(self, images: list[int] | None = None) -> Job | None:
+        """Find flakes on the images selected in the browser (else the one shown), one after
+        the other in a worker; each image's result is one undoable edit."""
         s = self._need_session()
-        image = self._need_image()
+        if images is None:
+            images = self.browser.selected_images() or [self._need_image()]
+        queue = list(images)
         target = self.candidates.target_layers()
+        image = queue.pop(0)
         job = Job(f"Find flakes on {s.image_info(image)['name']}", s.survey_job(image, target))
 
         def done(result):
             def do():
                 return s.store_survey(image, result)
 
+            name = s.image_info(image)["name"]
             self._guard(
-                lambda: self.edit(f"Find flakes ({len(result.flakes)} flakes)", do), "Find flakes"
+                lambda: self.edit(f"Find flakes on {name} ({len(result.flakes)} flakes)", do),
+                "Find flakes",
             )
             for w in result.warnings:
-                log.warning("Find flakes: %s", w)
+                log.warning("Find flakes on %s: %s", name, w)
+            if queue:
+                self._guard(lambda: self.find_flakes(queue), "Find flakes")
 
-        self.jobs.start(job, on_done=done, on_error=lambda e: self.report_error(e, "Find flakes"))
+        def failed(exc):
+            self.report_error(exc, "Find flakes")
+            if queue:
+                self._guard(lambda: self.find_flakes(queue), "Find flakes")
+
+        self.jobs.start(job, on_done=done, on_error=failed)
         return job
 
     def segment_at(self, x: float, y: float) -> Job | None:

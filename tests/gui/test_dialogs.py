@@ -127,3 +127,19 @@ def test_watch_folder_adds_and_surveys_new_image(qtbot, window, tmp_path):
     assert len(p.flakes_of(1)) > n_flakes
     window.candidates.stop_watch()
     Project  # noqa: B018
+
+
+def test_internal_error_dialog_has_no_traceback(qtbot, window, monkeypatch):
+    """An unexpected failure shows a plain message with details on demand, never a traceback."""
+    from PySide6.QtWidgets import QMessageBox
+
+    def boom(*a, **k):
+        raise RuntimeError("disk quota exceeded")
+
+    monkeypatch.setattr(window.session, "add_hole", boom)
+    window._guard(lambda: window.add_hole(10.0, 10.0, 5.0), "Place hole")
+    box = [b for b in window.findChildren(QMessageBox) if b.objectName() == "errorDialog"][-1]
+    assert "internal problem" in box.text()
+    assert "Traceback" not in box.detailedText() and "File " not in box.detailedText()
+    assert "RuntimeError" in box.detailedText() and "disk quota" in box.detailedText()
+    assert window.undo_stack.count() == 0

@@ -550,3 +550,24 @@ def test_shortcuts_are_unique(window):
                 assert key not in seen, f"{key}: {seen.get(key)} and {a.text()}"
                 seen[key] = a.text()
     assert len(seen) > 30
+
+
+def test_find_flakes_on_selected_images(qtbot, window, tmp_path):
+    """Several images selected in the browser are surveyed one after the other."""
+    import shutil
+
+    extra = tmp_path / "q3w_50x_002.png"
+    shutil.copy(window.session.path.parent / "q3w_50x_001.png", extra)
+    (img2,) = window.import_images([extra])
+    p = window.session.project
+    tree = window.browser.tree
+    for iid in (1, img2):
+        window.browser._image_items[iid].setSelected(True)
+    assert window.browser.selected_images() == [1, img2]
+    n0 = len(p.flakes_of(1))
+    window.find_flakes()
+    qtbot.waitUntil(lambda: window.undo_stack.count() >= 3 and not window.jobs.busy, timeout=30000)
+    assert not window.errors, window.errors
+    per_image = {iid: len(p.records("appearance", image_id=iid)) for iid in (1, img2)}
+    assert per_image[img2] >= 3 and len(p.flakes_of(1)) > n0 + 3
+    tree  # noqa: B018
