@@ -781,17 +781,23 @@ class MainWindow(QMainWindow):
         self.inspector.model_curves = self._model_cache.get(key)
         self.inspector.show_flake(details)
         if key is not None and key not in self._model_cache and details.get("contrast"):
-            self._model_cache[key] = None
+            # after a short pause, so that clicking through the catalogue stays quick
             fid = details["id"]
-            job = Job("Contrast model", self.session.model_job(details))
-            self.jobs.start(
-                job,
-                on_done=lambda curves, k=key, f=fid: self._model_ready(k, f, curves),
-                on_error=lambda exc, k=key: (
-                    self._model_cache.pop(k, None),
-                    log.warning("Contrast model: %s", exc),
-                ),
-            )
+            QTimer.singleShot(150, lambda d=details, k=key, f=fid: self._start_model(d, k, f))
+
+    def _start_model(self, details: dict, key, fid: int) -> None:
+        if self.session is None or self.current_flake != fid or key in self._model_cache:
+            return
+        self._model_cache[key] = None
+        job = Job("Contrast model", self.session.model_job(details))
+        self.jobs.start(
+            job,
+            on_done=lambda curves, k=key, f=fid: self._model_ready(k, f, curves),
+            on_error=lambda exc, k=key: (
+                self._model_cache.pop(k, None),
+                log.warning("Contrast model: %s", exc),
+            ),
+        )
 
     def _model_ready(self, key, flake_id: int, curves) -> None:
         self._model_cache[key] = curves
