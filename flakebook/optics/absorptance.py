@@ -18,10 +18,11 @@ and cancels in the ratio.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
+from flakebook import __version__
 from flakebook.errors import InputError
 from flakebook.optics.materials import AIR, Material, get_material
 from flakebook.optics.microscope import _flake_indices, _flake_thickness, cone_reflectance
@@ -44,6 +45,7 @@ class Absorptance:
     geometry: str
     laser_nm: float
     warnings: tuple[str, ...]
+    provenance: dict = field(default_factory=dict, compare=False)
 
     def to_dict(self) -> dict:
         return {
@@ -207,6 +209,21 @@ def absorptance(
         geometry=geometry,
         laser_nm=float(laser_nm),
         warnings=tuple(warnings),
+        provenance={
+            "flakebook_version": __version__,
+            "method": "coherent transfer matrix at the laser line, "
+            + (
+                "plane wave at normal incidence"
+                if na_objective == 0
+                else f"averaged over the objective cone NA {na_objective:g} (uniform pupil, s and p)"
+            ),
+            "material": material.name,
+            "data_set": material.data_set(int(layers)).ident,
+            "reference": material.data_set(int(layers)).reference,
+            "layers": int(layers),
+            "substrate": None if substrate is None else substrate.spec,
+            "hole": None if hole is None else {"bottom": hole.bottom, "depth_nm": depth},
+        },
     )
 
 

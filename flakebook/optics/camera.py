@@ -22,6 +22,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from flakebook import __version__
 from flakebook.errors import InputError
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import Microscope, channel_contrast
@@ -75,6 +76,8 @@ class CameraCalibration:
     dof: int
     material: str
     substrate: str
+    data_sets: str = ""
+    flakebook_version: str = __version__
     method: str = (
         "weighted least squares of the dark-subtracted contrast against the thin-film model; "
         "errors from the Jacobian, scaled by sqrt(chi2/dof) when that exceeds 1"
@@ -95,6 +98,8 @@ class CameraCalibration:
             "dof": self.dof,
             "material": self.material,
             "substrate": self.substrate,
+            "data_sets": self.data_sets,
+            "flakebook_version": self.flakebook_version,
             "method": self.method,
         }
 
@@ -120,6 +125,8 @@ class CameraCalibration:
                 dof=int(data["dof"]),
                 material=str(data["material"]),
                 substrate=str(data["substrate"]),
+                data_sets=str(data.get("data_sets", "")),
+                flakebook_version=str(data.get("flakebook_version", "")),
                 method=str(data.get("method", cls.method)),
             )
         except (KeyError, TypeError, ValueError, AttributeError) as exc:
@@ -274,4 +281,9 @@ def calibrate(
         dof=int(dof),
         material=material.name,
         substrate=substrate.spec,
+        data_sets="; ".join(
+            [material.data_set_text]
+            + [f.material.data_set_text for f in substrate.films]
+            + [substrate.base.data_set_text]
+        ),
     )

@@ -25,10 +25,11 @@ import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
+from scipy.interpolate import CubicSpline
 from scipy.special import logsumexp
 from scipy.stats import chi2 as chi2_dist
 
-from flakebook import evidence
+from flakebook import __version__, evidence
 from flakebook.errors import InputError, check_cancel
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import Microscope, channel_contrast, cone_reflectance
@@ -109,17 +110,31 @@ def _gh_nodes(center: float, sigma: float, n: int, lower: float | None = None):
     return t, w / w.sum()
 
 
-def _oxide_grid(center: float, sigma: float, spacing_nm: float = 2.0, max_nodes: int = 61):
-    """Uniform grid over +-3 sigma with Gaussian weights. Contrast of thick flakes swings by
-    several hundredths per nm of oxide, so the likelihood in oxide thickness is sharp and a few
-    Gauss-Hermite nodes would miss its peak; a grid of ~1.5 nm spacing does not."""
+def _oxide_grid(center: float, sigma: float, spacing_nm: float = 2.0, max_nodes: int = 121):
+    """Uniform grid over +-3 sigma (an odd number of nodes, the centre included) with Gaussian
+    weights. Contrast of thick flakes swings by several hundredths per nm of oxide, so the
+    likelihood in oxide thickness is sharp and a few Gauss-Hermite nodes would miss its peak."""
     if sigma <= 0:
         return np.array([center]), np.array([1.0])
-    n = int(np.clip(np.ceil(6.0 * sigma / spacing_nm) + 1, 7, max_nodes))
-    t = np.linspace(center - 3.0 * sigma, center + 3.0 * sigma, n)
+    half = int(np.clip(np.ceil(3.0 * sigma / spacing_nm), 3, (max_nodes - 1) // 2))
+    t = center + np.linspace(-3.0 * sigma, 3.0 * sigma, 2 * half + 1)
     w = np.exp(-0.5 * ((t - center) / sigma) ** 2)
     keep = t >= 0
     return t[keep], w[keep] / w[keep].sum()
+
+
+def _oxide_model_nodes(center: float, sigma: float) -> tuple[np.ndarray, np.ndarray]:
+    """Where the model is computed (coarse, <= 3 nm apart, one node beyond +-3 sigma on each
+    side) and where the likelihood is evaluated (fine, <= 0.25 nm apart): model contrast is a
+    smooth function of the oxide thickness (fringes ~100-200 nm apart), so a cubic spline
+    through the coarse nodes is exact to far below the model error, while the likelihood in
+    oxide can be narrower than 1 nm for thick flakes."""
+    h = min(3.0, sigma)
+    n_half = int(np.ceil(3.0 * sigma / h)) + 1
+    coarse = center + h * np.arange(-n_half, n_half + 1)
+    coarse = coarse[coarse >= 0]
+    fine, w = _oxide_grid(center, sigma, spacing_nm=min(0.25, sigma / 8.0), max_nodes=1201)
+    return coarse, np.stack([fine, w])
 
 
 def _model_layers(max_layers: int) -> tuple[np.ndarray, np.ndarray]:
@@ -180,7 +195,7 @@ def _check_inputs(contrast, contrast_err, microscope, saturated):
             raise InputError(f"contrast {v!r} in channel {c} is not plausible; accepted: |C| < 50")
         if not math.isfinite(e) or e < 0:
             raise InputError(f"contrast error {e!r} in channel {c}: accepted a number >= 0")
-        if v > 1.0 + max(5.0 * e, 0.05):
+        if v > 1.0 + max(5.0 * e, 0.25):
             raise InputError(
                 f"contrast {v:g} in channel {c} is impossible: C = 1 - I_flake/I_reference "
                 "cannot exceed 1 (is the dark offset subtracted, or the contrast in percent?); "
@@ -353,12 +368,15 @@ def layer_likelihood(
         raise InputError(
             f"--oxide-err-nm given but substrate {substrate.spec} has no SiO2 film to vary"
         )
-    ox_nodes, ox_w = (
-        _oxide_grid(t0, oxide_err_nm) if oxide_err_nm > 0 else (np.array([None]), np.array([1.0]))
-    )
+    if oxide_err_nm > 0:
+        ox_nodes, fine = _oxide_model_nodes(t0, oxide_err_nm)
+        ox_fine, ox_w = fine
+    else:
+        ox_nodes, ox_fine, ox_w = np.array([None]), None, np.array([1.0])
     na0 = microscope.na_illumination
     na_nodes, na_w = _gh_nodes(na0, na_err, 5, lower=0.0) if na_err > 0 else ([na0], [1.0])
-    na_nodes = np.minimum(np.asarray(na_nodes, float), 0.95)
+    na_cap = 0.95 if microscope.na_objective is None else microscope.na_objective
+    na_nodes = np.minimum(np.asarray(na_nodes, float), na_cap)
     f_nodes, f_w = (
         _gh_nodes(1.0, thickness_scale_err, 3, lower=0.3)
         if thickness_scale_err > 0
@@ -380,6 +398,8 @@ def layer_likelihood(
         progress,
         cancel,
     )
+    if ox_fine is not None:
+        model_all = CubicSpline(ox_nodes.astype(float), model_all, axis=0)(ox_fine)
     model = model_all[..., idx]  # (Kox, Kna*Kf, N, C)
 
     var = err**2 + model_err**2 + (model_rel_err * contrast_scale * model) ** 2 + _VAR_FLOOR
@@ -416,7 +436,10 @@ def layer_likelihood(
     )
     model_c = contrast_scale * nominal
     resid = (meas[None, :] - model_c) / tot_err
-    best_chi2 = float(np.min(np.sum(resid**2, axis=1)))
+    # Goodness of fit over every systematic node (any oxide, n,k set, NA), not the nominal only.
+    node_var = var + (contrast_scale_err * model) ** 2
+    node_chi2 = np.sum((meas - contrast_scale * model) ** 2 / node_var, axis=-1)
+    best_chi2 = float(np.min(node_chi2[..., :max_layers]))
     if best_chi2 > float(chi2_dist.isf(1e-3, len(use))):
         warnings.append(
             f"no layer number explains the measured contrast within its errors "
@@ -454,6 +477,7 @@ def layer_likelihood(
                 material, substrate, microscope, geometry, hole, [None], [na0], [1.0], None, layers
             )[0, 0],
             max_layers=max_layers,
+            saturated=tuple(saturated),
         )
     scaled = scaled.copy()
     scaled.setflags(write=False)
@@ -469,6 +493,7 @@ def layer_likelihood(
         decider=decider,
         warnings=tuple(warnings),
         provenance={
+            "flakebook_version": __version__,
             "method": "thin-film transfer-matrix contrast, joint Gaussian likelihood over "
             "channels with oxide, NA and contrast scale marginalised",
             "material": material.name,
@@ -513,6 +538,7 @@ def _decider(
     model_all,
     nominal,
     max_layers,
+    saturated=(),
 ) -> str:
     """Say what would settle between the most likely N and its rivals."""
     cands = [post.layers, *post.ambiguous_with][:3]
@@ -520,7 +546,6 @@ def _decider(
     a, b = cands_n[0], cands_n[1]
     sep_need = 3.0 * math.sqrt(float(np.mean(meas_err**2)) + model_err**2)
     tips: list[str] = []
-    label = f"{_name(a, max_layers)} or {_name(b, max_layers)}"
     names = microscope.channel_names
     # 1. A channel of this camera that was not measured.
     for j, ch in enumerate(names):
@@ -529,8 +554,13 @@ def _decider(
         # Robust separation over the oxide nodes.
         sep = np.min(np.abs(model_all[:, 0, a - 1, j] - model_all[:, 0, b - 1, j]))
         if sep > sep_need:
+            how = (
+                f"lower the exposure until the {ch} channel is not saturated"
+                if ch in saturated
+                else f"measure the {ch} channel too"
+            )
             tips.append(
-                f"measure the {ch} channel too (model {nominal[a - 1, j]:.3f} for "
+                f"{how} (model {nominal[a - 1, j]:.3f} for "
                 f"{_name(a, max_layers)}, {nominal[b - 1, j]:.3f} for {_name(b, max_layers)})"
             )
     # 2. The oxide: if the candidates differ at every fixed oxide but the oxide spread mixes them.
@@ -539,8 +569,8 @@ def _decider(
         fixed = np.abs(nominal[a - 1, j_use] - nominal[b - 1, j_use])
         if np.max(fixed) > sep_need:
             tips.append(
-                f"a calibrated oxide thickness (to about 1 nm instead of {oxide_err_nm:g} nm, from "
-                "the calibration with flakes of known N or a reflectance spectrum)"
+                f"calibrate the oxide thickness (to about 1 nm instead of {oxide_err_nm:g} nm, "
+                "with flakes of known N or a reflectance spectrum)"
             )
     # 3. A narrow bandpass filter at the wavelength that separates them best, whatever the oxide.
     try:
@@ -572,11 +602,86 @@ def _decider(
         k = int(np.argmax(sep))
         if sep[k] > sep_need and vals is not None:
             tips.append(
-                f"contrast through a narrow bandpass filter at {lam[k]:.0f} nm "
+                f"measure through a narrow bandpass filter at {lam[k]:.0f} nm "
                 f"(model {vals[0, k]:.3f} for {_name(a, max_layers)}, "
                 f"{vals[1, k]:.3f} for {_name(b, max_layers)})"
             )
     except InputError:
         pass  # data sets not covering the scan: skip this suggestion
-    tips.append("or other evidence: the Raman shear and breathing modes, or PL")
-    return f"{label}: would be decided by " + "; ".join(tips)
+    tips.append("add other evidence (the Raman shear and breathing modes, or PL)")
+    return f"to decide between {_name(a, max_layers)} and {_name(b, max_layers)}: " + "; or ".join(
+        tips
+    )
+
+
+@dataclass(frozen=True)
+class ContrastCurve:
+    """Model contrast versus N per channel with its 16-84% band from the systematics.
+
+    ``contrast`` is the nominal model (shape (len(layers), len(channels))); ``low`` and ``high``
+    are the weighted 16th and 84th percentiles over the oxide uncertainty and the published n,k
+    sets (see :func:`layer_likelihood`).
+    """
+
+    layers: np.ndarray
+    channels: tuple[str, ...]
+    contrast: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+
+
+def _weighted_quantile(values: np.ndarray, weights: np.ndarray, q: float) -> np.ndarray:
+    """Weighted quantile along axis 0."""
+    if values.shape[0] == 1:
+        return values[0].copy()
+    order = np.argsort(values, axis=0)
+    v = np.take_along_axis(values, order, axis=0)
+    w = np.take_along_axis(weights, order, axis=0)
+    cw = np.cumsum(w, axis=0) - 0.5 * w
+    cw /= np.sum(w, axis=0, keepdims=True)
+    out = np.empty(values.shape[1:])
+    for idx in np.ndindex(*values.shape[1:]):
+        sel = (slice(None), *idx)
+        out[idx] = np.interp(q, cw[sel], v[sel])
+    return out
+
+
+def model_contrast_curve(
+    material: Material,
+    layers,
+    substrate: Substrate,
+    microscope: Microscope,
+    *,
+    oxide_err_nm: float = 0.0,
+    nk_ensemble: bool = True,
+    geometry: str = "supported",
+    hole: Hole | None = None,
+) -> ContrastCurve:
+    """The contrast-versus-N curve of every channel with a band for the oxide uncertainty and the
+    spread of published n,k data (for plots next to measured contrast)."""
+    lay = np.atleast_1d(np.asarray(layers, int))
+    nominal = channel_contrast(material, lay, substrate, microscope, geometry, hole).contrast
+    t0 = substrate.oxide_nm
+    if oxide_err_nm > 0 and t0 is None:
+        raise InputError(f"substrate {substrate.spec} has no SiO2 film to vary")
+    ox, ow = (
+        _oxide_grid(t0, oxide_err_nm, spacing_nm=3.0)
+        if oxide_err_nm > 0
+        else ([None], np.array([1.0]))
+    )
+    variants = material.variants() if nk_ensemble else [material]
+    vals, wts = [], []
+    for t, w in zip(ox, ow):
+        sub = substrate if t is None else substrate.with_oxide(t)
+        for v in variants:
+            vals.append(channel_contrast(v, lay, sub, microscope, geometry, hole).contrast)
+            wts.append(w / len(variants))
+    vals = np.array(vals)
+    wts = np.array(wts)[:, None, None] * np.ones(vals.shape)
+    return ContrastCurve(
+        layers=lay,
+        channels=microscope.channel_names,
+        contrast=nominal,
+        low=_weighted_quantile(vals, wts, 0.16),
+        high=_weighted_quantile(vals, wts, 0.84),
+    )

@@ -420,7 +420,8 @@ def material_from_csv(
 ) -> Material:
     """A material from a user's CSV file with columns ``wavelength_nm``, ``n`` and ``k``.
 
-    ``k`` may be omitted (taken as 0). Rows are sorted by wavelength; the file's range is the
+    ``k`` may be omitted (taken as 0). A comment line ``# layer_spacing_nm: 0.65`` gives the
+    thickness of one layer (for a layered crystal); other lines starting with ``#`` are skipped. Rows are sorted by wavelength; the file's range is the
     material's range. Raises :class:`InputError` naming the file when it cannot be used.
     """
     path = Path(path)
@@ -429,7 +430,19 @@ def material_from_csv(
         text = raw.decode("utf-8-sig")
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read the n,k file ({exc})") from None
-    rows = list(csv.reader(line for line in text.splitlines() if line.strip()))
+    lines = [line for line in text.splitlines() if line.strip()]
+    for line in lines:
+        m = re.match(r"\s*#\s*layer_spacing_nm\s*[:=]\s*([0-9.eE+-]+)\s*$", line)
+        if m and layer_spacing_nm is None:
+            try:
+                layer_spacing_nm = float(m.group(1))
+            except ValueError:
+                raise InputError(
+                    f"{path}: layer_spacing_nm {m.group(1)!r} is not a number"
+                ) from None
+            if not (0 < layer_spacing_nm < 100):
+                raise InputError(f"{path}: layer_spacing_nm must be between 0 and 100 nm")
+    rows = list(csv.reader(line for line in lines if not line.lstrip().startswith("#")))
     if len(rows) < 3:
         raise InputError(
             f"{path}: an n,k file needs a header (wavelength_nm,n,k) and at least two rows"

@@ -297,6 +297,8 @@ class Microscope:
     ``na_illumination``: NA of the illumination cone (0 = normal incidence). ``illumination``:
     the lamp or filter spectrum. ``channels``: camera channels (ignored for monochromatic light,
     which has one channel named ``mono``). ``n_angles``: quadrature nodes over the cone.
+    ``na_objective`` (optional): the objective's NA, which collects the specular reflection of
+    every illumination angle as long as NA_illumination <= NA_objective (checked).
     """
 
     na_illumination: float = 0.0
@@ -304,9 +306,19 @@ class Microscope:
     channels: Channels = field(default_factory=Channels.srgb)
     n_angles: int = 8
     wavelength_step_nm: float = DEFAULT_GRID_NM[2]
+    na_objective: float | None = None
 
     def __post_init__(self) -> None:
         cone_nodes(self.na_illumination, self.n_angles)  # validates the NA
+        if self.na_objective is not None:
+            cone_nodes(self.na_objective, 1)
+            if self.na_illumination > self.na_objective + 1e-12:
+                raise InputError(
+                    f"illumination NA {self.na_illumination:g} exceeds the objective's NA "
+                    f"{self.na_objective:g}: in reflected-light illumination through the objective "
+                    "the illumination cone cannot be wider; accepted: NA_illumination <= "
+                    "NA_objective"
+                )
 
     @property
     def channel_names(self) -> tuple[str, ...]:
@@ -319,7 +331,7 @@ class Microscope:
         lam = self.illumination.grid_nm(self.wavelength_step_nm)
         if self.illumination.kind == "monochromatic":
             return lam, np.ones((1, 1))
-        dl = np.gradient(lam) if lam.size > 1 else np.ones(1)
+        dl = _trapezoid_weights(lam)
         w = self.illumination.spectrum(lam)[None, :] * self.channels.sensitivity(lam) * dl[None, :]
         return lam, w
 
@@ -327,6 +339,17 @@ class Microscope:
     def wavelength_nm(self) -> float | None:
         """The single wavelength for monochromatic light, else None."""
         return self.illumination.center_nm if self.illumination.kind == "monochromatic" else None
+
+
+def _trapezoid_weights(lam: np.ndarray) -> np.ndarray:
+    """Trapezoid-rule weights of a sorted wavelength grid."""
+    if lam.size < 2:
+        return np.ones(lam.size)
+    d = np.diff(lam)
+    w = np.zeros(lam.size)
+    w[:-1] += 0.5 * d
+    w[1:] += 0.5 * d
+    return w
 
 
 # ---- the model ----------------------------------------------------------------------------

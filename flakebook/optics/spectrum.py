@@ -4,7 +4,8 @@ A spectrometer on the microscope measures dR/R = (R_flake - R_ref)/R_ref versus 
 is -C in flakebook's convention). For every N the thin-film model is compared with the spectrum on
 a grid of oxide thicknesses (Gaussian prior around the nominal value); the likelihood of N
 marginalises the oxide, and the oxide's posterior mean and spread are reported for the most likely
-N (a calibrated oxide for the contrast likelihood).
+N (a calibrated oxide for the contrast likelihood). The model is computed on oxide nodes <= 3 nm
+apart and interpolated with a cubic spline (it is smooth in the oxide) to a fine grid.
 
 Model errors (n,k data) are correlated across neighbouring wavelengths: the log-likelihood is
 tempered by n_eff / n, with n_eff the number of independent ~20 nm stretches in the spectrum, so
@@ -20,8 +21,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+from scipy.interpolate import CubicSpline
 from scipy.special import logsumexp
 
+from flakebook import __version__
 from flakebook.errors import InputError
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import cone_reflectance
@@ -132,11 +135,14 @@ def reflectance_contrast_likelihood(
     model_err: float = 0.01,
     geometry: str = "supported",
     hole: Hole | None = None,
+    nk_ensemble: bool = True,
 ) -> SpectrumLikelihood:
     """Likelihood of N from a measured dR/R spectrum, the oxide marginalised and fitted.
 
     ``dr_r_err`` None: the noise is estimated from the spectrum itself (scatter of second
     differences). Wavelengths outside the material's data range are left out with a warning.
+    ``nk_ensemble``: average over the material's published bulk n,k sets (as the contrast
+    likelihood does).
     """
     lam, drr, err = _validate(wavelength_nm, dr_r, dr_r_err)
     if not 1 <= int(max_layers) < 100:
@@ -145,7 +151,11 @@ def reflectance_contrast_likelihood(
     if t0 is None:
         raise InputError(f"substrate {substrate.spec} has no SiO2 film to fit")
     warnings = []
+    variants = material.variants() if nk_ensemble else [material]
     lo, hi = material.wavelength_range_nm()
+    for v in variants:
+        vlo, vhi = v.wavelength_range_nm()
+        lo, hi = max(lo, vlo), min(hi, vhi)
     for f in substrate.films:
         flo, fhi = f.material.wavelength_range_nm()
         lo, hi = max(lo, flo), min(hi, fhi)
@@ -174,18 +184,34 @@ def reflectance_contrast_likelihood(
     n_eff = max(1.0, (lam[-1] - lam[0]) / CORRELATION_NM)
     temper = min(1.0, n_eff / lam.size)
 
-    from flakebook.optics.layers import _model_layers, _oxide_grid
+    from flakebook.optics.layers import _model_layers, _oxide_model_nodes
 
     layers, more_w = _model_layers(int(max_layers))
-    grid_t, grid_w = _oxide_grid(t0, oxide_err_nm, spacing_nm=1.0, max_nodes=121)
-    ll = np.empty((grid_t.size, layers.size))
-    for k, t in enumerate(grid_t):
+    # The model on coarse oxide nodes, a cubic spline to a fine grid for the likelihood (the
+    # model is smooth in the oxide; the likelihood can be sharper than 1 nm).
+    if oxide_err_nm > 0:
+        nodes, (grid_t, grid_w) = _oxide_model_nodes(t0, oxide_err_nm)
+    else:
+        nodes = grid_t = np.array([t0])
+        grid_w = np.array([1.0])
+    common = {"na": na_illumination, "n_angles": 8}
+    coarse = np.empty((len(variants), nodes.size, layers.size, lam.size))
+    for k, t in enumerate(nodes):
         sub = substrate.with_oxide(t)
-        common = {"na": na_illumination, "n_angles": 8}
         r_ref = cone_reflectance(None, (), sub, lam, **common)[0]
-        r_fl = cone_reflectance(material, layers, sub, lam, geometry=geometry, hole=hole, **common)
-        model = r_fl / r_ref[None, :] - 1.0
-        ll[k] = -0.5 * temper * np.sum((drr[None, :] - model) ** 2 / var[None, :], axis=1)
+        for v, mat in enumerate(variants):
+            r_fl = cone_reflectance(mat, layers, sub, lam, geometry=geometry, hole=hole, **common)
+            coarse[v, k] = r_fl / r_ref[None, :] - 1.0
+    spline = CubicSpline(nodes, coarse, axis=1) if nodes.size > 1 else None
+    ll_v = np.empty((len(variants), grid_t.size, layers.size))
+    for start in range(0, grid_t.size, 32):
+        block = grid_t[start : start + 32]
+        model = coarse if spline is None else spline(block)
+        ll_v[:, start : start + block.size] = (
+            -0.5 * temper * np.sum((drr - model) ** 2 / var, axis=-1)
+        )
+    # Published n,k sets of the same crystal disagree: average over them (equal weights).
+    ll = logsumexp(ll_v, axis=0) - math.log(len(variants))
     with np.errstate(divide="ignore"):
         log_n = logsumexp(ll + np.log(grid_w)[:, None], axis=0)
         log_more = logsumexp(log_n + np.log(more_w))
@@ -233,8 +259,10 @@ def reflectance_contrast_likelihood(
         noise=noise,
         warnings=tuple(warnings),
         provenance={
+            "flakebook_version": __version__,
             "method": "white-light reflectance contrast dR/R against the thin-film model, oxide "
-            "marginalised on a 1 nm grid, log-likelihood tempered for correlated model error",
+            "marginalised on a fine grid (cubic spline through model nodes <= 3 nm apart), "
+            "log-likelihood tempered for correlated model error",
             "material": material.name,
             "data_sets": material.data_set_text,
             "reference": material.reference,
@@ -243,5 +271,6 @@ def reflectance_contrast_likelihood(
             "oxide_prior_nm": [t0, oxide_err_nm],
             "model_err": model_err,
             "tempering": temper,
+            "nk_data_sets": [v.data_set_text for v in variants],
         },
     )

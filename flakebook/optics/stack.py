@@ -318,8 +318,15 @@ def repeated_film_reflectance(
     q_ = (y0 + yj) * a
     u = (y0 + yj) * b
     v = (yj - y0) * b
-    r = (p_ - u * e) / (q_ + v * e)
-    return r.real**2 + r.imag**2
+    # In place on the (counts, ...) arrays: this is the hot loop of contrast tables.
+    num = np.multiply(u, e)
+    np.subtract(p_, num, out=num)
+    den = np.multiply(v, e, out=e if e is run else None)
+    np.add(q_, den, out=den)
+    np.divide(num, den, out=num)
+    out = np.square(num.real)
+    out += np.square(num.imag)
+    return out
 
 
 def cone_nodes(na: float, n_angles: int = 16, n_ambient: float = 1.0):

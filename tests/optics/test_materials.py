@@ -115,3 +115,14 @@ def test_user_csv(tmp_path):
     with pytest.raises(InputError, match="k must be"):
         material_from_csv(neg)
     assert get_material(str(path)).nk(400.0) == pytest.approx(2.0 + 0.5j)
+
+
+def test_user_csv_with_layer_spacing(tmp_path):
+    """A comment line gives a user material its layer spacing, so it can be a flake."""
+    path = tmp_path / "mine.csv"
+    path.write_text(
+        "# layer_spacing_nm: 0.7\n# my ellipsometry\nwavelength_nm,n,k\n390,4.0,1.0\n810,4.5,0.5\n"
+    )
+    m = get_material(str(path))
+    assert m.layer_spacing_nm == pytest.approx(0.7)
+    assert m.name == "mine"

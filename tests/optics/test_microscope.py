@@ -148,8 +148,9 @@ def test_broadband_channels_and_illumination_parsing():
     lam = np.arange(540.0, 561.0)
     r_ref = cone_reflectance(None, (), sub, lam)[0]
     r_fl = cone_reflectance(m, [1], sub, lam)[0]
-    w = np.gradient(lam)
-    assert band.contrast[0, 0] == pytest.approx(1 - (w @ r_fl) / (w @ r_ref), abs=1e-12)
+    assert band.contrast[0, 0] == pytest.approx(
+        1 - np.trapezoid(r_fl, lam) / np.trapezoid(r_ref, lam), abs=1e-12
+    )
     assert band.wavelength_nm is None
     assert Illumination.parse("blackbody:3200").temperature_k == 3200
     assert Illumination.parse("band:450-650").high_nm == 650
@@ -183,3 +184,78 @@ def test_user_channel_csv(tmp_path):
     bad.write_text("nm,red\n400,x\n")
     with pytest.raises(InputError, match="bad.csv"):
         Channels.parse(str(bad))
+
+
+def test_contrast_table_assembled_from_tmm():
+    """A whole contrast table (N = 1, 2, 5; 400-800 nm at 20 nm; NA 0.5 with 4 angles; s and p;
+    sRGB channels under illuminant A) equals the same channel integrals of tmm reflectances
+    computed point by point (tmm package); the flake taken as isotropic since tmm has no
+    uniaxial films."""
+    from flakebook.optics.stack import cone_nodes
+
+    m = dataclasses.replace(get_material("MoSe2"), extraordinary=None)
+    sub = Substrate.from_oxide(285.0)
+    mic = Microscope(0.5, n_angles=4, wavelength_step_nm=20.0)
+    lam, w = mic.weights()
+    st, wt = cone_nodes(0.5, 4)
+    n_ox = get_material("SiO2").nk(lam)
+    n_si = get_material("Si").nk(lam)
+
+    def cone_r(ns_of_j, ds):
+        out = np.zeros(lam.size)
+        for j in range(lam.size):
+            for s, a in zip(st, wt):
+                for pol in "sp":
+                    out[j] += (
+                        0.5
+                        * a
+                        * tmm.coh_tmm(pol, ns_of_j(j), [np.inf, *ds, np.inf], np.arcsin(s), lam[j])[
+                            "R"
+                        ]
+                    )
+        return out
+
+    r_ref = cone_r(lambda j: [1, n_ox[j], n_si[j]], [285.0])
+    ref_c = (w @ r_ref) / w.sum(axis=1)
+    table = channel_contrast(m, [1, 2, 5], sub, mic)
+    for i, n in enumerate((1, 2, 5)):
+        nf = m.nk(lam, n if n <= 3 else None)
+        r_fl = cone_r(lambda j, nf=nf: [1, nf[j], n_ox[j], n_si[j]], [n * 0.646, 285.0])
+        fl_c = np.maximum((w @ r_fl) / w.sum(axis=1), 0.0)
+        np.testing.assert_allclose(table.contrast[i], 1 - fl_c / ref_c, atol=1e-9)
+
+
+def test_illumination_cone_within_objective():
+    """Reflected-light illumination through the objective cannot be wider than the objective's
+    aperture (common practice, no source); the contrast moves with the illumination NA, more
+    at NA 0.9 than at 0.3 (oblique rays see a thinner optical path in the oxide)."""
+    with pytest.raises(InputError, match="exceeds"):
+        Microscope(0.9, na_objective=0.5)
+    m = get_material("MoSe2")
+    sub = Substrate.from_oxide(285.0)
+    c0 = channel_contrast(m, [1], sub, Microscope(0.0)).contrast[0]
+    c3 = channel_contrast(m, [1], sub, Microscope(0.3, na_objective=0.8)).contrast[0]
+    c9 = channel_contrast(m, [1], sub, Microscope(0.9, n_angles=16)).contrast[0]
+    assert 0.01 < np.max(np.abs(c3 - c0)) < np.max(np.abs(c9 - c0))
+    assert np.max(np.abs(c9 - c0)) > 0.2
+
+
+def test_colour_science_imported_lazily():
+    """Importing the optics package does not import colour-science (DESIGN.md: import it
+    lazily, it is slow to import); a monochromatic contrast never needs it."""
+    import subprocess
+    import sys
+
+    code = (
+        "import sys\n"
+        "import flakebook.optics.layers, flakebook.optics.absorptance, flakebook.evidence\n"
+        "from flakebook.optics.materials import get_material\n"
+        "from flakebook.optics.microscope import Microscope, Illumination, Channels, "
+        "channel_contrast\n"
+        "from flakebook.optics.substrate import Substrate\n"
+        "channel_contrast(get_material('MoS2'), [1], Substrate.from_oxide(90), "
+        "Microscope(0, Illumination.monochromatic(600), Channels.mono()))\n"
+        "print('colour' in sys.modules)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"
