@@ -13,7 +13,7 @@ import cv2
 import numpy as np
 
 
-def choose_factor(shape: tuple[int, int], target_pixels: float = 1.5e6) -> int:
+def choose_factor(shape: tuple[int, int], target_pixels: float = 7.5e5) -> int:
     """A whole downsampling factor bringing an image to about ``target_pixels`` or fewer."""
     n = float(shape[0]) * float(shape[1])
     return max(1, int(math.ceil(math.sqrt(n / target_pixels) - 1e-9)))
@@ -31,14 +31,16 @@ def downsample(a: np.ndarray, f: int) -> np.ndarray:
     return out
 
 
-def block_max(mask: np.ndarray, f: int) -> np.ndarray:
-    """True where any pixel of an f x f block is True (exact)."""
-    if f == 1:
+def block_max(mask: np.ndarray, f: int, fx: int | None = None) -> np.ndarray:
+    """True where any pixel of an f x fx block (fx defaults to f) is nonzero (exact)."""
+    fx = f if fx is None else fx
+    if f == 1 and fx == 1:
         return mask.astype(bool, copy=False)
-    rows, cols = mask.shape[0] // f, mask.shape[1] // f
-    src = mask[: rows * f, : cols * f].view(np.uint8)
-    d = cv2.dilate(src, np.ones((f, f), np.uint8), anchor=(0, 0))
-    return d[::f, ::f][:rows, :cols] > 0
+    rows, cols = mask.shape[0] // f, mask.shape[1] // fx
+    src = mask[: rows * f, : cols * fx]
+    src = src.view(np.uint8) if src.dtype == bool else src
+    d = cv2.dilate(np.ascontiguousarray(src), np.ones((f, fx), np.uint8), anchor=(0, 0))
+    return d[::f, ::fx][:rows, :cols] > 0
 
 
 def to_full(x: np.ndarray | float, f: int) -> np.ndarray | float:

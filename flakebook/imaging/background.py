@@ -18,7 +18,7 @@ import numpy as np
 
 from flakebook.errors import InputError
 from flakebook.imaging import _grid
-from flakebook.imaging.io import Micrograph
+from flakebook.imaging.io import Micrograph, with_intensity
 
 
 def _terms(degree: int) -> list[tuple[int, int]]:
@@ -62,44 +62,53 @@ class Background:
 
     def surface(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
         """The fitted illumination surface over a crop, float32 ``[row, col, ch]``."""
-        r0, r1, _ = rows.indices(self.shape[0])
-        c0, c1, _ = cols.indices(self.shape[1])
+        r0, r1, rs = rows.indices(self.shape[0])
+        c0, c1, cs = cols.indices(self.shape[1])
         if self.method != "polynomial":
             raise InputError("surface() is only defined for the polynomial background")
-        y = _norm_coords(np.arange(r0, r1, dtype=np.float64), self.shape[0])
-        x = _norm_coords(np.arange(c0, c1, dtype=np.float64), self.shape[1])
+        y = _norm_coords(np.arange(r0, r1, rs, dtype=np.float64), self.shape[0])
+        x = _norm_coords(np.arange(c0, c1, cs, dtype=np.float64), self.shape[1])
         terms = _terms(self.degree or 0)
-        out = np.zeros((r1 - r0, c1 - c0, len(self.channels)), np.float32)
-        ypow = [y**k for k in range(self.degree + 1)]
+        ypow = [(y**k).astype(np.float32) for k in range(self.degree + 1)]
         xpow = [x**k for k in range(self.degree + 1)]
+        planes = []
         for c in range(len(self.channels)):
+            plane = np.zeros((len(y), len(x)), np.float32)
             for j in range(self.degree + 1):
                 # sum over i of a_ij x^i, times y^j
                 px = np.zeros_like(x)
                 for t, (i, jj) in enumerate(terms):
                     if jj == j:
                         px += self.coefficients[c, t] * xpow[i]
-                out[:, :, c] += np.outer(ypow[j], px).astype(np.float32)
-        return out
+                plane += np.outer(ypow[j], px.astype(np.float32))
+            planes.append(plane)
+        return np.stack(planes, axis=-1)
 
     def gain(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
-        """The per-pixel gain over a crop (float32 ``[row, col, ch]``), 1 where uncorrected."""
-        r0, r1, _ = rows.indices(self.shape[0])
-        c0, c1, _ = cols.indices(self.shape[1])
+        """The per-pixel gain over a crop (float32 ``[row, col, ch]``), 1 where uncorrected.
+
+        ``rows`` and ``cols`` may have a step (a sub-grid)."""
+        r0, r1, rs = rows.indices(self.shape[0])
+        c0, c1, cs = cols.indices(self.shape[1])
         nch = len(self.channels)
         if self.method == "none":
-            return np.ones((r1 - r0, c1 - c0, nch), np.float32)
+            return np.ones((len(range(r0, r1, rs)), len(range(c0, c1, cs)), nch), np.float32)
         if self.method == "reference":
-            return self.reference_gain[r0:r1, c0:c1]
-        s = self.surface(slice(r0, r1), slice(c0, c1))
+            return self.reference_gain[r0:r1:rs, c0:c1:cs]
+        s = self.surface(slice(r0, r1, rs), slice(c0, c1, cs))
         lv = np.asarray(self.level, np.float32)
         return lv / np.maximum(s, 1e-6)
 
     def correct(
-        self, intensity: np.ndarray, rows: slice = slice(None), cols: slice = slice(None)
+        self, intensity, rows: slice = slice(None), cols: slice = slice(None)
     ) -> np.ndarray:
-        """Corrected intensity of the crop ``intensity[rows, cols]`` (a new float32 array)."""
-        crop = intensity[rows, cols]
+        """Corrected intensity of the crop ``[rows, cols]`` of an array or a Micrograph (a new
+        float32 array)."""
+        crop = (
+            intensity.crop(rows, cols)
+            if isinstance(intensity, Micrograph)
+            else intensity[rows, cols]
+        )
         off = np.asarray(self.dark_offset, np.float32)
         return (crop - off) * self.gain(rows, cols)
 
@@ -162,7 +171,7 @@ def _offsets(dark_offset, channels: tuple[str, ...]) -> tuple[float, ...]:
 
 
 def _robust_polyfit(
-    x: np.ndarray, y: np.ndarray, z: np.ndarray, degree: int, iterations: int = 6
+    x: np.ndarray, y: np.ndarray, z: np.ndarray, degree: int, iterations: int = 4, l1: int = 6
 ) -> tuple[np.ndarray, float]:
     """Robust fit of a 2-D polynomial; returns coefficients and relative rms.
 
@@ -175,10 +184,12 @@ def _robust_polyfit(
     coef = np.zeros(len(terms))
     scale = 1.0
     eps = 1e-6 * max(float(np.median(np.abs(z))), 1e-12)
-    for _ in range(12):
+    for _ in range(l1):
         aw = a * w[:, None]
         coef = np.linalg.lstsq(aw.T @ a, aw.T @ z, rcond=None)[0]
         w = 1.0 / np.maximum(np.abs(z - a @ coef), eps)
+    if l1 == 0:
+        coef = np.linalg.lstsq(a.T @ a, a.T @ z, rcond=None)[0]
     r = z - a @ coef
     scale = 1.4826 * np.median(np.abs(r))
     w = np.ones_like(z) if scale <= 0 else np.where(np.abs(r) < 4.685 * scale, 1.0, 0.0)
@@ -301,7 +312,8 @@ def fit_background(
     rows, cols = image.shape
     nch = len(image.channels)
     if method == "none":
-        lv = tuple(float(np.median(image.intensity[::8, ::8, c]) - offs[c]) for c in range(nch))
+        small = image.working(_grid.choose_factor((rows, cols), 2.5e5))
+        lv = tuple(float(np.median(small[:, :, c]) - offs[c]) for c in range(nch))
         return Background("none", offs, image.channels, (rows, cols), level=lv)
     if method == "reference":
         if reference is None:
@@ -339,12 +351,12 @@ def fit_background(
     degree = int(degree)
     if work is None:
         factor = _grid.choose_factor((rows, cols), 4e5)
-        work = _grid.downsample(image.intensity, factor)
+        work = image.working(factor)
     f = factor or 1
     wr, wc = work.shape[:2]
-    sat = _grid.block_max(image.saturated, f)[:wr, :wc]
+    sat = image.saturated_working(f)[:wr, :wc]
     # Subsample the working grid to at most ~60k points for the fit.
-    step = max(1, int(np.ceil(np.sqrt(wr * wc / 2e4))))
+    step = max(1, int(np.ceil(np.sqrt(wr * wc / 1e4))))
     gy, gx = np.mgrid[0:wr:step, 0:wc:step]
     yy = _norm_coords(_grid.to_full(gy.ravel(), f), rows)
     xx = _norm_coords(_grid.to_full(gx.ravel(), f), cols)
@@ -374,10 +386,13 @@ def fit_background(
     coefs = np.zeros((nch, len(_terms(degree))))
     rms = [0.0] * nch
     use = ok.copy()
-    for _ in range(2):
+    for _pass in range(2):
         keep = np.ones_like(use)
         for c in range(nch):
-            coefs[c], rms[c] = _robust_polyfit(xx[use], yy[use], vals[use, c], degree)
+            # The second pass fits pixels already agreeing with the surface: no L1 start needed.
+            coefs[c], rms[c] = _robust_polyfit(
+                xx[use], yy[use], vals[use, c], degree, l1=0 if (_pass or _refit) else 6
+            )
             a = np.stack([xx**i * yy**j for i, j in _terms(degree)], axis=1)
             model = a @ coefs[c]
             rel = vals[:, c] / np.maximum(model, 1e-9) - 1
@@ -432,11 +447,10 @@ def apply_background(image: Micrograph, background: Background) -> Micrograph:
             f"{image.path or 'image'}: the dark offset was already subtracted; accepted: "
             "subtract it once"
         )
-    out = background.correct(image.intensity)
-    out.setflags(write=False)
+    out = background.correct(image)
     done = list(image.corrections)
     if any(background.dark_offset):
         done.append("dark offset " + ",".join(f"{v:.6g}" for v in background.dark_offset))
     if background.method != "none":
         done.append(f"flat field ({background.method})")
-    return replace(image, intensity=out, corrections=tuple(done))
+    return with_intensity(image, out, corrections=tuple(done))

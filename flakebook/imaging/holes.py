@@ -123,7 +123,7 @@ def fit_circle(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, np.nd
     sol = np.linalg.lstsq(a, b, rcond=None)[0]
     cx, cy = sol[0] / 2, sol[1] / 2
     r = math.sqrt(max(sol[2] + cx**2 + cy**2, 1e-12))
-    for _ in range(20):
+    for _ in range(12):
         dx, dy = x - cx, y - cy
         d = np.hypot(dx, dy)
         d = np.maximum(d, 1e-12)
@@ -131,7 +131,7 @@ def fit_circle(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, np.nd
         j = np.column_stack([-dx / d, -dy / d, -np.ones_like(d)])
         step = np.linalg.lstsq(j, -res, rcond=None)[0]
         cx, cy, r = cx + step[0], cy + step[1], r + step[2]
-        if np.abs(step).max() < 1e-9:
+        if np.abs(step).max() < 1e-7:
             break
     res = np.hypot(x - cx, y - cy) - r
     return float(cx), float(cy), float(r), res
@@ -145,7 +145,11 @@ def refine_hole(
     *,
     offset: tuple[int, int] = (0, 0),
     n_angles: int | None = None,
-    iterations: int = 3,
+    iterations: int = 2,
+    max_rms_px: float = 0.3,
+    max_rms_rel: float = 0.03,
+    min_step: float | None = None,
+    sampler=None,
 ) -> tuple[float, float, float, float, float, int] | None:
     """Sub-pixel centre and radius of a hole from radial intensity profiles.
 
@@ -154,24 +158,40 @@ def refine_hole(
             (x, y) in the full image).
         cx, cy, r: rough centre and radius in full-image pixels.
         n_angles: rays (default: about one per pixel of circumference, 24 to 360).
+        max_rms_px, max_rms_rel: the largest rms scatter of edge points about the circle
+            accepted (pixels, plus a fraction of the radius); rounder shapes only.
+        min_step: the smallest inside-outside level difference accepted.
+        sampler: instead of ``gray``, a function ``(x, y) -> values`` giving the bilinearly
+            interpolated gray level at full-image coordinates (NaN outside the image).
 
     Returns:
         (cx, cy, r, center_err, radius_err, n_points) or None when no clear edge is found.
     """
-    g = np.ascontiguousarray(gray, np.float32)
+    g = None if sampler is not None else np.ascontiguousarray(gray, np.float32)
     ox, oy = offset
+    zone = 8.0
     for _ in range(iterations):
-        k = n_angles or int(np.clip(2 * math.pi * r, 24, 360))
+        k = n_angles or int(np.clip(2 * math.pi * r, 24, 96))
         th = np.linspace(0, 2 * math.pi, k, endpoint=False)
-        step = 0.25
-        rr = np.arange(max(0.3 * r, 0.5), 1.7 * r + 2.0, step)
-        mx = (cx - ox + np.outer(np.cos(th), rr)).astype(np.float32)
-        my = (cy - oy + np.outer(np.sin(th), rr)).astype(np.float32)
-        prof = cv2.remap(
-            g, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan
+        step = 0.25 if r < 20 else 0.5
+        # Levels from a few radii well inside and outside; the edge zone finely sampled.
+        rr = np.concatenate(
+            [
+                np.linspace(0.3 * r, 0.55 * r, 4),
+                np.arange(max(0.65 * r, r - zone), min(1.35 * r + 1.0, r + zone + 1.0), step),
+                np.linspace(1.45 * r + 1.0, 1.7 * r + 2.0, 4),
+            ]
         )
-        inside = np.nanmedian(prof[:, rr < 0.6 * r]) if np.any(rr < 0.6 * r) else np.nan
-        outside = np.nanmedian(prof[:, rr > 1.4 * r + 1.0])
+        if sampler is not None:
+            prof = sampler(cx + np.outer(np.cos(th), rr), cy + np.outer(np.sin(th), rr))
+        else:
+            mx = (cx - ox + np.outer(np.cos(th), rr)).astype(np.float32)
+            my = (cy - oy + np.outer(np.sin(th), rr)).astype(np.float32)
+            prof = cv2.remap(
+                g, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan
+            )
+        inside = np.nanmedian(prof[:, :4])
+        outside = np.nanmedian(prof[:, -4:])
         if not (np.isfinite(inside) and np.isfinite(outside)):
             return None
         mid = 0.5 * (inside + outside)
@@ -187,7 +207,7 @@ def refine_hole(
         p0 = prof[np.arange(k), j]
         p1 = prof[np.arange(k), j + 1]
         t = (mid - p0) / np.where(p1 != p0, p1 - p0, 1.0)
-        redge = rr[j] + step * np.clip(t, 0, 1)
+        redge = rr[j] + (rr[j + 1] - rr[j]) * np.clip(t, 0, 1)
         ex = cx + np.cos(th) * redge
         ey = cy + np.sin(th) * redge
         ex, ey = ex[ok], ey[ok]
@@ -197,13 +217,20 @@ def refine_hole(
         # Leave out rays that a flake edge or dust disturbs.
         mad = 1.4826 * np.median(np.abs(res - np.median(res)))
         good = np.abs(res) <= max(3 * mad, 0.15)
-        if np.count_nonzero(good) >= 8 and not good.all():
+        if np.count_nonzero(good) < 0.7 * k:
+            return None  # too many rays off the circle: not a round hole
+        if not good.all():
             ncx, ncy, nr, res = fit_circle(ex[good], ey[good])
         if not (np.isfinite(nr) and nr > 0.5 and math.hypot(ncx - cx, ncy - cy) < 0.5 * r + 2):
             return None
         cx, cy, r = ncx, ncy, nr
+        zone = 4.0  # the edge is now known to about a pixel
     n = len(res)
     sd = float(np.sqrt(np.sum(res**2) / max(n - 3, 1)))
+    if sd > max_rms_px + max_rms_rel * r:
+        return None  # the edge is not a circle (a flake corner, dust)
+    if min_step is not None and abs(float(inside) - float(outside)) < min_step:
+        return None  # too faint a step between inside and outside
     return cx, cy, r, sd * math.sqrt(2.0 / n), sd / math.sqrt(n), n
 
 
@@ -225,7 +252,7 @@ def detect_holes(
     """Find circular holes and fit each one at full resolution.
 
     Args:
-        intensity: float ``[row, col, ch]`` (or 2-D) linear intensity, full resolution.
+        intensity: a Micrograph, or float ``[row, col, ch]`` (or 2-D) linear intensity.
         um_per_px, um_per_px_err: the scale.
         radius_um: the expected hole radius (searches 0.6x to 1.6x of it), or
         radius_range_um: (min, max) radius; default: 4 working pixels to a quarter of the image.
@@ -236,10 +263,33 @@ def detect_holes(
     Returns:
         Holes sorted by y then x.
     """
-    img = np.asarray(intensity)
-    if img.ndim == 2:
-        img = img[:, :, None]
-    rows, cols = img.shape[:2]
+    from flakebook.imaging.io import Micrograph
+
+    if isinstance(intensity, Micrograph):
+        img = intensity
+        rows, cols = img.shape
+
+        def crop_of(rs: slice, cs: slice) -> np.ndarray:
+            return img.crop(rs, cs)
+
+        def work_of(f: int) -> np.ndarray:
+            return img.working(f)
+
+        sampler = _gray_sampler(img)
+    else:
+        arr = np.asarray(intensity)
+        if arr.ndim == 2:
+            arr = arr[:, :, None]
+        rows, cols = arr.shape[:2]
+
+        def crop_of(rs: slice, cs: slice) -> np.ndarray:
+            return arr[rs, cs]
+
+        def work_of(f: int) -> np.ndarray:
+            return _grid.downsample(arr, f)
+
+        sampler = None
+
     if radius_um is not None:
         lo_um, hi_um = 0.6 * radius_um, 1.6 * radius_um
     elif radius_range_um is not None:
@@ -259,10 +309,10 @@ def detect_holes(
             f = fmax
             work = None
     if work is None:
-        work = _grid.downsample(img, f)
+        work = work_of(f)
     if work.ndim == 2:
         work = work[:, :, None]
-    gray = work.mean(axis=2) if work.shape[2] > 1 else work[:, :, 0]
+    gray = _gray(work)
     lo, hi = np.percentile(
         gray[:: max(1, gray.shape[0] // 300), :: max(1, gray.shape[1] // 300)], [0.5, 99.5]
     )
@@ -288,27 +338,31 @@ def detect_holes(
     if circles is None:
         return ()
     # Noise estimate of the full-resolution gray level (MAD of horizontal differences).
-    sample = img[:: max(1, rows // 256), :, :].mean(axis=2)
+    bands = [
+        crop_of(slice(r0, min(rows, r0 + 16)), slice(None))
+        for r0 in range(0, rows, max(16, rows // 4))
+    ]
+    sample = np.concatenate([_gray(b) for b in bands[:5]], axis=0)
     noise = 1.4826 * float(np.median(np.abs(np.diff(sample, axis=1)))) / math.sqrt(2)
     need = min_step if min_step is not None else max(8 * noise, 1e-4)
     holes: list[Hole] = []
     for c in circles.reshape(-1, 3):
         check_cancel(cancel)
         cx, cy, r = (float(_grid.to_full(c[0], f)), float(_grid.to_full(c[1], f)), float(c[2] * f))
-        pad = int(1.7 * r + 6)
-        x0, y0 = max(0, int(cx - pad)), max(0, int(cy - pad))
-        x1, y1 = min(cols, int(cx + pad) + 1), min(rows, int(cy + pad) + 1)
-        if x1 - x0 < 4 or y1 - y0 < 4:
-            continue
-        crop = img[y0:y1, x0:x1]
-        g = crop.mean(axis=2) if crop.shape[2] > 1 else crop[:, :, 0]
-        fit = refine_hole(g, cx, cy, r, offset=(x0, y0))
+        if sampler is not None:
+            fit = refine_hole(None, cx, cy, r, min_step=need, sampler=sampler)
+        else:
+            pad = int(1.7 * r + 6)
+            x0, y0 = max(0, int(cx - pad)), max(0, int(cy - pad))
+            x1, y1 = min(cols, int(cx + pad) + 1), min(rows, int(cy + pad) + 1)
+            if x1 - x0 < 4 or y1 - y0 < 4:
+                continue
+            g = _gray(crop_of(slice(y0, y1), slice(x0, x1)))
+            fit = refine_hole(g, cx, cy, r, offset=(x0, y0), min_step=need)
         if fit is None:
             continue
         fx, fy, fr, ce, re, n = fit
         if not (0 <= fx < cols and 0 <= fy < rows):
-            continue
-        if not _clear_step(g, fx - x0, fy - y0, fr, need):
             continue
         if any(math.hypot(fx - h.center_px[0], fy - h.center_px[1]) < 0.5 * fr for h in holes):
             continue
@@ -317,14 +371,55 @@ def detect_holes(
     return tuple(holes)
 
 
-def _clear_step(g: np.ndarray, cx: float, cy: float, r: float, need: float) -> bool:
-    yy, xx = np.ogrid[: g.shape[0], : g.shape[1]]
-    d = np.hypot(xx - cx, yy - cy)
-    inner = g[d < 0.6 * r]
-    ring = g[(d > r + 1.5) & (d < 1.5 * r + 1.5)]
-    if inner.size < 3 or ring.size < 3:
-        return False
-    return abs(float(np.median(inner)) - float(np.median(ring))) >= need
+def _gray_sampler(img):
+    """Bilinear gray level (mean of linear channels) of a Micrograph at full-res coordinates,
+    converting only the pixels it touches (NaN outside the image)."""
+    rows, cols = img.shape
+
+    nch = len(img.channels)
+    if img.samples.dtype == np.uint8:
+        base = img._convert(np.arange(256, dtype=np.uint8).reshape(-1, 1, 1), reorder=False)
+        lut = base.reshape(-1) / np.float32(nch)
+    else:
+        lut = None
+
+    def sample(mx: np.ndarray, my: np.ndarray) -> np.ndarray:
+        x0 = np.floor(mx).astype(np.int64)
+        y0 = np.floor(my).astype(np.int64)
+        fx = (mx - x0).astype(np.float32)
+        fy = (my - y0).astype(np.float32)
+        valid = (x0 >= 0) & (y0 >= 0) & (x0 + 1 < cols) & (y0 + 1 < rows)
+        x0 = np.clip(x0, 0, max(cols - 2, 0))
+        y0 = np.clip(y0, 0, max(rows - 2, 0))
+        x1 = np.minimum(x0 + 1, cols - 1)
+        y1 = np.minimum(y0 + 1, rows - 1)
+        # One gather of the four neighbours of every point.
+        raw = img.samples[np.stack([y0, y0, y1, y1]), np.stack([x0, x1, x0, x1])]
+        if lut is not None:
+            g = lut[raw].sum(axis=-1)
+        else:
+            lin = img._convert(raw.reshape(-1, 1, nch), reorder=False)
+            g = lin.reshape(raw.shape).mean(axis=-1)
+        v = (
+            g[0] * (1 - fx) * (1 - fy)
+            + g[1] * fx * (1 - fy)
+            + g[2] * (1 - fx) * fy
+            + g[3] * fx * fy
+        )
+        return np.where(valid, v, np.nan).astype(np.float32)
+
+    return sample
+
+
+def _gray(a: np.ndarray) -> np.ndarray:
+    """Mean over channels (float32 2-D), computed by OpenCV for speed."""
+    if a.ndim == 2 or a.shape[2] == 1:
+        return a.reshape(a.shape[0], a.shape[1])
+    n = a.shape[2]
+    src = np.ascontiguousarray(a, np.float32)
+    if n > 4:
+        return src.mean(axis=2)
+    return cv2.transform(src, np.full((1, n), 1.0 / n, np.float32))
 
 
 # ---- lattice -----------------------------------------------------------------------------
@@ -528,8 +623,93 @@ def hole_coverage(
     poly = np.asarray(outline_px, np.float64).reshape(-1, 2)
     if len(poly) < 3:
         return Coverage(0.0, False, float("nan"), float("nan"))
-    frac = circle_polygon_area(poly, center, r) / (math.pi * r * r)
-    frac = float(min(max(frac, 0.0), 1.0))
-    margin = signed_distance(poly, center) - r
+    sd = signed_distance(poly, center)
+    margin = sd - r
+    if sd >= r:
+        frac = 1.0  # wholly inside: no edge within the disk
+    elif sd <= -r:
+        frac = 0.0  # wholly outside
+    else:
+        frac = circle_polygon_area(poly, center, r) / (math.pi * r * r)
+        frac = float(min(max(frac, 0.0), 1.0))
     full = bool(margin >= 0 and frac > 1 - 1e-9)
     return Coverage(frac, full, margin, margin * um_per_px)
+
+
+# ---- editing by hand and coverage tables -----------------------------------------------------
+
+
+def manual_hole(
+    center_px: tuple[float, float],
+    radius_px: float,
+    *,
+    um_per_px: float,
+    um_per_px_err: float = 0.0,
+    placement_err_px: float = 0.5,
+) -> Hole:
+    """A hole placed by hand (centre and radius in pixels; their uncertainty is how precisely
+    they were placed)."""
+    x, y = (float(v) for v in center_px)
+    r = float(radius_px)
+    if not (math.isfinite(x) and math.isfinite(y) and math.isfinite(r) and r > 0):
+        raise InputError(
+            f"hole at {center_px} with radius {radius_px!r} px; accepted: a finite centre and a "
+            "positive radius"
+        )
+    return Hole((x, y), r, placement_err_px, placement_err_px, um_per_px, um_per_px_err, True, 0)
+
+
+def edit_holes(
+    holes: tuple[Hole, ...],
+    *,
+    add: tuple[Hole, ...] = (),
+    move: dict[int, tuple[float, float]] | None = None,
+    resize: dict[int, float] | None = None,
+    delete: tuple[int, ...] = (),
+) -> tuple[Hole, ...]:
+    """A new tuple of holes with some moved, resized, deleted (by index) and some added.
+
+    Moved or resized holes keep their other values; the input is not changed.
+    """
+    from dataclasses import replace
+
+    n = len(holes)
+    for i in list((move or {}).keys()) + list((resize or {}).keys()) + list(delete):
+        if not (0 <= int(i) < n):
+            raise InputError(f"hole index {i}; accepted: 0 to {n - 1}")
+    out = []
+    for i, h in enumerate(holes):
+        if i in set(delete):
+            continue
+        if move and i in move:
+            x, y = (float(v) for v in move[i])
+            h = replace(h, center_px=(x, y))
+        if resize and i in resize:
+            r = float(resize[i])
+            if not (math.isfinite(r) and r > 0):
+                raise InputError(f"hole radius {resize[i]!r} px; accepted: a positive number")
+            h = replace(h, radius_px=r)
+        out.append(h)
+    return tuple(out) + tuple(add)
+
+
+def coverage_pairs(
+    outlines_px: dict[int, np.ndarray], holes: tuple[Hole, ...], um_per_px: float
+) -> list[tuple[int, int, Coverage]]:
+    """(flake id, hole index, coverage) for every flake outline that covers part of a hole."""
+    out = []
+    for fid, poly in outlines_px.items():
+        poly = np.asarray(poly, np.float64).reshape(-1, 2)
+        if len(poly) < 3:
+            continue
+        x0, y0 = poly.min(0)
+        x1, y1 = poly.max(0)
+        for k, h in enumerate(holes):
+            cx, cy = h.center_px
+            r = h.radius_px
+            if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
+                continue
+            cov = hole_coverage(poly, h, um_per_px)
+            if cov.covered_fraction > 0:
+                out.append((fid, k, cov))
+    return out

@@ -35,8 +35,6 @@ class Micrograph:
     """A micrograph in linear intensity.
 
     Attributes:
-        intensity: float32 array ``[row, col, channel]``, linear, 1.0 = the camera's full scale
-            (read-only).
         channels: channel names, ``("r", "g", "b")`` or ``("mono",)``.
         saturated: bool array ``[row, col]``, True where any channel reached full scale.
         bit_depth: 8 or 16 (bits per sample of the file), or that of the array given.
@@ -45,29 +43,198 @@ class Micrograph:
         warnings: messages for the user about this image.
         corrections: what has been done to the intensities since decoding (e.g. a dark offset
             subtracted, a flat field divided), in order.
+        samples: the decoded samples ``[row, col, channel]`` (RGB order, read-only) that
+            :attr:`intensity` is computed from, or the linear float32 intensity itself.
+
+    ``intensity`` (float32 ``[row, col, channel]``, linear, 1.0 = the camera's full scale,
+    read-only) is computed from the samples on first use and kept; :meth:`crop` and
+    :meth:`working` convert only what they need, so that a survey of a large image never holds
+    a full-resolution float copy it does not use.
     """
 
-    intensity: np.ndarray
     channels: tuple[str, ...]
-    saturated: np.ndarray
     bit_depth: int
     path: str | None = None
     transfer: str = "linear"
     warnings: tuple[str, ...] = ()
     corrections: tuple[str, ...] = field(default=())
+    samples: np.ndarray | None = field(default=None, repr=False)
+    order: str = "rgb"  # channel order of the samples: "rgb", or "bgr" as OpenCV decodes
+    scale: float = 1.0  # 16-bit: 1 / white level; float samples: 1
+    white: float = 1.0  # raw sample value at which the camera saturates
+    saturation: np.ndarray | None = field(default=None, repr=False)  # given mask, if any
+    _cache: dict = field(default_factory=dict, repr=False, compare=False)
+
+    # ---- saturation ---------------------------------------------------------------------
+
+    def _sat_of(self, raw: np.ndarray) -> np.ndarray:
+        if raw.shape[2] == 1:
+            return raw[:, :, 0] >= self.white
+        if raw.shape[2] == 3 and raw.dtype in (np.uint8, np.uint16):
+            src = np.ascontiguousarray(raw)
+            over = cv2.compare(src.reshape(src.shape[0], -1), self.white, cv2.CMP_GE)
+            return cv2.transform(over.reshape(src.shape), np.ones((1, 3), np.float32)) > 0
+        return raw.max(axis=2) >= self.white
+
+    def _sat_block(self, raw: np.ndarray, f: int) -> np.ndarray:
+        """Block-max saturation of raw samples over f x f pixels (any channel)."""
+        from flakebook.imaging import _grid
+
+        nch = raw.shape[2]
+        if raw.dtype in (np.uint8, np.uint16):
+            flat = np.ascontiguousarray(raw).reshape(raw.shape[0], -1)
+            over = cv2.compare(flat, self.white, cv2.CMP_GE)
+            return _grid.block_max(over, f, f * nch)
+        return _grid.block_max(self._sat_of(raw), f)
+
+    @property
+    def saturated(self) -> np.ndarray:
+        """Bool ``[row, col]``: True where any channel reached the camera's full scale."""
+        if self.saturation is not None:
+            return self.saturation
+        sat = self._cache.get("sat")
+        if sat is None:
+            sat = self._sat_of(self.samples)
+            sat.setflags(write=False)
+            self._cache["sat"] = sat
+        return sat
+
+    def saturated_crop(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
+        """The saturation mask of ``[rows, cols]``."""
+        if self.saturation is not None or "sat" in self._cache:
+            return self.saturated[rows, cols]
+        return self._sat_of(self.samples[rows, cols])
+
+    def saturated_working(self, factor: int) -> np.ndarray:
+        """True for working pixels (``factor`` x ``factor`` blocks) with any saturated pixel."""
+        f = int(factor)
+        key = ("satw", f)
+        if key not in self._cache:
+            if self.saturation is not None or "sat" in self._cache or f == 1:
+                from flakebook.imaging import _grid
+
+                self._cache[key] = _grid.block_max(self.saturated, f)
+            else:
+                self.working(f)
+        return self._cache[key]
 
     @property
     def shape(self) -> tuple[int, int]:
         """(rows, cols)."""
-        return self.intensity.shape[0], self.intensity.shape[1]
+        return self.samples.shape[0], self.samples.shape[1]
 
     @property
     def height(self) -> int:
-        return self.intensity.shape[0]
+        return self.samples.shape[0]
 
     @property
     def width(self) -> int:
-        return self.intensity.shape[1]
+        return self.samples.shape[1]
+
+    def _convert(self, raw: np.ndarray, reorder: bool = True) -> np.ndarray:
+        """Linear float32 intensity ``[r, c, ch]`` of a block of samples (a new array), in RGB
+        order (``reorder=False``: in the samples' order)."""
+        if raw.dtype == np.uint8:
+            lut = _SRGB_LUT_8 if self.transfer == "srgb" else _LINEAR_LUT_8
+            src = np.ascontiguousarray(raw)
+            lin = cv2.LUT(src, lut) if src.shape[2] in (1, 3, 4) else lut[src]
+        elif raw.dtype == np.uint16:
+            lin = raw.astype(np.float32)
+            cv2.multiply(lin, float(self.scale), dst=lin)
+            if self.transfer == "srgb":
+                lin = srgb_to_linear(np.clip(lin, 0, 1)).astype(np.float32)
+        else:
+            lin = np.array(raw, dtype=np.float32)
+        lin = lin.reshape(raw.shape[0], raw.shape[1], -1)
+        if reorder and self.order == "bgr" and lin.shape[2] == 3:
+            lin = np.ascontiguousarray(lin)
+            cv2.cvtColor(lin, cv2.COLOR_BGR2RGB, dst=lin)
+        return lin
+
+    @property
+    def linear_samples(self) -> bool:
+        """True when the samples already are the linear float32 intensity."""
+        return self.samples.dtype == np.float32 and self.scale == 1.0 and self.transfer == "linear"
+
+    @property
+    def intensity(self) -> np.ndarray:
+        """Linear intensity, float32 ``[row, col, channel]`` (read-only)."""
+        if self.linear_samples:
+            return self.samples
+        lin = self._cache.get("lin")
+        if lin is None:
+            lin = self._convert(self.samples)
+            lin.setflags(write=False)
+            self._cache["lin"] = lin
+        return lin
+
+    def crop(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
+        """Linear intensity of ``[rows, cols]`` (float32; a view when already converted)."""
+        if self.linear_samples:
+            return self.samples[rows, cols]
+        lin = self._cache.get("lin")
+        if lin is not None:
+            return lin[rows, cols]
+        return self._convert(self.samples[rows, cols])
+
+    def working(self, factor: int) -> np.ndarray:
+        """Block means of the linear intensity over ``factor`` x ``factor`` pixels (kept).
+
+        Converted band by band, so no full-resolution float copy is made.
+        """
+        f = int(factor)
+        key = ("work", f)
+        if key in self._cache:
+            return self._cache[key]
+        from flakebook.imaging import _grid
+
+        if f == 1 or self.linear_samples or "lin" in self._cache:
+            out = _grid.downsample(self.intensity, f)
+        else:
+            # Band by band: linear intensity and saturation of each band, block-averaged.
+            rows, cols = self.shape[0] // f, self.shape[1] // f
+            out = np.empty((rows, cols, len(self.channels)), np.float32)
+            sat = np.empty((rows, cols), bool)
+            known = self.saturation is not None or "sat" in self._cache
+            band = f * max(1, 256 // f)
+            for r0 in range(0, rows * f, band):
+                r1 = min(r0 + band, rows * f)
+                raw = self.samples[r0:r1, : cols * f]
+                lin = self._convert(raw, reorder=False)
+                small = cv2.resize(lin, (cols, (r1 - r0) // f), interpolation=cv2.INTER_AREA)
+                small = small.reshape(out[r0 // f : r1 // f].shape)
+                if self.order == "bgr" and small.shape[2] == 3:
+                    small = small[:, :, ::-1]
+                out[r0 // f : r1 // f] = small
+                if not known:
+                    sat[r0 // f : r1 // f] = self._sat_block(raw, f)
+            if not known:
+                sat.setflags(write=False)
+                self._cache[("satw", f)] = sat
+        out.setflags(write=False)
+        self._cache[key] = out
+        return out
+
+
+def with_intensity(image: Micrograph, intensity: np.ndarray, **changes) -> Micrograph:
+    """A copy of ``image`` whose intensity is the given linear float32 array."""
+    from dataclasses import replace
+
+    lin = np.asarray(intensity, np.float32)
+    if lin.ndim == 2:
+        lin = lin[:, :, None]
+    lin.setflags(write=False)
+    return replace(
+        image,
+        samples=lin,
+        order="rgb",
+        scale=1.0,
+        white=1.0,
+        transfer="linear",
+        saturation=image.saturated,
+        _cache={},
+        **changes,
+    )
 
 
 # ---- the sRGB transfer function (IEC 61966-2-1:1999) ---------------------------------------
@@ -328,7 +495,9 @@ def read_image(
         )
     if raw.shape[0] != head.height or raw.shape[1] != head.width:
         raise _refuse(p, "decoded size differs from the header (damaged file)")
-    img = from_array(raw, order="bgr", transfer=transfer, white_level=white_level, path=p)
+    img = from_array(
+        raw, order="bgr", transfer=transfer, white_level=white_level, path=p, copy=False
+    )
     if warnings:
         img = _with_warnings(img, warnings)
     return img
@@ -348,6 +517,7 @@ def from_array(
     white_level: int | float | None = None,
     channels: tuple[str, ...] | None = None,
     path: str | None = None,
+    copy: bool = True,
 ) -> Micrograph:
     """A :class:`Micrograph` from a decoded array (the input is not changed).
 
@@ -359,6 +529,8 @@ def from_array(
         white_level: raw saturation value (default: 255, 65535, or 1.0 for float).
         channels: names for the channels (default ``r, g, b`` or ``mono``).
         path: recorded in the result.
+        copy: False hands the array over (it may then be changed in place, e.g. BGR to RGB);
+            by default the input is copied and never changed.
     """
     a = np.asarray(array)
     where = path or "image array"
@@ -395,50 +567,39 @@ def from_array(
     if transfer == "auto":
         transfer = "srgb" if bit_depth == 8 else "linear"
     colour = a.ndim == 3
-    if colour and order == "bgr" and a.shape[2] == 3:
-        a = cv2.cvtColor(np.ascontiguousarray(a), cv2.COLOR_BGR2RGB)
-    elif not colour or not a.flags.c_contiguous:
-        a = np.ascontiguousarray(a)
-
-    # Saturation: the maximum over channels at or above the white level.
-    if colour and a.shape[2] == 3:
-        peak = cv2.reduce(a.reshape(-1, 3), 1, cv2.REDUCE_MAX).reshape(a.shape[:2])
-    elif colour:
-        peak = a.max(axis=2)
-    else:
-        peak = a
-    saturated = peak >= level
-
+    order = "bgr" if colour and order == "bgr" and a.shape[2] == 3 else "rgb"
+    if copy or not a.flags.c_contiguous:
+        a = np.array(a, order="C", copy=True)  # never share (and so never change) the input
     # 8-bit: intensity relative to 255 (the white level only sets the saturation mask);
     # 16-bit: relative to the white level (a 12-bit camera in a 16-bit file saturates at 4095).
-    if bit_depth == 8:
-        lut = _SRGB_LUT_8 if transfer == "srgb" else _LINEAR_LUT_8
-        lin = cv2.LUT(a, lut) if not colour or a.shape[2] == 3 else lut[a]
-    else:
-        lin = a.astype(np.float32)
-        if bit_depth == 16:
-            cv2.multiply(lin, 1.0 / float(level), dst=lin)
+    samples = a if a.ndim == 3 else a[:, :, None]
+    scale = 1.0 / float(level) if bit_depth == 16 else 1.0
+    if bit_depth == 32:
+        if order == "bgr":
+            samples = np.ascontiguousarray(samples[:, :, ::-1])
+            order = "rgb"
         if transfer == "srgb":
-            lin = srgb_to_linear(np.clip(lin, 0, 1)).astype(np.float32)
-    if lin.ndim == 2:
-        lin = lin[:, :, None]
+            samples = srgb_to_linear(np.clip(samples, 0, 1)).astype(np.float32)
+            transfer = "linear"
+        elif samples.dtype != np.float32:
+            samples = samples.astype(np.float32)
+        if white_level is not None and float(level) != 1.0:
+            samples = (samples / np.float32(level)).astype(np.float32)
+            level = 1.0
     names = tuple(channels) if channels else (("r", "g", "b") if colour else ("mono",))
-    if len(names) != lin.shape[2]:
-        raise InputError(f"{where}: {len(names)} channel names for {lin.shape[2]} channels")
-    warnings: list[str] = []
-    frac = float(np.count_nonzero(saturated)) / saturated.size
-    if frac > 0.01:
-        warnings.append(f"{100 * frac:.1f}% of pixels are saturated and are left out")
-    lin.setflags(write=False)
-    saturated.setflags(write=False)
+    if len(names) != samples.shape[2]:
+        raise InputError(f"{where}: {len(names)} channel names for {samples.shape[2]} channels")
+    samples.setflags(write=False)
     return Micrograph(
-        intensity=lin,
         channels=tuple(names),
-        saturated=saturated,
         bit_depth=bit_depth,
         path=None if path is None else str(Path(path)),
         transfer=transfer,
-        warnings=tuple(warnings),
+        warnings=(),
+        samples=samples,
+        order=order,
+        scale=scale,
+        white=float(level),
     )
 
 

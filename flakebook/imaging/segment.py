@@ -159,7 +159,7 @@ def substrate_colour(
     rows, cols, nch = work.shape
     if nch > 3:
         bins = max(4, int(round(110_000 ** (1.0 / nch))))
-    step = max(1, int(np.sqrt(rows * cols / 4e5)))
+    step = max(1, int(np.ceil(np.sqrt(rows * cols / 1e5))))
     lin = work[::step, ::step].reshape(-1, nch)
     if valid is not None:
         lin = lin[valid[::step, ::step].ravel()]
@@ -342,9 +342,13 @@ def _full_crop_mask(mask_work: np.ndarray, f: int) -> np.ndarray:
 
 
 def _robust_mean(v: np.ndarray) -> tuple[float, float]:
-    """Mean of values within 3 robust sigmas of the median, and the robust sigma."""
-    med = float(np.median(v))
-    sd = 1.4826 * float(np.median(np.abs(v - med)))
+    """Mean of values within 3 robust sigmas of the median, and the robust sigma.
+
+    The median and its absolute deviation come from at most ~5000 evenly spaced values.
+    """
+    w = v[:: max(1, v.size // 5000)]
+    med = float(np.median(w))
+    sd = 1.4826 * float(np.median(np.abs(w - med)))
     if sd > 0:
         v = v[np.abs(v - med) <= 3 * sd]
     m = float(v.mean()) if v.size else med
@@ -352,6 +356,8 @@ def _robust_mean(v: np.ndarray) -> tuple[float, float]:
 
 
 # ---- segmentation ----------------------------------------------------------------------------
+
+MAX_PIXELS = 40_000  # interior pixels measured per region (a sub-grid beyond this)
 
 
 def segment(
@@ -400,7 +406,7 @@ def segment(
     warnings: list[str] = []
     if work is None:
         factor = _grid.choose_factor((rows, cols))
-        work = _grid.downsample(image.intensity, factor)
+        work = image.working(factor)
     f = int(factor or 1)
     if background is None:
         background = fit_background(image, work=work, factor=f)
@@ -409,7 +415,7 @@ def segment(
     check_cancel(cancel)
     # Working copy corrected for dark offset and illumination: gain evaluated at the working
     # pixel centres (an exact evaluation of the smooth surface on the coarse grid).
-    valid = ~_grid.block_max(image.saturated, f)[:wr, :wc]
+    valid = ~image.saturated_working(f)[:wr, :wc]
     hole_w = [
         (float(_grid.to_work(x, f)), float(_grid.to_work(y, f)), r / f) for x, y, r in holes or ()
     ]
@@ -452,7 +458,7 @@ def segment(
         cs = cv2.GaussianBlur(cw, (0, 0), 1.0)
         if cs.ndim == 2:
             cs = cs[:, :, None]
-        sub_vals = cs[sub_mask]
+        sub_vals = cs[sub_mask][:: max(1, int(np.count_nonzero(sub_mask) // 100_000))]
         sd_s = 1.4826 * np.median(np.abs(sub_vals - np.median(sub_vals, axis=0)), axis=0)
         quant = 1.0 / (255.0 if image.bit_depth == 8 else 65535.0) / np.maximum(level, 1e-6)
         sd_s = np.maximum(sd_s, quant)
@@ -466,10 +472,11 @@ def segment(
         fg &= ~bare_mask
         # A smooth surface can bend into a large flake; fit it again with everything that is
         # not bare substrate left out.
+        previous_level = background.level
         if attempt == 0 and refine_background and background.method == "polynomial" and fg.any():
             grow_ex = cv2.dilate((~sub_mask | fg).astype(np.uint8), np.ones((5, 5), np.uint8)) > 0
             try:
-                background = fit_background(
+                refit = fit_background(
                     image,
                     dark_offset=dict(zip(image.channels, background.dark_offset)),
                     degree=background.degree,
@@ -480,7 +487,18 @@ def segment(
                 )
             except InputError:
                 break
-            continue
+            # Detection is redone only if the refit moves the substrate by a visible amount
+            # (a quarter of the detection threshold); otherwise the refit is kept for measuring.
+            change = np.abs(_work_gain(refit, wr, wc, f)[::4, ::4] / wgain[::4, ::4] - 1)
+            moved = bool(np.any(change.reshape(-1, change.shape[-1]).max(0) > 0.25 * thr))
+            level_old = level
+            background = refit
+            if moved:
+                continue
+            # Same segmentation; the substrate level follows the refined surface.
+            scale_lv = np.array(refit.level) / np.maximum(np.array(previous_level), 1e-12)
+            level = level_old * scale_lv
+            break
         break
     fg = cv2.morphologyEx(
         fg.astype(np.uint8), cv2.MORPH_OPEN, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (3, 3))
@@ -502,7 +520,7 @@ def segment(
     if corners:
         pcs = []
         for y0, x0 in corners:
-            crop = background.correct(image.intensity, slice(y0, y0 + psize), slice(x0, x0 + psize))
+            crop = background.correct(image, slice(y0, y0 + psize), slice(x0, x0 + psize))
             pcs.append(contrast_image(crop, level))
         for c, name in enumerate(image.channels):
             ps = [p[:, :, c] for p in pcs]
@@ -612,7 +630,19 @@ def segment(
                 area_um2=float(area_px * um_per_px**2),
                 bbox_px=(ox, oy, ox + full.shape[1] - 1, oy + full.shape[0] - 1),
                 centroid_px=(float(xx.mean() + ox), float(yy.mean() + oy)),
-                outline_px=_outline(crop, px0 + bx0, py0 + by0, f),
+                outline_px=_flake_outline(
+                    image,
+                    background,
+                    level,
+                    crop,
+                    px0 + bx0,
+                    py0 + by0,
+                    f,
+                    cz,
+                    bw,
+                    bare_c,
+                    hole_w,
+                ),
                 region_ids=tuple(rids),
             )
         )
@@ -635,6 +665,88 @@ def segment(
         warnings=tuple(warnings),
         background=background,
     )
+
+
+def _flake_outline(
+    image: Micrograph,
+    bg: Background,
+    level: np.ndarray,
+    crop: np.ndarray,
+    wx0: int,
+    wy0: int,
+    f: int,
+    centres: np.ndarray,
+    bw: np.ndarray,
+    bare_c: np.ndarray | None,
+    hole_w: list,
+) -> np.ndarray:
+    # ``centres``: substrate (zeros) then the terrace modes, divided by ``bw``.
+    """A flake's outline; at full resolution where the flake touches a hole.
+
+    On the working grid an outline is good to about f/2 pixels. Where a flake meets a hole (the
+    coverage margin needs the edge to a pixel), the flake's full-resolution pixels are classed
+    as on the working grid (nearest of substrate, bare hole and the flake's terrace contrasts,
+    after a 1-pixel smoothing, so that the edge lies half-way) and the outline traced on them.
+    """
+    coarse = _outline(crop, wx0, wy0, f)
+    if f == 1 or not hole_w:
+        return coarse
+    h, w = crop.shape
+    # Full-resolution box of the flake, padded; the coarse mask expanded to it.
+    pad = 2
+    bx0, by0 = max(0, (wx0 - pad) * f), max(0, (wy0 - pad) * f)
+    bx1 = min(image.width, (wx0 + w + pad) * f)
+    by1 = min(image.height, (wy0 + h + pad) * f)
+    win = 3 * f + 12  # edges nearer than this to a hole's edge are traced at full resolution
+    near = [
+        (x * f + (f - 1) / 2.0, y * f + (f - 1) / 2.0, r * f)
+        for x, y, r in hole_w
+        if wx0 - r - win / f <= x <= wx0 + w + r + win / f
+        and wy0 - r - win / f <= y <= wy0 + h + r + win / f
+    ]
+    if not near:
+        return coarse
+    big = np.zeros((by1 - by0, bx1 - bx0), np.uint8)
+    up = cv2.resize(crop.astype(np.uint8), (w * f, h * f), interpolation=cv2.INTER_NEAREST)
+    oy, ox = wy0 * f - by0, wx0 * f - bx0
+    hh, ww = min(up.shape[0], big.shape[0] - oy), min(up.shape[1], big.shape[1] - ox)
+    big[oy : oy + hh, ox : ox + ww] = up[:hh, :ww]
+    allowed = cv2.dilate(big, np.ones((2 * f + 1, 2 * f + 1), np.uint8))
+    others = [np.zeros(len(bw))]
+    if bare_c is not None:
+        others.append(np.asarray(bare_c))
+    cz = np.vstack([np.array(others) / bw, centres[1:]]).astype(np.float32)
+    n_off = len(others)
+    inv_bw = (1.0 / bw).astype(np.float32)
+    for x, y, r in near:
+        x0, x1 = max(bx0, int(x - r - win)), min(bx1, int(x + r + win) + 1)
+        y0, y1 = max(by0, int(y - r - win)), min(by1, int(y + r + win) + 1)
+        if x1 - x0 < 4 or y1 - y0 < 4:
+            continue
+        c = contrast_image(bg.correct(image, slice(y0, y1), slice(x0, x1)), level)
+        c = cv2.GaussianBlur(c, (0, 0), 1.0)
+        if c.ndim == 2:
+            c = c[:, :, None]
+        z = c * inv_bw
+        best = np.full(z.shape[:2], np.inf, np.float32)
+        lab = np.zeros(z.shape[:2], np.int16)
+        for k in range(len(cz)):
+            d2 = ((z - cz[k]) ** 2).sum(-1)
+            closer = d2 < best
+            best[closer] = d2[closer]
+            lab[closer] = k
+        sub = (lab >= n_off) & (allowed[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] > 0)
+        big[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] = sub
+    big = cv2.morphologyEx(big, cv2.MORPH_OPEN, np.ones((3, 3), np.uint8))
+    contours, _ = cv2.findContours(big, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
+    if not contours:
+        return coarse
+    cmax = max(contours, key=cv2.contourArea).reshape(-1, 2).astype(np.float64)
+    if len(cmax) < 3:
+        return coarse
+    cmax[:, 0] += bx0
+    cmax[:, 1] += by0
+    return cmax
 
 
 def _bare_hole_pixels(
@@ -697,7 +809,7 @@ def _over_hole(stat: np.ndarray, x0: int, y0: int, hole_w: list) -> bool:
 
 
 def _work_gain(bg: Background, wr: int, wc: int, f: int) -> np.ndarray:
-    """The background gain at working-pixel centres."""
+    """The background gain at working-pixel centres (float32 ``[row, col, ch]``)."""
     nch = len(bg.channels)
     if bg.method == "none":
         return np.ones((wr, wc, nch), np.float32)
@@ -708,12 +820,18 @@ def _work_gain(bg: Background, wr: int, wc: int, f: int) -> np.ndarray:
 
     y = _norm_coords(_grid.to_full(np.arange(wr, dtype=np.float64), f), bg.shape[0])
     x = _norm_coords(_grid.to_full(np.arange(wc, dtype=np.float64), f), bg.shape[1])
-    out = np.zeros((wr, wc, nch), np.float32)
+    terms = _terms(bg.degree)
+    out = np.empty((wr, wc, nch), np.float32)
     for c in range(nch):
-        s = np.zeros((wr, wc))
-        for t, (i, j) in enumerate(_terms(bg.degree)):
-            s += bg.coefficients[c, t] * np.outer(y**j, x**i)
-        out[:, :, c] = bg.level[c] / np.maximum(s, 1e-6)
+        s = np.zeros((wr, wc), np.float32)
+        for j in range(bg.degree + 1):
+            px = np.zeros_like(x)
+            for t, (i, jj) in enumerate(terms):
+                if jj == j:
+                    px += bg.coefficients[c, t] * x**i
+            s += np.outer((y**j).astype(np.float32), px.astype(np.float32))
+        np.maximum(s, 1e-6, out=s)
+        out[:, :, c] = np.float32(bg.level[c]) / s
     return out
 
 
@@ -733,48 +851,57 @@ def _measure_region(
     sub_rel: dict,
 ) -> Region | None:
     """Contrast, area, box, centroid and outline of one region at full resolution."""
-    full = _full_crop_mask(rmask, f)
     fy0, fx0 = ry * f, rx * f
-    h, w = full.shape
-    h = min(h, image.height - fy0)
-    w = min(w, image.width - fx0)
-    full = full[:h, :w]
-    yy, xx = np.nonzero(full)
-    if len(yy) == 0:
+    h = min(rmask.shape[0] * f, image.height - fy0)
+    w = min(rmask.shape[1] * f, image.width - fx0)
+    wy, wx = np.nonzero(rmask)
+    if len(wy) == 0:
         return None
-    # Interior: leave out pixels within max(2, f) px of the region's edge (blur, mixed pixels).
-    e = max(2, f)
-    pad = np.pad(full.astype(np.uint8), e)
-    inner = cv2.erode(pad, cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * e + 1, 2 * e + 1)))
-    inner = inner[e:-e, e:-e].astype(bool)
-    if np.count_nonzero(inner) < 16:
-        inner = full.copy()
-    inner &= ~image.saturated[fy0 : fy0 + h, fx0 : fx0 + w]
+    # Area, box and centroid of the region's full-resolution pixels (blocks of f x f).
+    area_px = int(len(wy)) * f * f
+    cx = float(np.mean(wx)) * f + (f - 1) / 2.0 + fx0
+    cy = float(np.mean(wy)) * f + (f - 1) / 2.0 + fy0
+    bbox = (
+        fx0 + int(wx.min()) * f,
+        fy0 + int(wy.min()) * f,
+        min(fx0 + int(wx.max()) * f + f - 1, image.width - 1),
+        min(fy0 + int(wy.max()) * f + f - 1, image.height - 1),
+    )
+    # Interior: leave out pixels within max(2, f) px of the region's edge (blur, mixed pixels);
+    # eroded on the working grid (one working pixel is f px) and expanded to full resolution.
+    k = 5 if f == 1 else 3
+    inner_w = cv2.erode(np.pad(rmask.astype(np.uint8), k // 2), np.ones((k, k), np.uint8))
+    inner_w = inner_w[k // 2 : -(k // 2), k // 2 : -(k // 2)]
+    if np.count_nonzero(inner_w) * f * f < 16:
+        inner_w = rmask.astype(np.uint8)
+    inner = _full_crop_mask(inner_w.astype(bool), f)[:h, :w]
+    n_all = int(np.count_nonzero(inner))
+    # Large regions are measured on a regular sub-grid of at most ~MAX_PIXELS interior pixels
+    # (every k-th pixel in x and y); the standard error allows for it.
+    k = max(1, int(np.ceil(np.sqrt(n_all / MAX_PIXELS))))
+    rows, cols = slice(fy0, fy0 + h, k), slice(fx0, fx0 + w, k)
+    inner = inner[::k, ::k] & ~image.saturated_crop(rows, cols)
     if np.count_nonzero(inner) < 4:
         return None
-    crop = bg.correct(image.intensity, slice(fy0, fy0 + h), slice(fx0, fx0 + w))
+    crop = bg.correct(image, rows, cols)
     cvals = contrast_image(crop[inner], level)
     n = int(cvals.shape[0])
     contrast, err, sdd = {}, {}, {}
     neff = n
     for c, name in enumerate(image.channels):
         m, sd = _robust_mean(cvals[:, c])
-        neff = max(1.0, n / corr[name])
+        # Correlation between sub-grid neighbours falls as the stride grows (about A_c / k^2).
+        neff = max(1.0, min(n / max(1.0, corr[name] / k**2), n_all / corr[name]))
         contrast[name] = m
         sdd[name] = sd
         err[name] = float(np.hypot(sd / np.sqrt(neff), (1 - m) * sub_rel[name]))
     return Region(
         id=rid,
         flake_id=fid,
-        area_px=int(len(yy)),
-        area_um2=float(len(yy) * um_per_px**2),
-        bbox_px=(
-            fx0 + int(xx.min()),
-            fy0 + int(yy.min()),
-            fx0 + int(xx.max()),
-            fy0 + int(yy.max()),
-        ),
-        centroid_px=(float(fx0 + xx.mean()), float(fy0 + yy.mean())),
+        area_px=area_px,
+        area_um2=float(area_px * um_per_px**2),
+        bbox_px=bbox,
+        centroid_px=(cx, cy),
         outline_px=_outline(rmask, rx, ry, f),
         contrast=contrast,
         contrast_err=err,

@@ -12,7 +12,6 @@ INTERFACE.md's survey JSON.
 
 from __future__ import annotations
 
-import math
 import os
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -27,13 +26,12 @@ from flakebook.imaging.holes import (
     Coverage,
     Hole,
     Lattice,
-    circle_polygon_area,
+    coverage_pairs,
     detect_holes,
     fit_lattice,
-    hole_coverage,
     predict_hidden_holes,
 )
-from flakebook.imaging.io import Micrograph, from_array, read_image
+from flakebook.imaging.io import Micrograph, from_array, read_image, with_intensity
 from flakebook.imaging.scale import Scale, given_scale
 from flakebook.imaging.segment import Flake, Region, Segmentation, segment
 
@@ -149,13 +147,28 @@ def _as_image(source, transfer: str) -> Micrograph:
 
 def _mono(image: Micrograph) -> Micrograph:
     """A colour image as one channel (mean of the channels) for monochromatic illumination."""
-    from dataclasses import replace
-
     if image.channels == ("mono",):
         return image
     lin = image.intensity.mean(axis=2, keepdims=True, dtype=np.float32)
-    lin.setflags(write=False)
-    return replace(image, intensity=lin, channels=("mono",))
+    return with_intensity(image, lin, channels=("mono",))
+
+
+def _share_over_hole(seg: Segmentation, reg: Region, hole: Hole) -> float:
+    """Fraction of a region's pixels that lie over a hole (working grid)."""
+    f = seg.factor
+    x0, y0, x1, y1 = reg.bbox_px
+    cx, cy, r = hole.center_px[0], hole.center_px[1], hole.radius_px
+    if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
+        return 0.0
+    wx0, wy0 = int(x0 // f), int(y0 // f)
+    wx1, wy1 = int(x1 // f) + 1, int(y1 // f) + 1
+    lab = seg.labels[wy0:wy1, wx0:wx1] == reg.id
+    n = int(np.count_nonzero(lab))
+    if n == 0:
+        return 0.0
+    yy, xx = np.nonzero(lab)
+    d = np.hypot(_grid.to_full(xx + wx0, f) - cx, _grid.to_full(yy + wy0, f) - cy)
+    return float(np.count_nonzero(d <= r)) / n
 
 
 def survey_image(
@@ -237,7 +250,12 @@ def survey_image(
     check_cancel(cancel)
     warnings = list(image.warnings)
     f = _grid.choose_factor(image.shape)
-    work = _grid.downsample(image.intensity, f)
+    work = image.working(f)
+    sat_frac = float(np.mean(image.saturated_working(f)))
+    if sat_frac > 0.01:
+        warnings.append(
+            f"about {100 * sat_frac:.1f}% of the image has saturated pixels, which are left out"
+        )
     report(0.1, "background")
     bg = fit_background(
         image, dark_offset=dark_offset, method=background, reference=reference, work=work, factor=f
@@ -249,7 +267,7 @@ def survey_image(
     if find_holes:
         report(0.25, "holes")
         holes = detect_holes(
-            image.intensity,
+            image,
             um_per_px=scale.um_per_px,
             um_per_px_err=scale.um_per_px_err,
             radius_um=hole_radius_um,
@@ -281,17 +299,12 @@ def survey_image(
             )
             holes = holes + hidden
 
-    coverage: list[FlakeHole] = []
-    for fl in seg.flakes:
-        x0, y0, x1, y1 = fl.bbox_px
-        for k, h in enumerate(holes):
-            cx, cy = h.center_px
-            r = h.radius_px
-            if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
-                continue
-            cov = hole_coverage(fl.outline_px, h, scale.um_per_px)
-            if cov.covered_fraction > 0:
-                coverage.append(FlakeHole(fl.id, k, cov))
+    coverage = [
+        FlakeHole(fid, k, cov)
+        for fid, k, cov in coverage_pairs(
+            {fl.id: fl.outline_px for fl in seg.flakes}, holes, scale.um_per_px
+        )
+    ]
 
     report(0.7, "layer evidence")
     ohole = hole if hole is not None else OpticsHole()
@@ -301,13 +314,7 @@ def survey_image(
         check_cancel(cancel)
         geometry, hidx = "supported", None
         for k, h in enumerate(holes):
-            if (
-                math.hypot(reg.centroid_px[0] - h.center_px[0], reg.centroid_px[1] - h.center_px[1])
-                > h.radius_px
-            ):
-                continue
-            inside = circle_polygon_area(reg.outline_px, h.center_px, h.radius_px)
-            if inside >= 0.5 * min(reg.area_px, math.pi * h.radius_px**2):
+            if _share_over_hole(seg, reg, h) >= 0.5:
                 geometry, hidx = "suspended", k
                 break
         rwarn: list[str] = []
@@ -351,6 +358,13 @@ def survey_image(
             )
         )
     out_regions.sort(key=lambda r: (-r.target_probability, -r.region.area_um2))
+    misfit = sum(any("explains" in w for w in r.warnings) for r in out_regions)
+    if out_regions and misfit >= max(2, 0.3 * len(out_regions)):
+        warnings.append(
+            f"{misfit} of {len(out_regions)} regions fit no layer number within their errors: "
+            "the oxide thickness, material or dark offset may be off; give --oxide-err-nm or "
+            "calibrate the sample before trusting these layer numbers"
+        )
     report(1.0, "done")
     from flakebook import __version__
 

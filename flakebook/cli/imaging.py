@@ -1,0 +1,327 @@
+"""Imaging commands: ``flakebook survey`` (INTERFACE.md).
+
+Surveys micrographs: finds flakes and their terraces, measures each terrace's optical contrast
+(C = 1 - I_flake / I_substrate per channel after the dark offset, the reference being the bare
+substrate of the same image: positive when the flake is darker), gives its likelihood over layer
+number from the thin-film model, finds the holes and ranks the terraces by the probability of
+having a layer number in ``--target-layers``. A folder is surveyed with worker processes (both
+cores); ``--watch`` surveys each new file once the camera has finished writing it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from pathlib import Path
+
+from flakebook.cli import _common
+from flakebook.cli.optics import (
+    CONTRAST_NOTE,
+    _add_light,
+    _add_substrate,
+    _material,
+    _microscope,
+    _substrate,
+)
+from flakebook.errors import Cancelled, InputError
+
+IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
+
+
+def _hole(args):
+    from flakebook.optics.substrate import Hole
+
+    if args.hole_depth_nm is not None:
+        _common.positive_float("--hole-depth-nm", args.hole_depth_nm, allow_zero=True)
+    return Hole(args.hole_bottom or "si", args.hole_depth_nm)
+
+
+def _scale(args):
+    from flakebook.imaging.scale import given_scale, scale_from_objective
+
+    if args.scale_um_per_px is not None:
+        _common.positive_float("--scale-um-per-px", args.scale_um_per_px)
+        return given_scale(args.scale_um_per_px)
+    return scale_from_objective(args.objective)
+
+
+# Per-process cache of the sample and microscope built from the options (the optics model's
+# tables are cached with them, so a folder pays for the model once per worker).
+_SETUP: dict = {}
+
+
+def _setup(opts: dict):
+    key = tuple(sorted((k, str(v)) for k, v in opts.items()))
+    if key not in _SETUP:
+        args = argparse.Namespace(**opts)
+        _SETUP.clear()
+        _SETUP[key] = {
+            "material": _material(args),
+            "substrate": _substrate(args),
+            "microscope": _microscope(args),
+            "scale": _scale(args),
+            "hole": _hole(args),
+        }
+    return _SETUP[key]
+
+
+def survey_one(path: str, opts: dict, cancel=None, progress=None) -> dict:
+    """Survey one file with the command's options; returns the image's JSON object."""
+    from flakebook.imaging.survey import survey_image
+
+    s = _setup(opts)
+    res = survey_image(
+        path,
+        material=s["material"],
+        substrate=s["substrate"],
+        microscope=s["microscope"],
+        scale_um_per_px=s["scale"],
+        min_area_um2=opts["min_area_um2"],
+        target_layers=opts["target_layers"],
+        max_layers=opts["max_layers"],
+        dark_offset=opts["dark_offset"],
+        oxide_err_nm=opts["oxide_err_nm"] or 0.0,
+        hole_radius_um=opts["hole_radius_um"],
+        find_holes=not opts["no_holes"],
+        hole=s["hole"],
+        progress=progress,
+        cancel=cancel,
+    )
+    return res.to_dict()
+
+
+def _worker_init() -> None:  # pragma: no cover - runs in worker processes
+    import signal
+
+    import cv2
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
+    cv2.setNumThreads(1)
+
+
+def _worker(path: str, opts: dict) -> dict:  # pragma: no cover - runs in worker processes
+    try:
+        return {"ok": survey_one(path, opts)}
+    except InputError as exc:
+        return {"error": str(exc)}
+
+
+def _expand(paths: list[str]) -> list[str]:
+    out: list[str] = []
+    for p in paths:
+        q = Path(p)
+        if q.is_dir():
+            out.extend(str(f) for f in sorted(q.iterdir()) if f.suffix.lower() in IMAGE_SUFFIXES)
+        else:
+            out.append(str(q))
+    return out
+
+
+def _failed_image(path: str, message: str) -> dict:
+    return {"path": path, "regions": [], "holes": [], "warnings": [f"not surveyed: {message}"]}
+
+
+def _rows(images: list[dict]) -> list[dict]:
+    rows = []
+    for im in images:
+        for r in im["regions"]:
+            rows.append(
+                {
+                    "path": Path(im["path"]).name if im["path"] else "-",
+                    "id": r["id"],
+                    "layers": r["layers"],
+                    "probability": r["probability"],
+                    "p_target": r["target_probability"],
+                    "area_um2": r["area_um2"],
+                    "centroid_px": [round(v, 1) for v in r["centroid_px"]],
+                    "geometry": r["geometry"],
+                }
+            )
+    return rows
+
+
+def _options(args) -> dict:
+    max_layers = args.max_layers
+    if not (1 <= max_layers < 100):
+        raise InputError(f"--max-layers {max_layers}: accepted a whole number from 1 to 99")
+    targets = _common.parse_layer_range(args.target_layers, max_layers=max_layers)
+    _common.positive_float("--min-area-um2", args.min_area_um2, allow_zero=True)
+    if not (0 <= args.dark_offset < 1):
+        raise InputError(
+            f"--dark-offset {args.dark_offset!r}; accepted: a fraction of full scale from 0 to below 1"
+        )
+    if args.hole_radius_um is not None:
+        _common.positive_float("--hole-radius-um", args.hole_radius_um)
+    if args.oxide_err_nm is not None:
+        _common.positive_float("--oxide-err-nm", args.oxide_err_nm, allow_zero=True)
+    opts = {
+        k: getattr(args, k)
+        for k in (
+            "material",
+            "oxide_nm",
+            "substrate",
+            "oxide_err_nm",
+            "wavelength_nm",
+            "channels",
+            "na_illumination",
+            "illumination",
+            "scale_um_per_px",
+            "objective",
+            "min_area_um2",
+            "max_layers",
+            "dark_offset",
+            "hole_radius_um",
+            "hole_bottom",
+            "hole_depth_nm",
+            "no_holes",
+        )
+    }
+    opts["target_layers"] = tuple(targets)
+    _setup(opts)  # check every option once, before any file is read
+    return opts
+
+
+def _cmd_survey(args) -> int:
+    if args.project is not None:
+        raise InputError(
+            "--project: storing survey results in a project is not available in this build; "
+            "accepted: run without --project (results go to stdout)"
+        )
+    opts = _options(args)
+    if args.watch:
+        return _watch(args, opts)
+    files = _expand(args.paths)
+    if not files:
+        raise InputError(
+            f"no image files in {', '.join(args.paths)}; accepted: {', '.join(IMAGE_SUFFIXES)}"
+        )
+    progress = _common.Progress()
+    images: list[dict] = []
+    failed = 0
+    if len(files) == 1:
+        cancel = _common.cancel_event()
+        images.append(survey_one(files[0], opts, cancel=cancel, progress=progress))
+    else:
+        results = _survey_many(files, opts, args.workers, progress)
+        for path, res in zip(files, results):
+            if "error" in res:
+                failed += 1
+                _common.message(f"flakebook: {_common.short(res['error'], 2)}")
+                images.append(_failed_image(path, res["error"]))
+            else:
+                images.append(res["ok"])
+    if _common.output_format(args) != "json":
+        _common.message(f"flakebook: {CONTRAST_NOTE} (dark offset subtracted first)")
+    _common.emit(args, {"images": images}, rows=_rows(images))
+    return _common.EXIT_INPUT if failed else _common.EXIT_OK
+
+
+def _survey_many(files: list[str], opts: dict, workers: int | None, progress) -> list[dict]:
+    """Survey files in worker processes (spawned; Ctrl-C cancels what has not started)."""
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
+
+    n = workers or min(len(files), os.cpu_count() or 1, 8)
+    if n <= 1:
+        out = []
+        for k, f in enumerate(files):
+            try:
+                out.append({"ok": survey_one(f, opts)})
+            except InputError as exc:
+                out.append({"error": str(exc)})
+            progress((k + 1) / len(files), Path(f).name)
+        return out
+    ctx = multiprocessing.get_context("spawn")
+    pool = ProcessPoolExecutor(max_workers=n, mp_context=ctx, initializer=_worker_init)
+    try:
+        futures = [pool.submit(_worker, f, opts) for f in files]
+        done = 0
+        for fut in futures:
+            fut.result()
+            done += 1
+            progress(done / len(files), "")
+        return [fut.result() for fut in futures]
+    except KeyboardInterrupt:
+        pool.shutdown(wait=False, cancel_futures=True)
+        raise
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _watch(args, opts: dict) -> int:
+    """Survey each new image file in the given folders as it is completed; Ctrl-C stops."""
+    from flakebook.imaging.io import wait_until_readable
+
+    folders = [Path(p) for p in args.paths]
+    for d in folders:
+        if not d.is_dir():
+            raise InputError(f"--watch {d}: not a folder; accepted: the camera's output folder")
+    seen = set(_expand([str(d) for d in folders]))
+    _common.message(
+        f"flakebook: watching {', '.join(map(str, folders))} ({len(seen)} files already there "
+        "are left alone); Ctrl-C stops"
+    )
+    cancel = _common.cancel_event()
+    try:
+        while True:
+            for f in _expand([str(d) for d in folders]):
+                if f in seen:
+                    continue
+                seen.add(f)
+                try:
+                    wait_until_readable(
+                        f, stable_s=args.stable_s, timeout_s=args.wait_timeout_s, cancel=cancel
+                    )
+                    image = survey_one(f, opts, cancel=cancel)
+                except InputError as exc:
+                    _common.message(f"flakebook: {_common.short(str(exc), 2)}")
+                    image = _failed_image(f, str(exc))
+                sys.stdout.write(_common.dumps(image) + "\n")
+                sys.stdout.flush()
+            if args.max_files is not None and len(seen) >= args.max_files:
+                return _common.EXIT_OK
+            time.sleep(args.poll_s)
+    except (KeyboardInterrupt, Cancelled):
+        _common.message("flakebook: watch stopped")
+        return _common.EXIT_CANCELLED
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add ``survey``."""
+    p = sub.add_parser(
+        "survey",
+        help="find flakes, terraces, layer numbers and holes in micrographs",
+        description=__doc__.split("\n\n")[1].replace("\n", " "),
+    )
+    p.add_argument("paths", nargs="+", metavar="PATH", help="image files or folders")
+    p.add_argument("--material", required=True)
+    _add_substrate(p)
+    p.add_argument("--oxide-err-nm", type=float, default=None, help="oxide thickness s.d., nm")
+    g = p.add_mutually_exclusive_group(required=True)
+    g.add_argument("--scale-um-per-px", type=float, default=None, help="image scale")
+    g.add_argument("--objective", default=None, help="objective preset name (e.g. 50x)")
+    _add_light(p)
+    p.add_argument("--min-area-um2", type=float, default=20.0)
+    p.add_argument("--target-layers", default="1-3", help="layer numbers to rank by (1-3)")
+    p.add_argument("--max-layers", type=int, default=15)
+    p.add_argument(
+        "--dark-offset",
+        type=float,
+        default=0.0,
+        help="camera dark offset, fraction of full scale (subtracted once)",
+    )
+    p.add_argument("--hole-radius-um", type=float, default=None, help="expected hole radius")
+    p.add_argument("--no-holes", action="store_true", help="do not look for holes")
+    p.add_argument("--hole-bottom", choices=("si", "au", "open"), default=None)
+    p.add_argument("--hole-depth-nm", type=float, default=None)
+    p.add_argument("--project", default=None, metavar="P")
+    p.add_argument("--watch", action="store_true", help="survey new files as they appear")
+    p.add_argument("--workers", type=int, default=None, help="worker processes for a folder")
+    p.add_argument("--stable-s", type=float, default=1.0, help=argparse.SUPPRESS)
+    p.add_argument("--wait-timeout-s", type=float, default=60.0, help=argparse.SUPPRESS)
+    p.add_argument("--poll-s", type=float, default=0.5, help=argparse.SUPPRESS)
+    p.add_argument("--max-files", type=int, default=None, help=argparse.SUPPRESS)
+    _common.add_format_option(p, csv_ok=True)
+    p.set_defaults(func=_cmd_survey)
