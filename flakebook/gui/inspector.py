@@ -97,6 +97,27 @@ def deciding_hint(
     return text
 
 
+def model_differences(candidates: list[int], model: dict | None, contrast_err: dict | None) -> str:
+    """The model contrast difference per channel between the two leading candidates, in
+    measurement errors (information only; the optics' decider text gives the judgement)."""
+    if len(candidates) < 2 or not model:
+        return ""
+    a, b = candidates[0], candidates[1]
+    parts = []
+    for ch, curve in model.items():
+        curve = np.asarray(curve, float)
+        if max(a, b) > len(curve):
+            continue
+        diff = abs(curve[a - 1] - curve[b - 1])
+        err = (contrast_err or {}).get(ch)
+        parts.append(
+            f"{ch} {diff:.3f}" + (f" ({diff / err:.1f} σ of the measurement)" if err else "")
+        )
+    if not parts:
+        return ""
+    return f"Model contrast difference {a}L–{b}L: " + "; ".join(parts) + "."
+
+
 class Inspector(QScrollArea):
     """The inspector dock's content. Signals carry the user's edits to the window."""
 
@@ -130,7 +151,7 @@ class Inspector(QScrollArea):
         # Posterior over N
         self.post_plot = pg.PlotWidget(body, background="w")
         self.post_plot.setObjectName("posteriorPlot")
-        self.post_plot.setMinimumHeight(150)
+        self.post_plot.setFixedHeight(150)
         self.post_plot.setMouseEnabled(False, False)
         self.post_plot.hideButtons()
         self.post_plot.setLabel("left", "P(N)")
@@ -146,7 +167,7 @@ class Inspector(QScrollArea):
         # Contrast vs N
         self.con_plot = pg.PlotWidget(body, background="w")
         self.con_plot.setObjectName("contrastPlot")
-        self.con_plot.setMinimumHeight(190)
+        self.con_plot.setFixedHeight(210)
         self.con_plot.hideButtons()
         self.con_plot.setLabel("left", "contrast C")
         self.con_plot.setLabel("bottom", "layers N")
@@ -220,6 +241,8 @@ class Inspector(QScrollArea):
         self.calibrate_button.clicked.connect(self.calibrateRequested)
 
         lay = QVBoxLayout(body)
+        # word-wrapped labels in a scroll area: never let the body shrink below its layout
+        lay.setSizeConstraint(QVBoxLayout.SizeConstraint.SetMinAndMaxSize)
         lay.addWidget(self.title)
         lay.addWidget(self.subtitle)
         g1 = QGroupBox("Layer number", body)
@@ -313,6 +336,7 @@ class Inspector(QScrollArea):
         self.assign_reason.clear()
         self.clear_button.setVisible(bool(flake.get("manual")))
         self.set_read_only(self.read_only)
+        self._relayout()
 
     def _show_posterior(self, flake: dict) -> None:
         post = flake.get("posterior")
@@ -466,8 +490,10 @@ class Inspector(QScrollArea):
         amb = [best] + list(flake.get("ambiguous_with") or []) if best else []
         text = "<b>What would decide:</b> "
         if decider:
-            text += decider + "<br>"
-        text += deciding_hint(amb, model, errs, flake.get("oxide_err_nm"))
+            # the optics' own judgement (model errors included); the numbers below inform it
+            text += decider + "<br>" + model_differences(amb, model, errs)
+        else:
+            text += deciding_hint(amb, model, errs, flake.get("oxide_err_nm"))
         self.decide.setText(text)
         if model is None and contrast:
             self.con_note.setText("Model curves: computing…")
@@ -484,6 +510,14 @@ class Inspector(QScrollArea):
         self.model_curves = curves
         if self.flake is not None and self.flake["id"] == flake_id:
             self._show_contrast(self.flake)
+            self._relayout()
+
+    def _relayout(self) -> None:
+        """Lay the body out again now (label texts changed their heights)."""
+        for g in self._groups:
+            g.layout().invalidate()
+            g.layout().activate()
+        self.widget().layout().activate()
 
     def _show_holes(self, flake: dict) -> None:
         holes = flake.get("holes") or []
