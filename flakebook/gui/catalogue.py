@@ -53,7 +53,17 @@ COLUMNS = (
     (
         "margin_um",
         "Margin (µm)",
-        "Smallest margin from a fully covered hole's edge to the flake's edge",
+        "Largest margin among the fully covered holes, from the hole's edge to the flake's edge",
+    ),
+    (
+        "thickness_nm",
+        "Thickness (nm)",
+        "Layers times the material's layer spacing (or a result's own)",
+    ),
+    (
+        "kappa_w_mk",
+        "κ (W/mK)",
+        "In-plane thermal conductivity of the latest result (none yet: empty)",
     ),
     ("tags", "Tags", "Tags, comma-separated"),
     (
@@ -73,8 +83,10 @@ def _text(key: str, value) -> str:
         return ""
     if key == "probability":
         return f"{value:.2f}"
-    if key in ("area_um2", "margin_um"):
+    if key in ("area_um2", "margin_um", "thickness_nm"):
         return f"{value:.1f}"
+    if key == "kappa_w_mk":
+        return f"{value:.3g}"
     if key == "layers":
         return palette.layer_label(value)
     if key == "stale":

@@ -327,15 +327,14 @@ class Session:
     def catalogue_rows(self) -> list[dict]:
         p = self.project
         rows = []
+        export = {e["flake_id"]: e for e in p.export_rows()}  # thickness and kappa (INTERFACE.md)
         for r in p.catalogue():
             amb: tuple = ()
             latest = p.latest_assignment(r.flake_id)
             if latest is not None:
                 amb = latest.ambiguous_with
-            links = p.holes_covered_by(r.flake_id)
-            full = [lk for lk, _ in links if lk.fully_covered]
-            margins = [lk.margin_um for lk in full if lk.margin_um is not None]
             flake = p.get(Flake, r.flake_id)
+            ex = export.get(r.label, {})
             rows.append(
                 {
                     "id": r.flake_id,
@@ -347,7 +346,11 @@ class Session:
                     "ambiguous_with": list(amb),
                     "manual": r.manual,
                     "holes_covered": r.holes_covered,
-                    "margin_um": min(margins) if margins else None,
+                    "margin_um": r.margin_um,
+                    "thickness_nm": ex.get("thickness_nm"),
+                    "kappa_w_mk": ex.get("kappa_w_mk"),
+                    "kappa_p16_w_mk": ex.get("kappa_p16_w_mk"),
+                    "kappa_p84_w_mk": ex.get("kappa_p84_w_mk"),
                     "tags": list(r.tags),
                     "stale": r.stale,
                     "notes": flake.notes,
@@ -468,7 +471,7 @@ class Session:
         comp = computed[-1] if computed else None
         contrast, contrast_err, geometry, image_id = {}, {}, "supported", None
         for e in evidence:
-            if e.method == CONTRAST_METHOD:
+            if isinstance(e.parameters.get("contrast"), dict):  # contrast evidence of any source
                 contrast = dict(e.parameters.get("contrast") or {})
                 contrast_err = dict(e.parameters.get("contrast_err") or {})
                 geometry = e.parameters.get("geometry", "supported")

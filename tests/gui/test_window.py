@@ -571,3 +571,20 @@ def test_find_flakes_on_selected_images(qtbot, window, tmp_path):
     per_image = {iid: len(p.records("appearance", image_id=iid)) for iid in (1, img2)}
     assert per_image[img2] >= 3 and len(p.flakes_of(1)) > n0 + 3
     tree  # noqa: B018
+
+
+def test_drag_picked_hole_moves_and_resizes(qtbot, window):
+    """A picked hole's handle moves and resizes it; the change reaches the project at once."""
+    p = window.session.project
+    _click_image(qtbot, window, 100, 380)
+    roi = window.canvas._hole_roi
+    assert roi is not None
+    hid = roi.hole_id
+    roi.setPos((110 - 25, 370 - 25), finish=False)
+    roi.setSize((50, 50), finish=True)  # the end of a drag emits the change
+    h = p.get("hole", hid)
+    assert (h.center_x_px, h.center_y_px, h.radius_px) == pytest.approx((110, 370, 25))
+    assert h.radius_um == pytest.approx(2.5)
+    window.a_undo.trigger()
+    h = p.get("hole", hid)
+    assert (h.center_x_px, h.center_y_px, h.radius_px) == pytest.approx((100, 380, 20))
