@@ -474,8 +474,8 @@ class MainWindow(QMainWindow):
         self.candidates.flakeActivated.connect(
             lambda f: self._guard(lambda: self.open_candidate(f), "Open candidate")
         )
-        self.undo_stack.cleanChanged.connect(lambda *_: self._update_title())
-        self.undo_stack.indexChanged.connect(lambda *_: self._update_title())
+        self.undo_stack.cleanChanged.connect(self._on_stack_changed)
+        self.undo_stack.indexChanged.connect(self._on_stack_changed)
 
     # ---- helpers -----------------------------------------------------------------------------
     def _guard(self, fn: Callable[[], object], action: str):
@@ -536,6 +536,9 @@ class MainWindow(QMainWindow):
         self.report_error(exc, what)
         QTimer.singleShot(0, self.undo_stack.clear)
         QTimer.singleShot(0, self.refresh)
+
+    def _on_stack_changed(self, *_args) -> None:
+        self._update_title()
 
     def _update_title(self) -> None:
         if self.session is None:
@@ -698,6 +701,16 @@ class MainWindow(QMainWindow):
         self.browser.select_flake(self.current_flake)
         self.candidates.set_candidates(s.candidates(self.candidates.target_layers()), s.thumbnail)
 
+    def refresh_holes(self) -> None:
+        """After a hole edit: the holes drawn, the catalogue (coverage) and the inspector."""
+        s = self.session
+        if s is None:
+            return
+        if self.current_image is not None and s.has_image(self.current_image):
+            self.canvas.set_holes(s.hole_shapes(self.current_image))
+        self.catalogue.set_rows(s.catalogue_rows())
+        self._show_inspector()
+
     def _refresh_overlays(self) -> None:
         s = self.session
         outlines, holes = s.overlays(self.current_image)
@@ -855,7 +868,7 @@ class MainWindow(QMainWindow):
             state["id"] = s.add_hole(image, x, y, r, hole_id=state.get("id"))
             return lambda: s.delete_hole(state["id"])
 
-        self.edit(f"Place hole at ({x:.0f}, {y:.0f}) px", do)
+        self.edit(f"Place hole at ({x:.0f}, {y:.0f}) px", do, self.refresh_holes)
 
     def move_hole(self, hole_id: int, x: float, y: float, r: float) -> None:
         s = self._need_session()
@@ -865,7 +878,7 @@ class MainWindow(QMainWindow):
             s.update_hole(hole_id, x, y, r)
             return lambda: s.update_hole(hole_id, *before)
 
-        self.edit("Move hole", do)
+        self.edit("Move hole", do, self.refresh_holes)
 
     def delete_hole(self, hole_id: int) -> None:
         s = self._need_session()
@@ -874,7 +887,7 @@ class MainWindow(QMainWindow):
             restore = s.delete_hole(hole_id)
             return restore
 
-        self.edit("Remove hole", do)
+        self.edit("Remove hole", do, self.refresh_holes)
 
     def scale_line(
         self, x0: float, y0: float, x1: float, y1: float, length_um: float | None = None

@@ -172,6 +172,7 @@ class Session:
         self.epoch = 0
         self._raw: dict[int, np.ndarray] = {}  # decoded image data (last two)
         self._micro: dict[int, object] = {}
+        self._thumbs: dict[tuple[int, int], object] = {}
 
     # ---- opening ---------------------------------------------------------------------------
     @classmethod
@@ -284,6 +285,9 @@ class Session:
     def browser_tree(self) -> list[dict]:
         p = self.project
         cat = {r.flake_id: r for r in p.catalogue()}
+        apps_of: dict[int, list] = {}
+        for a in p.records(Appearance):
+            apps_of.setdefault(a.flake_id, []).append(a)
         out = []
         for s in p.samples():
             images = p.images_of(s)
@@ -299,7 +303,7 @@ class Session:
                         "probability": row.probability if row else None,
                         "stale": row.stale if row else False,
                         "appearances": [
-                            (a.image_id, names.get(a.image_id, "?")) for a in p.appearances_of(f)
+                            (a.image_id, names.get(a.image_id, "?")) for a in apps_of.get(f.id, ())
                         ],
                     }
                 )
@@ -378,40 +382,45 @@ class Session:
         return self._get(Flake, flake_id).label
 
     def overlays(self, image_id: int):
-        from flakebook.gui.canvas import HoleShape, OutlineShape
+        """(outlines, holes) of an image as the canvas draws them (a few queries in all)."""
+        from flakebook.gui.canvas import OutlineShape
 
         p = self.project
         iid = self._r("image", image_id)
+        apps = p.records(Appearance, image_id=iid)
         layers_of = {r.flake_id: r.layers for r in p.catalogue()}
-        terrace_layers = self._terrace_layers(iid)
-        outlines = []
-        for a in p.records(Appearance, image_id=iid):
-            flake = p.get(Flake, a.flake_id)
-            terraces = tuple(
-                (t.outline_px, terrace_layers.get(t.id))
-                for t in p.records(Terrace, appearance_id=a.id)
-                if len(t.outline_px) >= 3
+        labels = {f.id: f.label for f in p.records(Flake)}
+        app_ids = {a.id for a in apps}
+        flake_ids = {a.flake_id for a in apps}
+        terraces: dict[int, list] = {}
+        for t in p.records(Terrace):
+            if t.appearance_id in app_ids and len(t.outline_px) >= 3:
+                terraces.setdefault(t.appearance_id, []).append(t)
+        terrace_layers: dict[int, int] = {}
+        for asg in p.records(Assignment):  # id order: later ones win
+            if asg.flake_id in flake_ids and asg.terrace_id is not None:
+                terrace_layers[asg.terrace_id] = asg.layers
+        outlines = [
+            OutlineShape(
+                a.id,
+                a.flake_id,
+                labels.get(a.flake_id, "?"),
+                a.outline_px,
+                layers_of.get(a.flake_id),
+                tuple((t.outline_px, terrace_layers.get(t.id)) for t in terraces.get(a.id, ())),
             )
-            outlines.append(
-                OutlineShape(
-                    a.id, a.flake_id, flake.label, a.outline_px, layers_of.get(a.flake_id), terraces
-                )
-            )
-        holes = [
-            HoleShape(h.id, h.center_x_px, h.center_y_px, h.radius_px, h.source != "manual")
-            for h in p.holes_of(iid)
+            for a in apps
         ]
-        return outlines, holes
+        return outlines, self.hole_shapes(iid)
 
-    def _terrace_layers(self, image_id: int) -> dict[int, int]:
-        """Latest assignment per terrace of the image (None where none)."""
-        out: dict[int, int] = {}
-        p = self.project
-        for a in p.records(Appearance, image_id=image_id):
-            for asg in p.assignments_of(a.flake_id):
-                if asg.terrace_id is not None:
-                    out[asg.terrace_id] = asg.layers  # later ones win
-        return out
+    def hole_shapes(self, image_id: int):
+        """The holes of an image as the canvas draws them."""
+        from flakebook.gui.canvas import HoleShape
+
+        return [
+            HoleShape(h.id, h.center_x_px, h.center_y_px, h.radius_px, h.source != "manual")
+            for h in self.project.holes_of(self._r("image", image_id))
+        ]
 
     def load_image(self, image_id: int) -> Shown:
         """Decode an image for the screen (hash-checked by the store)."""
@@ -429,16 +438,25 @@ class Session:
 
     def thumbnail(self, row: dict):
         """A small crop of the flake's primary appearance for the catalogue (QPixmap or None)."""
-        from PySide6.QtGui import QImage, QPixmap
 
         p = self.project
         apps = p.appearances_of(row["id"])
         if not apps:
             return None
         app = apps[0]
+        key = (app.id, app.revision)
+        if key in self._thumbs:
+            return self._thumbs[key]
         raw = self._raw.get(app.image_id)
         if raw is None:
             return None  # only images already decoded give thumbnails (no waiting in the table)
+        pix = self._make_thumbnail(raw, app)
+        self._thumbs[key] = pix
+        return pix
+
+    def _make_thumbnail(self, raw: np.ndarray, app: Appearance):
+        from PySide6.QtGui import QImage, QPixmap
+
         disp = display_of(raw)
         x0, y0 = np.floor(app.outline_px.min(axis=0)).astype(int)
         x1, y1 = np.ceil(app.outline_px.max(axis=0)).astype(int)
