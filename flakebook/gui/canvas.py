@@ -28,7 +28,7 @@ pg.setConfigOptions(imageAxisOrder="row-major", antialias=False)
 
 TOOLS = ("select", "scale", "outline", "hole", "measure", "segment", "split")
 TOOL_HINTS = {
-    "select": "Click a flake to select it; drag holes to move them, their handle to resize.",
+    "select": "Click a flake to select it; click a hole to pick it up, then drag it or its handle (Delete removes it).",
     "scale": "Click the two ends of a line of known length (a scale bar or a hole pitch).",
     "outline": "Click the corners of a new outline; double-click or Enter closes it, Esc drops it.",
     "hole": "Click the centre of a hole to place it (radius from the chip's hole pattern).",
@@ -281,12 +281,37 @@ class ImageCanvas(pg.GraphicsView):
         )
         self.legend.move(8, 8)
         self.set_legend([])
+        self.empty_label = QLabel(self)
+        self.empty_label.setObjectName("canvasEmpty")
+        self.empty_label.setAlignment(Qt.AlignmentFlag.AlignCenter)
+        self.empty_label.setWordWrap(True)
+        self.empty_label.setStyleSheet("QLabel { color: #BBBBBB; font-size: 14px; }")
+        self.set_empty_text(
+            "No image shown.\n\nOpen a project (Ctrl+O) or create one (Ctrl+N), or drop a "
+            ".flakebook file here. Then add micrographs (Ctrl+I) or drop them here."
+        )
 
         scene = self.scene()
         scene.sigMouseMoved.connect(self._on_mouse_moved)
         scene.sigMouseClicked.connect(self._on_mouse_clicked)
         self.viewport().installEventFilter(self)
         self.setAcceptDrops(False)  # the window takes drops
+
+    def set_empty_text(self, text: str) -> None:
+        """What the canvas says while no image is shown."""
+        self.empty_label.setText(text)
+        self._place_empty()
+
+    def _place_empty(self) -> None:
+        if getattr(self, "empty_label", None) is None:  # resized while being built
+            return
+        w, h = self.width(), self.height()
+        self.empty_label.setGeometry(int(w * 0.15), int(h * 0.3), int(w * 0.7), int(h * 0.4))
+        self.empty_label.setVisible(self.image_shape is None)
+
+    def resizeEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        super().resizeEvent(ev)
+        self._place_empty()
 
     # ---- content -------------------------------------------------------------------------
     def set_image(self, display: np.ndarray | None, um_per_px: float | None = None) -> None:
@@ -297,11 +322,13 @@ class ImageCanvas(pg.GraphicsView):
             self.image_item.clear()
             self.image_shape = None
             self.set_scale(None)
+            self._place_empty()
             return
         h, w = display.shape[:2]
         self.pyramid = ImagePyramid(display)
         self._tile = None
         self.image_shape = (h, w)
+        self._place_empty()
         self.view.setLimits(xMin=-0.5 - w, xMax=w * 2, yMin=-0.5 - h, yMax=h * 2)
         self.view.setRange(QRectF(-0.5, -0.5, w, h), padding=0.01)
         self.set_scale(um_per_px)

@@ -612,6 +612,10 @@ class MainWindow(QMainWindow):
         log.info("Opened %s%s", session.path, " read-only" if session.read_only else "")
         self.undo_stack.clear()
         first = session.first_image()
+        self.canvas.set_empty_text(
+            f"{session.path.name} has no micrograph yet.\n\nAdd micrographs (Ctrl+I), drop them "
+            "here, or watch the camera's folder (Ctrl+Shift+W)."
+        )
         if first is not None:
             self._guard(lambda: self.show_image(first, overlays=False), "Show image")
         self.refresh()
