@@ -98,8 +98,9 @@ def deciding_hint(
 
 
 def model_differences(candidates: list[int], model: dict | None, contrast_err: dict | None) -> str:
-    """The model contrast difference per channel between the two leading candidates, in
-    measurement errors (information only; the optics' decider text gives the judgement)."""
+    """The model contrast difference per channel between the two leading candidates
+    (information only; the optics' decider text, which counts the model's own errors, gives
+    the judgement)."""
     if len(candidates) < 2 or not model:
         return ""
     a, b = candidates[0], candidates[1]
@@ -108,14 +109,10 @@ def model_differences(candidates: list[int], model: dict | None, contrast_err: d
         curve = np.asarray(curve, float)
         if max(a, b) > len(curve):
             continue
-        diff = abs(curve[a - 1] - curve[b - 1])
-        err = (contrast_err or {}).get(ch)
-        parts.append(
-            f"{ch} {diff:.3f}" + (f" ({diff / err:.1f} σ of the measurement)" if err else "")
-        )
+        parts.append(f"{ch} {abs(curve[a - 1] - curve[b - 1]):.3f}")
     if not parts:
         return ""
-    return f"Model contrast difference {a}L–{b}L: " + "; ".join(parts) + "."
+    return f"Model contrast difference {a}L–{b}L per channel: " + ", ".join(parts) + "."
 
 
 class Inspector(QScrollArea):
