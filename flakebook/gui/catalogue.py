@@ -93,6 +93,8 @@ def _text(key: str, value) -> str:
         return "stale" if value else ""
     if key == "manual":
         return "hand" if value else "evidence"
+    if key == "ambiguous_with":
+        return ", ".join(palette.layer_label(int(n)) for n in value)
     if isinstance(value, list | tuple):
         return ", ".join(str(v) for v in value)
     return str(value)

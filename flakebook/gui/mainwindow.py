@@ -70,6 +70,7 @@ class MainWindow(QMainWindow):
         self._reference = None  # substrate reference per channel of the current image
         self._channels: tuple[str, ...] = ()
         self._cursor_job: Job | None = None
+        self._thumb_job: Job | None = None
         self._model_cache: dict = {}
         self.errors: list[tuple[str, BaseException]] = []  # shown errors (tests read them)
         self.log_handler = log_handler or _install_log_handler()
@@ -704,6 +705,7 @@ class MainWindow(QMainWindow):
         self.catalogue.select_flake(self.current_flake)
         self.browser.select_flake(self.current_flake)
         self.candidates.set_candidates(s.candidates(self.candidates.target_layers()), s.thumbnail)
+        self._start_thumbnails()
 
     def refresh_holes(self) -> None:
         """After a hole edit: the holes drawn, the catalogue (coverage) and the inspector."""
@@ -714,6 +716,28 @@ class MainWindow(QMainWindow):
             self.canvas.set_holes(s.hole_shapes(self.current_image))
         self.catalogue.set_rows(s.catalogue_rows())
         self._show_inspector()
+
+    def _start_thumbnails(self) -> None:
+        """Thumbnails of flakes on images not yet decoded, made in a worker (once each)."""
+        if self._thumb_job is not None and not self._thumb_job.done.is_set():
+            return
+        run = self.session.thumbnail_job()
+        if run is None:
+            return
+        job = Job("Thumbnails", run)
+        self._thumb_job = job
+        s = self.session
+
+        def done(crops):
+            if self.session is not s:
+                return
+            s.add_thumbnails(crops)
+            self.catalogue.model.set_rows(self.catalogue.model.rows)
+            self.candidates.set_candidates(
+                s.candidates(self.candidates.target_layers()), s.thumbnail
+            )
+
+        self.jobs.start(job, on_done=done, on_error=lambda e: log.warning("Thumbnails: %s", e))
 
     def _refresh_overlays(self) -> None:
         s = self.session

@@ -454,24 +454,68 @@ class Session:
         self._thumbs[key] = pix
         return pix
 
-    def _make_thumbnail(self, raw: np.ndarray, app: Appearance):
-        from PySide6.QtGui import QImage, QPixmap
+    def _make_thumbnail(self, raw: np.ndarray, app: Appearance, scale: int = 1):
+        return pixmap_of(thumbnail_crop(display_of(raw), app.outline_px / scale))
 
-        disp = display_of(raw)
-        x0, y0 = np.floor(app.outline_px.min(axis=0)).astype(int)
-        x1, y1 = np.ceil(app.outline_px.max(axis=0)).astype(int)
-        pad = int(0.2 * max(x1 - x0, y1 - y0)) + 4
-        h, w = disp.shape[:2]
-        crop = np.ascontiguousarray(
-            disp[max(0, y0 - pad) : min(h, y1 + pad), max(0, x0 - pad) : min(w, x1 + pad)]
-        )
-        if crop.size == 0:
+    def thumbnail_job(self):
+        """Work making the thumbnails still missing, from the image files (reduced decoding, in a
+        worker), or None when none is missing. Files whose size differs from the one recorded
+        are skipped (the store reports changed files when the image itself is opened)."""
+        p = self.project
+        images = {im.id: im for im in p.records(Image)}
+        todo = []
+        for f in p.records(Flake):
+            apps = p.appearances_of(f)
+            if not apps:
+                continue
+            app = apps[0]
+            if (app.id, app.revision) in self._thumbs or app.image_id in self._raw:
+                continue
+            img = images.get(app.image_id)
+            file = p.image_file(img) if img is not None else None
+            if file is None or not file.is_file() or file.stat().st_size != img.size_bytes:
+                continue
+            todo.append(
+                ((app.id, app.revision), str(file), app.outline_px.copy(), img.width_px or 0)
+            )
+        if not todo:
             return None
-        if crop.ndim == 2:
-            crop = np.ascontiguousarray(np.repeat(crop[:, :, None], 3, axis=2))
-        ch, cw = crop.shape[:2]
-        qimg = QImage(crop.data, cw, ch, 3 * cw, QImage.Format.Format_RGB888).copy()
-        return QPixmap.fromImage(qimg).scaled(44, 30)
+
+        def run(progress=None, cancel=None):
+            out = {}
+            cache: dict[str, tuple] = {}
+            for i, (key, file, outline, width) in enumerate(todo):
+                check_cancel(cancel)
+                if file not in cache:
+                    reduce = (
+                        8 if width > 4000 else (4 if width > 2000 else (2 if width > 1000 else 1))
+                    )
+                    flag = {
+                        1: cv2.IMREAD_COLOR,
+                        2: cv2.IMREAD_REDUCED_COLOR_2,
+                        4: cv2.IMREAD_REDUCED_COLOR_4,
+                        8: cv2.IMREAD_REDUCED_COLOR_8,
+                    }[reduce]
+                    arr = cv2.imread(file, flag)
+                    cache = {
+                        file: (
+                            None if arr is None else cv2.cvtColor(arr, cv2.COLOR_BGR2RGB),
+                            reduce,
+                        )
+                    }
+                arr, reduce = cache[file]
+                if arr is not None:
+                    out[key] = thumbnail_crop(arr, outline / reduce)
+                if progress:
+                    progress((i + 1) / len(todo), "thumbnails")
+            return out
+
+        return run
+
+    def add_thumbnails(self, crops: dict) -> None:
+        """Keep thumbnails made by :meth:`thumbnail_job` (on the window's thread)."""
+        for key, crop in crops.items():
+            self._thumbs[key] = pixmap_of(crop)
 
     def flake_details(self, flake_id: int) -> dict:
         """Everything the inspector shows about a flake."""
@@ -1398,6 +1442,31 @@ class Session:
     def recompute_stale(self, progress=None, cancel=None):
         """Bring stale records up to date (on the window's thread: it writes the project)."""
         return self.project.recompute_stale(progress=progress, cancel=cancel)
+
+
+def thumbnail_crop(display: np.ndarray, outline_px: np.ndarray) -> np.ndarray | None:
+    """The crop around an outline (with a margin), RGB uint8, or None."""
+    x0, y0 = np.floor(outline_px.min(axis=0)).astype(int)
+    x1, y1 = np.ceil(outline_px.max(axis=0)).astype(int)
+    pad = int(0.2 * max(x1 - x0, y1 - y0)) + 4
+    h, w = display.shape[:2]
+    crop = display[max(0, y0 - pad) : min(h, y1 + pad), max(0, x0 - pad) : min(w, x1 + pad)]
+    if crop.size == 0:
+        return None
+    if crop.ndim == 2:
+        crop = np.repeat(crop[:, :, None], 3, axis=2)
+    return np.ascontiguousarray(crop)
+
+
+def pixmap_of(crop: np.ndarray | None):
+    """A 44 x 30 QPixmap of a crop (window thread only)."""
+    if crop is None:
+        return None
+    from PySide6.QtGui import QImage, QPixmap
+
+    ch, cw = crop.shape[:2]
+    qimg = QImage(crop.data, cw, ch, 3 * cw, QImage.Format.Format_RGB888).copy()
+    return QPixmap.fromImage(qimg).scaled(44, 30)
 
 
 class LinearProbe:
