@@ -588,3 +588,27 @@ def test_drag_picked_hole_moves_and_resizes(qtbot, window):
     window.a_undo.trigger()
     h = p.get("hole", hid)
     assert (h.center_x_px, h.center_y_px, h.radius_px) == pytest.approx((100, 380, 20))
+
+
+def test_thumbnails_for_flakes_on_other_images(qtbot, project_path):
+    """A flake outlined on an image that is not shown still gets its catalogue thumbnail."""
+    import shutil
+
+    from flakebook.gui.mainwindow import MainWindow
+
+    second = project_path.parent / "q3w_50x_002.png"
+    shutil.copy(project_path.parent / "q3w_50x_001.png", second)
+    with Project.open(project_path) as p:
+        img = p.add_image(1, second, pixel_size_um=0.1, width_px=640, height_px=480)
+        f = p.add_flake(1, "Q3W-090")
+        p.add_appearance(f, img, np.array([[60, 60], [200, 70], [190, 170]], float))
+        fid = f.id
+    w = MainWindow()
+    qtbot.addWidget(w)
+    w.open_project(project_path)
+    assert w.current_image == 1
+    qtbot.waitUntil(lambda: not w.jobs.busy, timeout=10000)
+    row = next(r for r in w.catalogue.model.rows if r["id"] == fid)
+    pix = w.session.thumbnail(row)
+    assert pix is not None and not pix.isNull() and pix.width() == 44
+    w.close()
