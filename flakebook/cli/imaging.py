@@ -277,6 +277,8 @@ def _watch(args, opts: dict) -> int:
                     image = survey_one(f, opts, cancel=cancel)
                 except InputError as exc:
                     _common.message(f"flakebook: {_common.short(str(exc), 2)}")
+                    if not os.path.exists(f):
+                        continue  # a temporary file the camera renamed or removed
                     image = _failed_image(f, str(exc))
                 sys.stdout.write(_common.dumps(image) + "\n")
                 sys.stdout.flush()

@@ -196,7 +196,7 @@ class Micrograph:
             out = np.empty((rows, cols, len(self.channels)), np.float32)
             sat = np.empty((rows, cols), bool)
             known = self.saturation is not None or "sat" in self._cache
-            band = f * max(1, 256 // f)
+            band = f * max(1, 48 // f)
             for r0 in range(0, rows * f, band):
                 r1 = min(r0 + band, rows * f)
                 raw = self.samples[r0:r1, : cols * f]
@@ -637,6 +637,8 @@ def wait_until_readable(
         if size != last_size:
             last_size = size
             stable_since = now
+        elif size < 0 and now - stable_since >= stable_s:
+            raise InputError(f"{path}: the file disappeared before it was complete")
         elif size > 0 and now - stable_since >= stable_s:
             try:
                 return read_image(path)

@@ -116,20 +116,24 @@ def bench_single(tmp: Path) -> float:
         scale_um_per_px=SCALE,
         find_holes=False,
     )
-    decode = time_decode(path)
-    best = math.inf
-    for _ in range(2):
+    # Interleaved rounds (the machine is shared and noisy): decode, then survey, each round.
+    decodes, surveys = [], []
+    res = None
+    for _ in range(4):
+        decodes.append(time_decode(path, 1))
         t = time.perf_counter()
         res = survey_image(
             path, material=MATERIAL, substrate=SUBSTRATE, microscope=mic, scale_um_per_px=SCALE
         )
-        best = min(best, time.perf_counter() - t)
+        surveys.append(time.perf_counter() - t)
+    best = min(surveys) / min(decodes)
+    med = float(np.median(np.array(surveys[1:]) / np.array(decodes[1:])))
     print(
-        f"20 MP survey: {best:.3f} s; cv2.imread decode: {decode:.3f} s; "
-        f"ratio {best / decode:.2f} (target <= 3); {len(res.regions)} regions, "
-        f"{len(res.holes)} holes, {len(res.flakes)} flakes"
+        f"20 MP survey: best {min(surveys):.3f} s; cv2.imread decode: best {min(decodes):.3f} s; "
+        f"ratio {best:.2f} (median of rounds 2-4: {med:.2f}; target <= 3); "
+        f"{len(res.regions)} regions, {len(res.holes)} holes, {len(res.flakes)} flakes"
     )
-    return best / decode
+    return best
 
 
 def bench_tiles(tmp: Path, n_tiles: int) -> float:

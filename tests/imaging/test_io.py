@@ -207,3 +207,18 @@ def test_incomplete_file_times_out_and_cancel_stops(tmp_path):
     ev.set()
     with pytest.raises(Cancelled):
         wait_until_readable(target, cancel=ev)
+
+
+def test_file_that_disappears_while_waiting(tmp_path):
+    target = tmp_path / "tmp_0001.png"
+    target.write_bytes(_png_with_header(10, 10)[:20])
+
+    def remove():
+        time.sleep(0.1)
+        target.unlink()
+
+    t = threading.Thread(target=remove)
+    t.start()
+    with pytest.raises(InputError, match="disappeared"):
+        wait_until_readable(target, stable_s=0.2, timeout_s=10, poll_s=0.02)
+    t.join()

@@ -206,3 +206,23 @@ def test_coverage_margin_at_full_resolution_with_a_coarse_working_grid():
     cov = hole_coverage(fl.outline_px, ((91.0, 76.8), 14.0), um_per_px=0.1)
     assert cov.fully_covered
     assert cov.margin_px == pytest.approx(76.8 - 51.8 - 14.0, abs=0.75)
+
+
+def test_progress_reaches_the_end_and_cancel_stops():
+    """INTERFACE.md: progress(fraction, text) from 0 to 1; a set cancel event raises Cancelled."""
+    import threading
+
+    from flakebook.errors import Cancelled
+
+    shape = (120, 160)
+    flakes, _ = flake_grid(shape, [2], cell=(120, 160), seed=1)
+    img = from_array(
+        np.clip(np.round(micrograph(shape, flakes, seed=2) * 65535), 0, 65535).astype(np.uint16)
+    )
+    seen = []
+    _survey(img, progress=lambda frac, text: seen.append(frac))
+    assert seen[0] == 0.0 and seen[-1] == 1.0 and seen == sorted(seen)
+    ev = threading.Event()
+    ev.set()
+    with pytest.raises(Cancelled):
+        _survey(img, cancel=ev)
