@@ -231,6 +231,7 @@ class CatalogueView(QWidget):
     recomputeRequested = Signal()
     exportCsvRequested = Signal()
     exportPictureRequested = Signal()
+    tagShownRequested = Signal()
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -284,6 +285,10 @@ class CatalogueView(QWidget):
         self.proxy.modelReset.connect(self._count)
         self.proxy.layoutChanged.connect(self._count)
 
+        self.tag_button = QPushButton("Tag shown flakes…", self)
+        self.tag_button.setObjectName("tagShown")
+        self.tag_button.setToolTip("Add one tag (e.g. thermometry) to every flake the filters show")
+        self.tag_button.clicked.connect(self.tagShownRequested)
         self.recompute_button = QPushButton("Recompute stale", self)
         self.recompute_button.clicked.connect(self.recomputeRequested)
         self.csv_button = QPushButton("Export CSV…", self)
@@ -306,6 +311,7 @@ class CatalogueView(QWidget):
         bar2 = QHBoxLayout()
         bar2.addWidget(self.count)
         bar2.addStretch(1)
+        bar2.addWidget(self.tag_button)
         bar2.addWidget(self.recompute_button)
         bar2.addWidget(self.csv_button)
         bar2.addWidget(self.pic_button)

@@ -450,6 +450,9 @@ class MainWindow(QMainWindow):
         b.sampleActivated.connect(self._on_sample_activated)
         cat = self.catalogue
         cat.flakeActivated.connect(lambda f: self.select_flake(f, centre=True))
+        cat.tagShownRequested.connect(
+            lambda: self._guard(self.tag_shown_dialog, "Tag shown flakes")
+        )
         cat.recomputeRequested.connect(lambda: self._guard(self.recompute_stale, "Recompute stale"))
         cat.exportCsvRequested.connect(lambda: self._guard(self.export_csv_dialog, "Export CSV"))
         cat.exportPictureRequested.connect(
@@ -1083,6 +1086,42 @@ class MainWindow(QMainWindow):
             return s.set_flake_fields(flake_id, tags=tuple(tags))
 
         self.edit(f"Tags of {s.flake_label(flake_id)}", do)
+
+    def tag_shown_dialog(self) -> None:
+        self._need_session()
+        tag, ok = QInputDialog.getText(
+            self, "Tag shown flakes", "Tag for every flake shown:", text="thermometry"
+        )
+        if ok:
+            self.tag_flakes([r["id"] for r in self.catalogue.proxy.visible_rows()], tag)
+
+    def tag_flakes(self, flake_ids: list[int], tag: str) -> None:
+        """Add ``tag`` to each flake (one undoable edit)."""
+        s = self._need_session()
+        tag = tag.strip()
+        if not tag or "," in tag:
+            raise InputError(
+                f"Tag {tag!r} is not usable; accepted: a word without commas, e.g. thermometry"
+            )
+        if not flake_ids:
+            raise InputError("No flake is shown; loosen the filters first.")
+
+        def do():
+            undos = []
+            with s.project.transaction():
+                for fid in flake_ids:
+                    tags = tuple(s.project.get("flake", s._r("flake", fid)).tags)
+                    if tag not in tags:
+                        undos.append(s.set_flake_fields(fid, tags=(*tags, tag)))
+
+            def undo():
+                with s.project.transaction():
+                    for u in reversed(undos):
+                        u()
+
+            return undo
+
+        self.edit(f"Tag {len(flake_ids)} flake(s) {tag}", do)
 
     def set_notes(self, flake_id: int, notes: str) -> None:
         s = self._need_session()

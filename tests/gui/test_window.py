@@ -612,3 +612,20 @@ def test_thumbnails_for_flakes_on_other_images(qtbot, project_path):
     pix = w.session.thumbnail(row)
     assert pix is not None and not pix.isNull() and pix.width() == 44
     w.close()
+
+
+def test_walkthrough_choose_membranes_and_tag(qtbot, window):
+    """Walkthrough 3: filter to 'fully covers a hole, margin > 1 um, 1-6 layers', tag them."""
+    cat = window.catalogue
+    cat.covers.setChecked(True)
+    cat.margin.setValue(1.0)
+    cat.lmin.setValue(1)
+    cat.lmax.setValue(6)
+    shown = [r["flake_id"] for r in cat.proxy.visible_rows()]
+    assert shown == ["Q3W-002"]
+    window.tag_flakes([r["id"] for r in cat.proxy.visible_rows()], "thermometry")
+    p = window.session.project
+    assert "thermometry" in p.flake_by_label("Q3W-002").tags
+    assert "thermometry" not in p.flake_by_label("Q3W-001").tags
+    window.a_undo.trigger()
+    assert "thermometry" not in p.flake_by_label("Q3W-002").tags
