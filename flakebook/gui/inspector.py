@@ -19,6 +19,7 @@ import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QFont
 from PySide6.QtWidgets import (
+    QComboBox,
     QFormLayout,
     QGroupBox,
     QHBoxLayout,
@@ -124,6 +125,7 @@ class Inspector(QScrollArea):
     notesEdited = Signal(int, str)
     appearanceRequested = Signal(int, int)  # flake id, image id
     calibrateRequested = Signal()
+    primaryTerraceRequested = Signal(int, int)  # flake id, terrace id
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -157,6 +159,18 @@ class Inspector(QScrollArea):
         self.bars: pg.BarGraphItem | None = None
         self.verdict = QLabel(body)
         self.verdict.setWordWrap(True)
+        self.terrace = QComboBox(body)
+        self.terrace.setObjectName("primaryTerrace")
+        self.terrace.setToolTip(
+            "The terrace whose layer number is the flake's: by default the one over a hole, "
+            "else the largest"
+        )
+        self.terrace.activated.connect(self._on_terrace)
+        self.terrace_row = QWidget(body)
+        tr = QHBoxLayout(self.terrace_row)
+        tr.setContentsMargins(0, 0, 0, 0)
+        tr.addWidget(QLabel("Layer number of", body))
+        tr.addWidget(self.terrace, 1)
         self.evidence = QLabel(body)
         self.evidence.setWordWrap(True)
         self.evidence.setTextFormat(Qt.TextFormat.RichText)
@@ -246,6 +260,7 @@ class Inspector(QScrollArea):
         l1 = QVBoxLayout(g1)
         l1.addWidget(self.post_plot)
         l1.addWidget(self.verdict)
+        l1.addWidget(self.terrace_row)
         l1.addWidget(self.evidence)
         lay.addWidget(g1)
         g2 = QGroupBox("Contrast against the model", body)
@@ -292,6 +307,7 @@ class Inspector(QScrollArea):
             self.assign_reason,
             self.clear_button,
             self.calibrate_button,
+            self.terrace,
         ):
             w.setEnabled(not read_only)
         self.assign_button.setEnabled(False)
@@ -319,6 +335,7 @@ class Inspector(QScrollArea):
         self._show_evidence(flake)
         self._show_contrast(flake)
         self._show_holes(flake)
+        self._show_terraces(flake)
         apps = flake.get("appearances") or []
         if apps:
             links = ", ".join(f"<a href='{fid_img}'>{name}</a>" for fid_img, name in apps)
@@ -515,6 +532,24 @@ class Inspector(QScrollArea):
             g.layout().invalidate()
             g.layout().activate()
         self.widget().layout().activate()
+
+    def _show_terraces(self, flake: dict) -> None:
+        choices = flake.get("terraces") or []
+        self.terrace.blockSignals(True)
+        self.terrace.clear()
+        for tid, text in choices:
+            self.terrace.addItem(text, tid)
+        idx = self.terrace.findData(flake.get("primary_terrace_id"))
+        self.terrace.setCurrentIndex(max(0, idx))
+        self.terrace.blockSignals(False)
+        self.terrace_row.setVisible(len(choices) > 1)
+
+    def _on_terrace(self, index: int) -> None:
+        if self.flake is None or self.read_only:
+            return
+        tid = self.terrace.itemData(index)
+        if tid is not None and tid != self.flake.get("primary_terrace_id"):
+            self.primaryTerraceRequested.emit(self.flake["id"], int(tid))
 
     def _show_holes(self, flake: dict) -> None:
         holes = flake.get("holes") or []

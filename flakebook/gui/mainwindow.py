@@ -471,6 +471,9 @@ class MainWindow(QMainWindow):
         ins.appearanceRequested.connect(
             lambda f, i: self._guard(lambda: self.show_appearance(f, i), "Show appearance")
         )
+        ins.primaryTerraceRequested.connect(
+            lambda f, t: self._guard(lambda: self.set_primary_terrace(f, t), "Primary terrace")
+        )
         ins.calibrateRequested.connect(
             lambda: self._guard(self.calibrate_dialog, "Calibrate optics")
         )
@@ -1086,6 +1089,14 @@ class MainWindow(QMainWindow):
             return s.set_flake_fields(flake_id, tags=tuple(tags))
 
         self.edit(f"Tags of {s.flake_label(flake_id)}", do)
+
+    def set_primary_terrace(self, flake_id: int, terrace_id: int) -> None:
+        """Choose the terrace whose layer number is the flake's (DESIGN.md)."""
+        s = self._need_session()
+        self.edit(
+            f"Primary terrace of {s.flake_label(flake_id)}",
+            lambda: s.set_flake_fields(flake_id, primary_terrace_id=terrace_id),
+        )
 
     def tag_shown_dialog(self) -> None:
         self._need_session()

@@ -624,7 +624,25 @@ class Session:
             ],
             "oxide_err_nm": oxide_err,
             "model_key": model_key,
+            "primary_terrace_id": tid,
+            "primary_chosen": flake.primary_terrace_id is not None,
+            "terraces": self._terrace_choices(fid),
         }
+
+    def _terrace_choices(self, fid: int) -> list[tuple[int, str]]:
+        """(terrace id, text) for each terrace of a flake: label, latest layer number, area."""
+        p = self.project
+        layers: dict[int, int] = {}
+        for a in p.assignments_of(fid):
+            if a.terrace_id is not None:
+                layers[a.terrace_id] = a.layers
+        out = []
+        for t in p.terraces_of(fid):
+            n = layers.get(t.id)
+            area = f", {t.area_um2:.0f} µm²" if t.area_um2 is not None else ""
+            lab = t.label or f"terrace {t.id}"
+            out.append((t.id, f"{lab} ({'?' if n is None else n}L{area})"))
+        return out
 
     # ---- holes -------------------------------------------------------------------------------
     def hole_geometry(self, hole_id: int) -> tuple[float, float, float]:

@@ -629,3 +629,33 @@ def test_walkthrough_choose_membranes_and_tag(qtbot, window):
     assert "thermometry" not in p.flake_by_label("Q3W-001").tags
     window.a_undo.trigger()
     assert "thermometry" not in p.flake_by_label("Q3W-002").tags
+
+
+def test_choose_primary_terrace(qtbot, window):
+    """A flake of two terraces takes the layer number of the one chosen in the inspector."""
+    p = window.session.project
+    fid = _label_to_id(window, "Q3W-001")
+    app = p.appearances_of(fid)[0]
+    t2 = p.add_terrace(app, np.array([[70, 120], [120, 120], [110, 150]], float), label="T2")
+    p.add_assignment(
+        fid,
+        2,
+        terrace_id=t2.id,
+        probability=0.9,
+        method="manual",
+        manual=True,
+        reason="test terrace",
+    )
+    window.refresh()
+    window.select_flake(fid)
+    ins = window.inspector
+    assert ins.terrace_row.isVisibleTo(ins) and ins.terrace.count() == 2
+    before = next(r for r in window.catalogue.model.rows if r["id"] == fid)["layers"]
+    idx = ins.terrace.findData(t2.id)
+    ins.terrace.setCurrentIndex(idx)
+    ins.terrace.activated.emit(idx)
+    row = next(r for r in window.catalogue.model.rows if r["id"] == fid)
+    assert p.get("flake", fid).primary_terrace_id == t2.id
+    assert row["layers"] == 2 and before == 1
+    window.a_undo.trigger()
+    assert p.get("flake", fid).primary_terrace_id is None
