@@ -12,8 +12,6 @@ session, and :meth:`Inspector.set_model` takes the curves computed by the optics
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
@@ -61,41 +59,22 @@ def deciding_hint(
     contrast_err: dict[str, float] | None,
     oxide_err_nm: float | None = None,
 ) -> str:
-    """Plain words on what would separate the candidate layer numbers.
-
-    For the two leading candidates, each channel's model contrast difference is compared with the
-    measured error of that channel; the channel that separates them by the most standard errors is
-    named. When no channel separates them by two errors, a narrow-band filter where the model
-    differs most or a calibrated oxide (or a Raman/PL spectrum) is suggested.
-    """
+    """Words for the "what would decide" line when the optics gave no judgement of its own
+    (flakebook.optics.layers writes one whenever its contrast evidence is ambiguous): the
+    evidence is not ambiguous, the model is still being computed, or the ambiguity comes from
+    the combined evidence and only the model differences can be shown."""
     if len(candidates) < 2:
         return "Not ambiguous: no other layer number has 5% or more."
     a, b = candidates[0], candidates[1]
     if not model:
         return f"{a}L or {b}L: the model curves are still being computed."
-    parts = []
-    best = None
-    for ch, curve in model.items():
-        curve = np.asarray(curve, float)
-        if max(a, b) > len(curve):
-            continue
-        diff = abs(curve[a - 1] - curve[b - 1])
-        err = (contrast_err or {}).get(ch)
-        sig = diff / err if err and err > 0 else math.inf
-        parts.append(f"{ch}: ΔC = {diff:.3f}" + (f" ({sig:.1f} σ)" if math.isfinite(sig) else ""))
-        if best is None or sig > best[1]:
-            best = (ch, sig)
-    text = f"{a}L or {b}L. Model contrast difference per channel: " + "; ".join(parts) + "."
-    if best is not None and best[1] >= 2:
-        text += f" The {best[0]} channel separates them ({best[1]:.1f} σ): a cleaner measurement there decides."
-    else:
-        text += (
-            " No channel separates them by two errors here: a narrow-band filter image, a"
-            " calibrated oxide thickness"
-            + (f" (now ±{oxide_err_nm:g} nm)" if oxide_err_nm else "")
-            + ", or a Raman/PL spectrum would decide."
-        )
-    return text
+    text = (
+        f"{a}L or {b}L in the combined evidence; the contrast alone does not call it ambiguous. "
+        "Another kind of evidence (a Raman or PL spectrum) or a calibrated oxide"
+        + (f" (now ±{oxide_err_nm:g} nm)" if oxide_err_nm else "")
+        + " would decide. "
+    )
+    return text + model_differences(candidates, model, contrast_err)
 
 
 def model_differences(candidates: list[int], model: dict | None, contrast_err: dict | None) -> str:
