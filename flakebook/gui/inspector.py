@@ -64,7 +64,7 @@ def deciding_hint(
     evidence is not ambiguous, the model is still being computed, or the ambiguity comes from
     the combined evidence and only the model differences can be shown."""
     if len(candidates) < 2:
-        return "Not ambiguous: no other layer number has 5% or more."
+        return "Not ambiguous: no other layer number has 5% or more in the combined evidence."
     a, b = candidates[0], candidates[1]
     if not model:
         return f"{a}L or {b}L: the model curves are still being computed."
@@ -482,7 +482,7 @@ class Inspector(QScrollArea):
         self.con_key.setText("channels: " + " &nbsp; ".join(keys) if keys else "")
         amb = [best] + list(flake.get("ambiguous_with") or []) if best else []
         text = "<b>What would decide:</b> "
-        if decider:
+        if decider and len(amb) >= 2 and not flake.get("manual"):
             # the optics' own judgement (model errors included); the numbers below inform it
             text += decider + "<br>" + model_differences(amb, model, errs)
         else:
