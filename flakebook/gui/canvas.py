@@ -115,16 +115,21 @@ class OutlineItem(QGraphicsPathItem):
 
 
 class HoleItem(QGraphicsEllipseItem):
-    """A hole as drawn: a circle (dashed when found by detection or the lattice)."""
+    """A hole as drawn: a white circle on a dark halo, readable on bare substrate, on a flake
+    and on a bright (gold-bottomed) hole alike; dashed when found by detection or the lattice."""
 
     def __init__(self, shape: HoleShape) -> None:
         r = float(shape.radius_px)
         super().__init__(shape.x_px - r, shape.y_px - r, 2 * r, 2 * r)
+        halo = QPen(QColor(0, 0, 0, 200), 3.5)
+        halo.setCosmetic(True)
+        self.setPen(halo)
+        self.inner = QGraphicsEllipseItem(shape.x_px - r, shape.y_px - r, 2 * r, 2 * r, self)
         pen = QPen(QColor(palette.HOLE_COLOUR), 1.5)
         pen.setCosmetic(True)
         if shape.detected:
             pen.setStyle(Qt.PenStyle.DashLine)
-        self.setPen(pen)
+        self.inner.setPen(pen)
         self.hole_id = shape.hole_id
         self.shape_data = shape
         self.setZValue(20)

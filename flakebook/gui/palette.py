@@ -35,7 +35,7 @@ _LAYER_ORDER = (
 )
 THICK_COLOUR = "#BBBBBB"
 UNKNOWN_COLOUR = "#FFFFFF"
-HOLE_COLOUR = "#F0E442"  # Okabe-Ito yellow
+HOLE_COLOUR = "#FFFFFF"  # white on a dark halo (gold-bottomed holes look yellow themselves)
 SELECTION_COLOUR = "#FFFFFF"
 MAX_DISTINCT_LAYERS = len(_LAYER_ORDER)
 
