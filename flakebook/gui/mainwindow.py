@@ -592,6 +592,8 @@ class MainWindow(QMainWindow):
         from flakebook.gui.session import ProjectBusy, Session
 
         path = Path(path)
+        if self.session is not None and self.session.path.resolve() == path.resolve():
+            return True  # already open in this window
         try:
             session = Session.open(path, read_only=read_only)
         except ProjectBusy as busy:
