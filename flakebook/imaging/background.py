@@ -47,6 +47,7 @@ class Background:
             (working resolution), or None.
         reference_gain: the gain image ``[row, col, ch]`` (``"reference"`` only).
         warnings: messages for the user.
+        coefficient_cov: covariance of ``coefficients`` per channel (``"polynomial"`` only).
     """
 
     method: str
@@ -59,6 +60,20 @@ class Background:
     residual_rms: tuple[float, ...] | None = None
     reference_gain: np.ndarray | None = None
     warnings: tuple[str, ...] = ()
+    coefficient_cov: np.ndarray | None = None
+
+    def relative_error(self, x_px: float, y_px: float) -> np.ndarray:
+        """Standard error of the fitted surface at (x, y), relative to it, per channel (0 for a
+        reference image or no correction)."""
+        nch = len(self.channels)
+        if self.method != "polynomial" or self.coefficient_cov is None:
+            return np.zeros(nch)
+        x = _norm_coords(np.array([float(x_px)]), self.shape[1])[0]
+        y = _norm_coords(np.array([float(y_px)]), self.shape[0])[0]
+        ap = np.array([x**i * y**j for i, j in _terms(self.degree)])
+        val = self.coefficients @ ap
+        var = np.einsum("t,ctu,u->c", ap, self.coefficient_cov, ap)
+        return np.sqrt(np.maximum(var, 0.0)) / np.maximum(np.abs(val), 1e-12)
 
     def surface(self, rows: slice = slice(None), cols: slice = slice(None)) -> np.ndarray:
         """The fitted illumination surface over a crop, float32 ``[row, col, ch]``."""
@@ -204,6 +219,47 @@ def _robust_polyfit(
         w = np.where(np.abs(u) < 1, (1 - u**2) ** 2, 0.0)
     level = float(np.mean(a @ coef))
     return coef, (scale / level if level > 0 else float("nan"))
+
+
+def _coefficient_covariance(
+    a: np.ndarray, vals: np.ndarray, coefs: np.ndarray, used: np.ndarray, grid_shape: tuple
+) -> np.ndarray:
+    """Covariance of the surface coefficients per channel, ``[channel, term, term]``.
+
+    s^2 (A^T A)^-1 from the robust residual scale s of the fitted points, inflated for the
+    correlation between points on the fit grid by (1 + 2 sum_k rho_x(k)) (1 + 2 sum_k rho_y(k)),
+    the residuals' autocorrelation summed along x and y while it exceeds 0.05 (a separable
+    effective-sample-size factor; common practice, no source).
+    """
+    au = a[used]
+    g_inv = np.linalg.pinv(au.T @ au)
+    nch = vals.shape[1]
+    out = np.zeros((nch, a.shape[1], a.shape[1]))
+    idx = np.flatnonzero(used)
+    for c in range(nch):
+        r = vals[used, c] - au @ coefs[c]
+        sc = 1.4826 * float(np.median(np.abs(r - np.median(r)))) if r.size else 0.0
+        grid = np.full(int(np.prod(grid_shape)), np.nan)
+        grid[idx] = r
+        grid = grid.reshape(grid_shape)
+        kappa = 1.0
+        for axis in (1, 0):
+            factor = 1.0
+            for lag in range(1, 9):
+                if grid.shape[axis] <= lag:
+                    break
+                g0 = grid[:, :-lag] if axis == 1 else grid[:-lag, :]
+                g1 = grid[:, lag:] if axis == 1 else grid[lag:, :]
+                m = np.isfinite(g0) & np.isfinite(g1)
+                if np.count_nonzero(m) <= 10:
+                    break
+                rho = float(np.corrcoef(g0[m], g1[m])[0, 1])
+                if not np.isfinite(rho) or rho < 0.05:
+                    break
+                factor += 2.0 * rho
+            kappa *= factor
+        out[c] = sc**2 * kappa * g_inv
+    return out
 
 
 def _initial_substrate(
@@ -386,14 +442,16 @@ def fit_background(
     coefs = np.zeros((nch, len(_terms(degree))))
     rms = [0.0] * nch
     use = ok.copy()
+    a = np.stack([xx**i * yy**j for i, j in _terms(degree)], axis=1)
+    used_last = use
     for _pass in range(2):
         keep = np.ones_like(use)
+        used_last = use
         for c in range(nch):
             # The second pass fits pixels already agreeing with the surface: no L1 start needed.
             coefs[c], rms[c] = _robust_polyfit(
                 xx[use], yy[use], vals[use, c], degree, l1=0 if (_pass or _refit) else 6
             )
-            a = np.stack([xx**i * yy**j for i, j in _terms(degree)], axis=1)
             model = a @ coefs[c]
             rel = vals[:, c] / np.maximum(model, 1e-9) - 1
             tol = max(4 * rms[c], 0.005) if np.isfinite(rms[c]) else 0.05
@@ -403,6 +461,7 @@ def fit_background(
             use = ok
             warnings.append("little bare substrate found: the illumination fit is uncertain")
             break
+    cov = _coefficient_covariance(a, vals, coefs, used_last, gy.shape)
     bg = Background(
         "polynomial",
         offs,
@@ -413,6 +472,7 @@ def fit_background(
         level=(0.0,) * nch,
         residual_rms=tuple(float(r) for r in rms),
         warnings=tuple(warnings),
+        coefficient_cov=cov,
     )
     # Normalise to the mean of the surface over the image (on a coarse grid).
     gy2 = np.arange(0, rows, max(1, rows // 64))

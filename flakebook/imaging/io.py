@@ -526,7 +526,8 @@ def from_array(
             linear, 1.0 = full scale). Three channels are colour, four colour plus alpha (dropped).
         order: ``"rgb"`` or ``"bgr"`` (OpenCV's order) for colour arrays.
         transfer: ``"auto"`` (uint8: sRGB; uint16 and float: linear), ``"srgb"`` or ``"linear"``.
-        white_level: raw saturation value (default: 255, 65535, or 1.0 for float).
+        white_level: raw saturation value (default: 255 or 65535; float data: none, so no pixel
+            is masked unless one is given).
         channels: names for the channels (default ``r, g, b`` or ``mono``).
         path: recorded in the result.
         copy: False hands the array over (it may then be changed in place, e.g. BGR to RGB);
@@ -599,7 +600,9 @@ def from_array(
         samples=samples,
         order=order,
         scale=scale,
-        white=float(level),
+        # Float data (e.g. a scientific camera's TIFF) has no known full scale: nothing is
+        # masked as saturated unless a white level is given.
+        white=float(level) if (bit_depth != 32 or white_level is not None) else float("inf"),
     )
 
 

@@ -888,13 +888,18 @@ def _measure_region(
     n = int(cvals.shape[0])
     contrast, err, sdd = {}, {}, {}
     neff = n
+    # The fitted illumination surface is uncertain too (most where a large flake hides the
+    # substrate); its relative error at the region scales with (1 - C).
+    surf_rel = bg.relative_error(cx, cy)
     for c, name in enumerate(image.channels):
         m, sd = _robust_mean(cvals[:, c])
         # Correlation between sub-grid neighbours falls as the stride grows (about A_c / k^2).
         neff = max(1.0, min(n / max(1.0, corr[name] / k**2), n_all / corr[name]))
         contrast[name] = m
         sdd[name] = sd
-        err[name] = float(np.hypot(sd / np.sqrt(neff), (1 - m) * sub_rel[name]))
+        err[name] = float(
+            np.sqrt((sd**2) / neff + ((1 - m) * sub_rel[name]) ** 2 + ((1 - m) * surf_rel[c]) ** 2)
+        )
     return Region(
         id=rid,
         flake_id=fid,

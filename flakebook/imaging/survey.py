@@ -113,6 +113,16 @@ class SurveyResult:
     warnings: tuple[str, ...] = ()
     provenance: dict = field(default_factory=dict)
 
+    def primary_region_id(self, flake_id: int) -> int | None:
+        """The flake's primary terrace (DESIGN.md): the largest one over a hole if any, else the
+        largest."""
+        own = [r for r in self.regions if r.region.flake_id == flake_id]
+        if not own:
+            return None
+        over = [r for r in own if r.geometry == "suspended"]
+        pick = max(over or own, key=lambda r: r.region.area_um2)
+        return pick.id
+
     def to_dict(self) -> dict:
         return {
             "path": self.path,
@@ -124,7 +134,10 @@ class SurveyResult:
             "substrate": dict(self.segmentation.substrate),
             "background": self.background.to_dict(),
             "regions": [r.to_dict() for r in self.regions],
-            "flakes": [f.to_dict() for f in self.flakes],
+            "flakes": [
+                {**f.to_dict(), "primary_region_id": self.primary_region_id(f.id)}
+                for f in self.flakes
+            ],
             "holes": [h.to_dict() for h in self.holes],
             "lattice": None if self.lattice is None else self.lattice.to_dict(),
             "coverage": [c.to_dict() for c in self.coverage],

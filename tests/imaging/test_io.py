@@ -222,3 +222,15 @@ def test_file_that_disappears_while_waiting(tmp_path):
     with pytest.raises(InputError, match="disappeared"):
         wait_until_readable(target, stable_s=0.2, timeout_s=10, poll_s=0.02)
     t.join()
+
+
+def test_float_tiff_without_full_scale(tmp_path):
+    """A float TIFF (scientific camera, arbitrary units) is linear and nothing is masked as
+    saturated unless a white level is given (common practice, no source)."""
+    a = np.linspace(0, 4000, 48, dtype=np.float32).reshape(6, 8)
+    path = tmp_path / "f.tif"
+    cv2.imwrite(str(path), a)
+    img = read_image(path)
+    assert img.bit_depth == 32 and not img.saturated.any()
+    assert np.allclose(img.intensity[..., 0], a)
+    assert from_array(a, white_level=4000.0).saturated.sum() == 1

@@ -89,11 +89,13 @@ def test_correlation_area_of_blurred_white_noise():
 
 def test_error_allows_for_correlated_noise():
     """With spatially correlated noise the reported standard error follows the real scatter of the
-    mean over repeated images (within a factor 1.6), not the white-noise sqrt(n) law."""
+    mean over repeated images (within a factor 1.45 over 16 images), not the white-noise sqrt(n)
+    law; it includes the uncertainty of the flat-field surface under a large central flake
+    (common practice, no source: Monte Carlo against the known truth)."""
     shape = (200, 200)
     rng = np.random.default_rng(7)
     means, errs = [], []
-    for _ in range(12):
+    for _ in range(16):
         base = np.full((*shape, 1), 0.5)
         base[60:140, 60:140] *= 1 - 0.2
         noise = cv2.GaussianBlur(rng.standard_normal(shape), (0, 0), 2.0)
@@ -105,7 +107,7 @@ def test_error_allows_for_correlated_noise():
         errs.append(reg.contrast_err["mono"])
         assert seg.correlation_area_px["mono"] > 10
     ratio = np.std(means, ddof=1) / np.mean(errs)
-    assert 1 / 1.6 < ratio < 1.6
+    assert 1 / 1.45 < ratio < 1.45
 
 
 def test_no_substrate_visible_is_refused():

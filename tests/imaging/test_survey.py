@@ -136,6 +136,8 @@ def test_terraces_and_suspended_region_over_a_hole():
     } <= set(d["regions"][0])
     assert {"center_px", "radius_px", "radius_um", "radius_err_um"} <= set(d["holes"][0])
     assert len(d["regions"][0]["likelihood"]) == 16
+    # DESIGN.md: the primary terrace is the one over a hole.
+    assert d["flakes"][0]["primary_region_id"] == by_pos["hole"].id
 
 
 def test_mono_bandpass_image():
