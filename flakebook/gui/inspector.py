@@ -105,6 +105,7 @@ class Inspector(QScrollArea):
     appearanceRequested = Signal(int, int)  # flake id, image id
     calibrateRequested = Signal()
     primaryTerraceRequested = Signal(int, int)  # flake id, terrace id
+    exportPlotRequested = Signal(object)  # the plot widget
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -245,9 +246,13 @@ class Inspector(QScrollArea):
         g2 = QGroupBox("Contrast against the model", body)
         l2 = QVBoxLayout(g2)
         l2.addWidget(self.con_plot)
+        self.con_export = QPushButton("Export plot…", body)
+        self.con_export.setToolTip("The contrast-versus-N plot as PNG or SVG")
+        self.con_export.clicked.connect(lambda: self.exportPlotRequested.emit(self.con_plot))
         l2.addWidget(self.con_key)
         l2.addWidget(self.con_note)
         l2.addWidget(self.decide)
+        l2.addWidget(self.con_export)
         lay.addWidget(g2)
         g3 = QGroupBox("Holes covered", body)
         l3 = QVBoxLayout(g3)

@@ -474,6 +474,9 @@ class MainWindow(QMainWindow):
         ins.primaryTerraceRequested.connect(
             lambda f, t: self._guard(lambda: self.set_primary_terrace(f, t), "Primary terrace")
         )
+        ins.exportPlotRequested.connect(
+            lambda w: self._guard(lambda: self.export_widget_dialog(w), "Export plot")
+        )
         ins.calibrateRequested.connect(
             lambda: self._guard(self.calibrate_dialog, "Calibrate optics")
         )
@@ -1417,6 +1420,14 @@ class MainWindow(QMainWindow):
         )
         if path:
             self.export_picture(path)
+
+    def export_widget_dialog(self, widget) -> None:
+        path, _ = QFileDialog.getSaveFileName(self, "Export plot", "", "PNG (*.png);;SVG (*.svg)")
+        if path:
+            from flakebook.render.export import widget_picture
+
+            out = widget_picture(widget, path, scale=2.0 if path.lower().endswith(".png") else 1.0)
+            log.info("Exported a plot to %s", out)
 
     def export_picture(self, path: str | Path) -> Path:
         """The current tab as PNG or SVG: the catalogue table, or the image view with overlays."""

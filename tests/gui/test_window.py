@@ -659,3 +659,19 @@ def test_choose_primary_terrace(qtbot, window):
     assert row["layers"] == 2 and before == 1
     window.a_undo.trigger()
     assert p.get("flake", fid).primary_terrace_id is None
+
+
+def test_export_inspector_plot(qtbot, window, tmp_path, monkeypatch):
+    """The contrast-versus-N plot exports as PNG (twice the screen size) and SVG."""
+    from PySide6.QtWidgets import QFileDialog
+
+    window.select_flake(_label_to_id(window, "Q3W-002"))
+    for name in ("plot.png", "plot.svg"):
+        target = str(tmp_path / name)
+        monkeypatch.setattr(
+            QFileDialog, "getSaveFileName", staticmethod(lambda *a, t=target, **k: (t, ""))
+        )
+        window.inspector.con_export.click()
+    assert (tmp_path / "plot.png").stat().st_size > 2000
+    assert "<svg" in (tmp_path / "plot.svg").read_text()
+    assert any("Exported a plot" in line for line in window.log_handler.lines)
