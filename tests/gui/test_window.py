@@ -675,3 +675,60 @@ def test_export_inspector_plot(qtbot, window, tmp_path, monkeypatch):
     assert (tmp_path / "plot.png").stat().st_size > 2000
     assert "<svg" in (tmp_path / "plot.svg").read_text()
     assert any("Exported a plot" in line for line in window.log_handler.lines)
+
+
+def _content(p):
+    """What a researcher sees of the project (not revisions or ids)."""
+    flakes = sorted(
+        (f.label, f.tags, f.notes, f.primary_terrace_id is not None) for f in p.records("flake")
+    )
+    outlines = sorted(
+        (p.get("flake", a.flake_id).label, a.image_id, tuple(np.round(a.outline_px, 3).ravel()))
+        for a in p.records("appearance")
+    )
+    holes = sorted(
+        (round(h.center_x_px, 3), round(h.center_y_px, 3), round(h.radius_px, 3))
+        for h in p.records("hole")
+    )
+    assignments = sorted(
+        (p.get("flake", a.flake_id).label, a.layers, a.manual, a.reason)
+        for a in p.records("assignment")
+    )
+    links = sorted(
+        (p.get("flake", lk.flake_id).label, round(lk.covered_fraction, 6), lk.fully_covered)
+        for lk in p.records("flake_hole")
+    )
+    return flakes, outlines, holes, assignments, links
+
+
+def test_undo_everything_then_redo_everything(qtbot, window):
+    """A session of mixed edits undone to the start gives the project it began with; redone,
+    the project after the edits (common practice for an undo stack, no source)."""
+    p = window.session.project
+    start = _content(p)
+    f1, f2 = _label_to_id(window, "Q3W-001"), _label_to_id(window, "Q3W-003")
+    window.add_hole(600.0, 300.0, 15.0)
+    hole = p.holes_of(1)[-1].id
+    window.move_hole(hole, 610.0, 310.0, 18.0)
+    window.set_tags(f1, ["raman-next"])
+    window.assign(f2, 4, "shear mode")
+    window.select_flake(f1)
+    window.split_selected((130, 40), (130, 190))
+    new = p.flakes_of(1)[-1].id
+    window.merge(f1, new, 1)
+    window.add_outline(np.array([[300, 20], [360, 25], [350, 60]], float))
+    window.delete_hole(hole)
+    window.select_flake(f2)
+    window.delete_selected()
+    end = _content(p)
+    n = window.undo_stack.count()
+    texts = [window.undo_stack.text(i) for i in range(n)]
+    assert n == 9, " | ".join(texts)
+    for _ in range(n):
+        window.a_undo.trigger()
+    assert not window.errors, window.errors
+    assert _content(p) == start
+    for _ in range(n):
+        window.a_redo.trigger()
+    assert not window.errors, window.errors
+    assert _content(p) == end
