@@ -1,0 +1,132 @@
+"""Starting the desktop program, and rendering it offscreen for ``--snapshot``."""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+from pathlib import Path
+
+from flakebook.errors import InputError
+
+
+def _headless() -> bool:
+    return (
+        sys.platform.startswith("linux")
+        and not os.environ.get("DISPLAY")
+        and not os.environ.get("WAYLAND_DISPLAY")
+    )
+
+
+def _prepare_platform(offscreen: bool) -> None:
+    """Offscreen for a snapshot without a display; a clear refusal for a window without one."""
+    if offscreen:
+        if _headless():
+            os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+        return
+    if _headless() and not os.environ.get("QT_QPA_PLATFORM"):
+        raise InputError(
+            "no display found (DISPLAY is not set), so the window cannot open; "
+            "use --snapshot FILE.png to render it offscreen, or the commands (flakebook --help)"
+        )
+
+
+def parse_show(text: str | None) -> tuple[str, str | None]:
+    """``catalogue`` | ``flake:ID`` | ``image`` -> (view, argument)."""
+    if not text:
+        return "image", None
+    view, _, arg = text.partition(":")
+    view = view.strip().lower()
+    if view == "catalogue" and not arg:
+        return "catalogue", None
+    if view == "flake" and arg.strip():
+        return "flake", arg.strip()
+    if view == "image" and not arg:
+        return "image", None
+    if view in ("spectra", "thermal"):
+        raise InputError(
+            f"--show {text}: the {view} view is not in this version; accepted: catalogue, flake:ID, image"
+        )
+    raise InputError(
+        f"--show {text!r} is not a view; accepted: catalogue, flake:ID (a flake's name), image"
+    )
+
+
+def settle(app, seconds: float = 0.0, until=None) -> None:
+    """Process events (for ``seconds``, or until ``until()`` is true, at most 10 s)."""
+    from PySide6.QtCore import QThreadPool
+
+    end = time.perf_counter() + max(seconds, 0.0)
+    limit = time.perf_counter() + 10.0
+    while True:
+        app.processEvents()
+        done_waiting = time.perf_counter() >= end
+        if until is not None:
+            done_waiting = done_waiting and until()
+        if done_waiting or time.perf_counter() > limit:
+            break
+        QThreadPool.globalInstance().waitForDone(20)
+    app.processEvents()
+
+
+def run(
+    project: str | None = None,
+    *,
+    snapshot: str | None = None,
+    show: str | None = None,
+    read_only: bool = False,
+) -> int:
+    """Start the window (and the event loop), or render a snapshot and return."""
+    if snapshot is not None:
+        snap = Path(snapshot)
+        if snap.suffix.lower() != ".png":
+            raise InputError(
+                f"--snapshot {snapshot}: the snapshot is a PNG; accepted: a file name ending in .png"
+            )
+        if not snap.resolve().parent.is_dir():
+            raise InputError(
+                f"--snapshot {snapshot}: the folder {snap.resolve().parent} does not exist"
+            )
+    view, arg = parse_show(show)
+    _prepare_platform(offscreen=snapshot is not None)
+    from flakebook.gui.mainwindow import MainWindow, make_app
+
+    app = make_app([sys.argv[0]])
+    window = MainWindow()
+    if project is not None:
+        path = Path(project)
+        if not path.exists():
+            raise InputError(
+                f"{project}: no such project file; accepted: an existing .flakebook file"
+            )
+        if snapshot is not None:
+            window.open_project(path, read_only=True, ask=False)
+        else:
+            window._guard(lambda: window.open_project(path, read_only=read_only), "Open project")
+    if snapshot is None:
+        window.show()
+        if view != "image" or arg:
+            window._guard(lambda: show_view(window, view, arg), "Show")
+        return app.exec()
+    window.resize(1500, 920)
+    window.show()
+    show_view(window, view, arg)
+    settle(app, 0.3, until=lambda: not window.jobs.busy)
+    window.repaint()
+    image = window.grab()
+    if not image.save(str(snapshot), "PNG"):
+        raise InputError(f"--snapshot {snapshot}: could not write the PNG")
+    window.close()
+    return 0
+
+
+def show_view(window, view: str, arg: str | None) -> None:
+    """Put the window in the state ``--show`` names."""
+    if view == "catalogue":
+        window.tabs.setCurrentWidget(window.catalogue)
+    elif view == "flake":
+        if window.session is None:
+            raise InputError("--show flake:ID needs a project")
+        flake = window.session.project.find_flake(arg)
+        window.select_flake(flake.id, centre=True)
+        window.tabs.setCurrentWidget(window.canvas)
