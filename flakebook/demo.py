@@ -373,7 +373,7 @@ def build_demo(
     from flakebook.imaging.survey import survey_image
     from flakebook.optics.absorptance import absorptance
     from flakebook.optics.materials import get_material
-    from flakebook.optics.microscope import Microscope
+    from flakebook.pipeline import survey_options
     from flakebook.store import Project
 
     def report(frac: float, text: str) -> None:
@@ -431,7 +431,6 @@ def build_demo(
         for name in ("K7-north", "K7-south"):
             views.append(View(f"{name}_10x_overview", name, "10x", (0.0, 0.0), 1100, 760))
 
-        mic = Microscope(na_illumination=NA_ILLUMINATION)
         for k, view in enumerate(views):
             check_cancel(cancel)
             report(0.05 + 0.6 * k / len(views), f"rendering {view.name}")
@@ -455,19 +454,10 @@ def build_demo(
                 width_px=view.width_px,
                 height_px=view.height_px,
             )
-            holey = view.sample == "K7-south"
             result = survey_image(
                 file,
-                material=MATERIAL,
-                substrate=_substrate(),
-                microscope=mic,
-                scale_um_per_px=um_px,
+                **survey_options(project, samples[view.sample], image),
                 min_area_um2=20.0 if view.objective == "50x" else 30.0,
-                dark_offset=DARK_OFFSET,
-                oxide_err_nm=3.0,
-                find_holes=holey,
-                hole_radius_um=HOLE_DIAMETER_UM / 2 if holey else None,
-                hole=_hole() if holey else None,
             )
             _store_survey(project, image, view, result, flakes)
 

@@ -7,6 +7,7 @@ so a flake's evidence means the same whichever of them made it. No Qt here.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
@@ -54,32 +55,75 @@ def optics_hole(sample: Sample):
     return OpticsHole(bottom=hp.bottom, depth_nm=hp.depth_nm)
 
 
-def calibration_record(project: Project, sample: Sample, image: Image | None = None):
-    """The optics calibration that applies to an image: the newest one of that image, else the
-    newest one of its sample, else None."""
-    cals = project.calibrations_of(sample)
-    mine = [c for c in cals if image is not None and c.image_id == image.id]
-    return (mine or [c for c in cals if c.image_id is None] or [None])[-1]
+def calibration_values(project: Project, sample: Sample) -> dict | None:
+    """The sample's latest optics calibration as plain values (None without one)."""
+    cals = [c for c in project.calibrations_of(sample) if c.oxide_nm is not None]
+    if not cals:
+        return None
+    cal = cals[-1]
+    scale = list(cal.contrast_scale.values())
+    scale_err = list(cal.contrast_scale_err.values())
+    return {
+        "id": cal.id,
+        "oxide_nm": float(cal.oxide_nm),
+        "oxide_err_nm": float(cal.oxide_err_nm or 0.0),
+        "contrast_scale": float(sum(scale) / len(scale)) if scale else 1.0,
+        "contrast_scale_err": float(sum(scale_err) / len(scale_err)) if scale_err else 0.0,
+        "dark_offset": dict(cal.dark_offset),
+    }
 
 
-def calibration_of(project: Project, sample: Sample, image: Image | None = None) -> dict:
-    """The calibration that applies to an image (:func:`calibration_record`) as keyword
-    arguments for the survey and the layer likelihood (empty without one)."""
-    chosen = calibration_record(project, sample, image)
-    if chosen is None:
-        return {}
-    out: dict = {}
-    if chosen.dark_offset:
-        out["dark_offset"] = dict(chosen.dark_offset)
-    if chosen.oxide_err_nm is not None:
-        out["oxide_err_nm"] = float(chosen.oxide_err_nm)
-    scales = list((chosen.contrast_scale or {}).values())
-    errs = list((chosen.contrast_scale_err or {}).values())
-    if scales:
-        out["contrast_scale"] = float(sum(scales) / len(scales))
-    if errs:
-        out["contrast_scale_err"] = float(max(errs))
+def likelihood_options(cal: dict | None, substrate) -> tuple[dict, str]:
+    """layer_likelihood keywords for a calibration (from :func:`calibration_values`), and a
+    note saying which calibration was used."""
+    if cal is None:
+        return {"substrate": substrate}, ""
+    opts = {
+        "substrate": substrate.with_oxide(cal["oxide_nm"]),
+        "oxide_err_nm": cal["oxide_err_nm"],
+        "contrast_scale": cal["contrast_scale"],
+        "contrast_scale_err": cal["contrast_scale_err"],
+    }
+    note = (
+        f"calibrated oxide {cal['oxide_nm']:.1f}±{cal['oxide_err_nm']:.1f} nm "
+        f"(calibration {cal['id']})"
+    )
+    return opts, note
+
+
+def calibration_options(project: Project, sample: Sample, substrate) -> tuple[dict, str]:
+    """layer_likelihood keywords from the sample's latest optics calibration, and a note."""
+    return likelihood_options(calibration_values(project, sample), substrate)
+
+
+def survey_options(project: Project, sample: Sample, image: Image) -> dict:
+    """Keyword arguments for ``flakebook.imaging.survey.survey_image`` of an image of a sample:
+    material, (calibrated) substrate, microscope, hole, dark offset and the calibrated
+    uncertainties."""
+    material, substrate, microscope = optics_inputs(sample, image)
+    cal = calibration_values(project, sample)
+    opts, _ = likelihood_options(cal, substrate)
+    out = {
+        "material": material,
+        "microscope": microscope,
+        "hole": optics_hole(sample),
+        **opts,
+    }
+    if cal is not None and cal["dark_offset"]:
+        out["dark_offset"] = dict(cal["dark_offset"])
+    if image.pixel_size_um:
+        out["scale_um_per_px"] = float(image.pixel_size_um)
+    if sample.hole_pattern is not None:
+        out["hole_radius_um"] = sample.hole_pattern.diameter_um / 2.0
+    else:
+        out["find_holes"] = False
     return out
+
+
+def calibration_record(project: Project, sample: Sample):
+    """The calibration :func:`calibration_values` uses (None without one)."""
+    cals = [c for c in project.calibrations_of(sample) if c.oxide_nm is not None]
+    return cals[-1] if cals else None
 
 
 def link_by_stage(project: Project, image: Image, *, min_score: float = 0.5):
@@ -168,12 +212,25 @@ def store_survey(
     sample = project.get(Sample, image.sample_id)
     stack = format_substrate(sample.substrate)
     extra = dict(parameters or {})
-    calibration = calibration_record(project, sample, image)
+    calibration = calibration_record(project, sample)
     base_inputs = [sample, image] + ([calibration] if calibration is not None else [])
     out = StoredSurvey()
     with project.transaction():
         hole_ids: dict[int, int] = {}
+        existing = project.holes_of(image)
         for i, h in enumerate(result.holes):
+            near = next(
+                (
+                    e
+                    for e in existing
+                    if math.hypot(e.center_x_px - h.center_px[0], e.center_y_px - h.center_px[1])
+                    < 0.5 * h.radius_px
+                ),
+                None,
+            )
+            if near is not None:  # a hole this image already has (surveyed again)
+                hole_ids[i] = near.id
+                continue
             rec = project.add_hole(
                 image,
                 h.center_px,
@@ -231,6 +288,9 @@ def store_survey(
                                 "image_id": image.id,
                                 "decider": r.decider,
                                 "target_probability": r.target_probability,
+                                "substrate_level": {
+                                    k: float(v) for k, v in result.segmentation.substrate.items()
+                                },
                                 **extra,
                             },
                             source=OPTICS_SOURCE,
@@ -290,21 +350,22 @@ def _recompute_contrast(project: Project, rec: Evidence):
         raise InputError("the evidence does not name the image its contrast was measured in")
     img = project.get(Image, image_id)
     material, substrate, microscope = optics_inputs(sample, img)
-    kw = dict(calibration_of(project, sample, img))
-    kw.pop("dark_offset", None)  # already subtracted from the measured contrast
+    kw = {}
     if rec.parameters.get("geometry") == "suspended":
-        kw.update(geometry="suspended", hole=optics_hole(sample))
+        kw = {"geometry": "suspended", "hole": optics_hole(sample)}
+    opts, note = calibration_options(project, sample, substrate)
     lk = layer_likelihood(
         dict(rec.parameters["contrast"]),
         dict(rec.parameters.get("contrast_err") or {}) or None,
         material=material,
-        substrate=substrate,
         microscope=microscope,
         max_layers=rec.max_layers,
+        **opts,
         **kw,
     )
     params = dict(rec.parameters)
     params["decider"] = lk.decider
+    params["calibration"] = note or "none (nominal oxide)"
     return {
         "likelihood": lk.likelihood,
         "parameters": params,

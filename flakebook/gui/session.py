@@ -35,16 +35,21 @@ from flakebook.store import (
     ProjectLocked,
     Sample,
     Terrace,
-    register_recomputer,
 )
 from flakebook.substrate import format_substrate
 
 log = logging.getLogger("flakebook.gui")
 
 #: Methods of the derived records the window writes (and can recompute when stale).
-CONTRAST_METHOD = "optical contrast (thin-film model)"
-COMBINED_METHOD = "combined evidence"
-OPTICS_SOURCE = "optical constants of flakebook.optics.materials (see flakebook materials)"
+from flakebook.pipeline import (  # noqa: E402 - the shared recording of core results
+    COMBINED_METHOD,
+    CONTRAST_METHOD,
+    calibration_values,
+    likelihood_options,
+    optics_hole,
+    optics_inputs,
+)
+
 Undo = Callable[[], object]
 
 
@@ -67,70 +72,6 @@ class Shown:
 
 
 # ---- helpers on the core ---------------------------------------------------------------------
-
-
-def optics_inputs(sample: Sample, image: Image):
-    """(material, substrate, microscope) of the optics model for an image of a sample."""
-    from flakebook.optics.materials import get_material
-    from flakebook.optics.microscope import Illumination, Microscope
-    from flakebook.optics.substrate import parse_substrate
-
-    material = get_material(sample.material)
-    substrate = parse_substrate(format_substrate(sample.substrate))
-    illumination = (
-        Illumination.parse(image.illumination) if image.illumination else Illumination.halogen()
-    )
-    microscope = Microscope(
-        na_illumination=float(image.na_illumination or 0.0), illumination=illumination
-    )
-    return material, substrate, microscope
-
-
-def calibration_values(project: Project, sample: Sample) -> dict | None:
-    """The sample's latest optics calibration as plain values (None without one)."""
-    cals = [c for c in project.calibrations_of(sample) if c.oxide_nm is not None]
-    if not cals:
-        return None
-    cal = cals[-1]
-    scale = list(cal.contrast_scale.values())
-    scale_err = list(cal.contrast_scale_err.values())
-    return {
-        "id": cal.id,
-        "oxide_nm": float(cal.oxide_nm),
-        "oxide_err_nm": float(cal.oxide_err_nm or 0.0),
-        "contrast_scale": float(np.mean(scale)) if scale else 1.0,
-        "contrast_scale_err": float(np.mean(scale_err)) if scale_err else 0.0,
-        "dark_offset": dict(cal.dark_offset),
-    }
-
-
-def likelihood_options(cal: dict | None, substrate) -> tuple[dict, str]:
-    """layer_likelihood keywords for a calibration (from :func:`calibration_values`), and a note."""
-    if cal is None:
-        return {"substrate": substrate}, ""
-    opts = {
-        "substrate": substrate.with_oxide(cal["oxide_nm"]),
-        "oxide_err_nm": cal["oxide_err_nm"],
-        "contrast_scale": cal["contrast_scale"],
-        "contrast_scale_err": cal["contrast_scale_err"],
-    }
-    note = f"calibrated oxide {cal['oxide_nm']:.1f}±{cal['oxide_err_nm']:.1f} nm (calibration {cal['id']})"
-    return opts, note
-
-
-def calibration_options(project: Project, sample: Sample, substrate) -> tuple[dict, str]:
-    """layer_likelihood keywords from the sample's latest optics calibration, and a note."""
-    return likelihood_options(calibration_values(project, sample), substrate)
-
-
-def optics_hole(sample: Sample):
-    """The optics model's hole for a sample's hole pattern (None without one)."""
-    if sample.hole_pattern is None:
-        return None
-    from flakebook.optics.substrate import Hole as OpticsHole
-
-    hp = sample.hole_pattern
-    return OpticsHole(bottom=hp.bottom, depth_nm=hp.depth_nm)
 
 
 def _decode(data: bytes, name: str) -> np.ndarray:
@@ -1282,89 +1223,19 @@ class Session:
         return undo
 
     def store_survey(self, image_id: int, result) -> Undo:
-        """Write a survey's flakes, terraces, evidence, assignments, holes and coverage."""
+        """Write a survey's flakes, terraces, evidence, assignments, holes and coverage
+        (``flakebook.pipeline.store_survey``: the same records the command line writes)."""
+        from flakebook.pipeline import store_survey
+
         p = self.project
         img = self._get(Image, image_id)
         sample = p.get(Sample, img.sample_id)
-        made_flakes: list[int] = []
-        made_holes: list[int] = []
-        by_region = {r.region.id: r for r in result.regions}
-        with p.transaction():
-            hole_ids: dict[int, int] = {}
-            existing = p.holes_of(img)
-            for i, h in enumerate(result.holes):
-                near = next(
-                    (
-                        e
-                        for e in existing
-                        if np.hypot(e.center_x_px - h.center_px[0], e.center_y_px - h.center_px[1])
-                        < 0.5 * h.radius_px
-                    ),
-                    None,
-                )
-                if near is not None:
-                    hole_ids[i] = near.id
-                    continue
-                rec = p.add_hole(
-                    img,
-                    h.center_px,
-                    h.radius_px,
-                    radius_um=h.radius_um,
-                    radius_err_um=h.radius_err_um,
-                    source="detected" if h.detected else "predicted",
-                )
-                hole_ids[i] = rec.id
-                made_holes.append(rec.id)
-            for fl in result.flakes:
-                flake = p.add_flake(sample, self.next_label(sample))
-                self._born("flake", flake.id)
-                made_flakes.append(flake.id)
-                app = p.add_appearance(flake, img, fl.outline_px)
-                for rid in fl.region_ids:
-                    sr = by_region.get(rid)
-                    if sr is None:
-                        continue
-                    reg = sr.region
-                    ter = p.add_terrace(app, reg.outline_px, label=f"T{rid}")
-                    if sr.likelihood is None:
-                        continue
-                    ev = p.add_evidence(
-                        flake,
-                        sr.likelihood,
-                        method=CONTRAST_METHOD,
-                        terrace=ter,
-                        inputs=[sample, img, ter],
-                        parameters={
-                            "contrast": dict(reg.contrast),
-                            "contrast_err": dict(reg.contrast_err),
-                            "geometry": sr.geometry,
-                            "image_id": img.id,
-                            "decider": sr.decider,
-                            "substrate_level": {
-                                k: float(v) for k, v in result.segmentation.substrate.items()
-                            },
-                            "target_probability": sr.target_probability,
-                        },
-                        source=OPTICS_SOURCE,
-                        reason=_contrast_reason(
-                            reg.contrast,
-                            reg.contrast_err,
-                            sr.geometry,
-                            format_substrate(sample.substrate),
-                        ),
-                    )
-                    self._add_combined(flake.id, ter.id, [ev])
-                for cov in (c for c in result.coverage if c.flake_id == fl.id):
-                    hid = hole_ids.get(cov.hole_index)
-                    if hid is not None and cov.coverage.covered_fraction > 0:
-                        c = cov.coverage
-                        p.link_flake_hole(
-                            flake,
-                            hid,
-                            covered_fraction=c.covered_fraction,
-                            fully_covered=c.fully_covered,
-                            margin_um=c.margin_um,
-                        )
+        # Each new flake is stored before the next label is drawn, so labels never repeat.
+        stored = store_survey(p, img, result, new_label=lambda: self.next_label(sample))
+        for fid in stored.new_flakes:
+            self._born("flake", fid)
+        made_flakes = list(stored.new_flakes)
+        made_holes = list(stored.holes)
 
         def undo():
             with p.transaction():
@@ -1378,23 +1249,6 @@ class Session:
                         p.delete(Hole, rid)
 
         return undo
-
-    def _add_combined(
-        self, flake_id: int, terrace_id: int | None, evidence: list[Evidence]
-    ) -> Assignment:
-        from flakebook.evidence import combine
-
-        post = combine([e.likelihood for e in evidence])
-        return self.project.add_assignment(
-            flake_id,
-            int(post.layers),
-            terrace_id=terrace_id,
-            probability=float(post.probability),
-            ambiguous_with=tuple(int(n) for n in post.ambiguous_with),
-            posterior=post.posterior,
-            method=COMBINED_METHOD,
-            inputs=list(evidence),
-        )
 
     def candidates(self, target_layers: Sequence[int]) -> list[dict]:
         """Flakes ranked by the probability that their layer number is in ``target_layers``."""
@@ -1523,66 +1377,5 @@ class HoleResult:
     holes: tuple
     lattice: object | None
 
-
-def _contrast_reason(contrast: dict, err: dict, geometry: str, stack: str) -> str:
-    parts = [f"{ch} {c:+.3f}±{err.get(ch, 0):.2g}" for ch, c in contrast.items()]
-    where = "over a hole (suspended model)" if geometry == "suspended" else "on the substrate"
-    return f"contrast {', '.join(parts)} {where}, against the thin-film model of {stack}"
-
-
-# ---- recomputing stale records the window wrote ------------------------------------------------
-
-
-def _recompute_contrast(project: Project, rec: Evidence):
-    from flakebook.optics.layers import layer_likelihood
-
-    sample = project.get(Sample, project.get(Flake, rec.flake_id).sample_id)
-    img = project.get(Image, rec.parameters.get("image_id"))
-    material, substrate, microscope = optics_inputs(sample, img)
-    kw = {}
-    if rec.parameters.get("geometry") == "suspended":
-        kw = {"geometry": "suspended", "hole": optics_hole(sample)}
-    opts, note = calibration_options(project, sample, substrate)
-    lk = layer_likelihood(
-        dict(rec.parameters["contrast"]),
-        dict(rec.parameters.get("contrast_err") or {}) or None,
-        material=material,
-        microscope=microscope,
-        max_layers=rec.max_layers,
-        **opts,
-        **kw,
-    )
-    params = dict(rec.parameters)
-    params["decider"] = lk.decider
-    params["calibration"] = note or "none (nominal oxide)"
-    return {
-        "likelihood": lk.likelihood,
-        "parameters": params,
-        "reason": _contrast_reason(
-            params["contrast"],
-            params.get("contrast_err") or {},
-            params.get("geometry", "supported"),
-            format_substrate(sample.substrate),
-        ),
-    }
-
-
-def _recompute_combined(project: Project, rec: Assignment):
-    from flakebook.evidence import combine
-
-    evidence = [project.get(Evidence, ref.id) for ref in rec.inputs if ref.kind == "evidence"]
-    if not evidence:
-        raise InputError("the assignment names no evidence to combine")
-    post = combine([e.likelihood for e in evidence])
-    return {
-        "layers": int(post.layers),
-        "probability": float(post.probability),
-        "ambiguous_with": tuple(int(n) for n in post.ambiguous_with),
-        "posterior": post.posterior,
-    }
-
-
-register_recomputer(CONTRAST_METHOD, _recompute_contrast)
-register_recomputer(COMBINED_METHOD, _recompute_combined)
 
 __all__ = ["Session", "ProjectBusy", "Shown", "HoleResult", "CONTRAST_METHOD", "COMBINED_METHOD"]

@@ -32,7 +32,8 @@ N_FLAKES = 40
 
 def build(folder: Path) -> Path:
     from flakebook.evidence import combine
-    from flakebook.gui.session import COMBINED_METHOD, CONTRAST_METHOD, Session
+    from flakebook.gui.session import Session
+    from flakebook.pipeline import COMBINED_METHOD, CONTRAST_METHOD
     from flakebook.store import Project
 
     rng = np.random.default_rng(7)

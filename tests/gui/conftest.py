@@ -38,16 +38,31 @@ def _polygon_mask(poly, shape) -> np.ndarray:
     return mask.astype(bool)
 
 
-def draw_micrograph(path: Path, contrast_of: dict[int, np.ndarray], seed: int = 3) -> None:
-    """A PNG of the chip: flakes darker by the model contrast, holes darker still, noise."""
+def draw_micrograph(
+    path: Path,
+    contrast_of: dict[int, np.ndarray],
+    seed: int = 3,
+    suspended_of: dict[int, np.ndarray] | None = None,
+) -> None:
+    """A PNG of the chip: each pixel is the substrate level times (1 - C) with C the model
+    contrast of what is there (flake of N layers, supported or over a hole; a bare hole is
+    N = 0 over a hole), plus 1% noise. Without ``suspended_of`` holes are simply darker."""
     rng = np.random.default_rng(seed)
-    lin = np.broadcast_to(SUBSTRATE_LINEAR, (*SIZE, 3)).copy()
-    yy, xx = np.mgrid[0 : SIZE[0], 0 : SIZE[1]]
-    for x, y, r in HOLES:
-        lin[(xx - x) ** 2 + (yy - y) ** 2 <= r * r] *= 0.45
+    layer_map = np.zeros(SIZE, int)
     for layers, poly in FLAKES.values():
-        m = _polygon_mask(poly, SIZE)
-        lin[m] *= 1.0 - np.clip(contrast_of[layers], -0.9, 0.9)
+        layer_map[_polygon_mask(poly, SIZE)] = layers
+    yy, xx = np.mgrid[0 : SIZE[0], 0 : SIZE[1]]
+    in_hole = np.zeros(SIZE, bool)
+    for x, y, r in HOLES:
+        in_hole |= (xx - x) ** 2 + (yy - y) ** 2 <= r * r
+    zero = np.zeros(3)
+    sup = np.array([contrast_of.get(n, zero) for n in range(0, 4)])
+    lin = SUBSTRATE_LINEAR * (1.0 - sup[layer_map])
+    if suspended_of is not None:
+        sus = np.array([suspended_of[n] for n in range(0, 4)])
+        lin[in_hole] = (SUBSTRATE_LINEAR * (1.0 - sus[layer_map]))[in_hole]
+    else:
+        lin[in_hole] *= 0.45
     lin *= 1.0 + rng.normal(0, 0.01, lin.shape)
     rgb = np.round(_srgb(lin) * 255).astype(np.uint8)
     cv2.imwrite(str(path), cv2.cvtColor(rgb, cv2.COLOR_RGB2BGR))
@@ -56,15 +71,16 @@ def draw_micrograph(path: Path, contrast_of: dict[int, np.ndarray], seed: int = 
 def build_project(folder: Path) -> Path:
     """The small project, through flakebook.store.Project and the window's session."""
     from flakebook.evidence import combine
-    from flakebook.gui.session import (
+    from flakebook.gui.session import Session
+    from flakebook.optics.layers import layer_likelihood
+    from flakebook.optics.microscope import channel_contrast
+    from flakebook.pipeline import (
         COMBINED_METHOD,
         CONTRAST_METHOD,
         OPTICS_SOURCE,
-        Session,
+        optics_hole,
         optics_inputs,
     )
-    from flakebook.optics.layers import layer_likelihood
-    from flakebook.optics.microscope import channel_contrast
     from flakebook.store import Project
 
     path = folder / "q3.flakebook"
@@ -81,7 +97,12 @@ def build_project(folder: Path) -> Path:
     material, substrate, microscope = optics_inputs(sample, img_stub)
     table = channel_contrast(material, range(1, 4), substrate, microscope)
     contrast_of = {n: table.contrast[n - 1] for n in (1, 2, 3)}
-    draw_micrograph(image_file, contrast_of)
+    over = channel_contrast(
+        material, range(0, 4), substrate, microscope, "suspended", optics_hole(sample)
+    )
+    draw_micrograph(
+        image_file, contrast_of, suspended_of={n: over.contrast[n] for n in range(0, 4)}
+    )
     img = p.add_image(
         sample,
         image_file,

@@ -427,7 +427,9 @@ def test_calibrate_from_known_flakes_then_recompute(qtbot, window):
     qtbot.waitUntil(lambda: job.done.is_set() and not window.jobs.busy, timeout=20000)
     found = p.flakes_of(1)[n0:]
     known = [f for f in found if p.latest_assignment(f).layers in (1, 3)]
-    assert len(known) == 2
+    assert len(known) == 2, [
+        (f.label, p.latest_assignment(f).layers, p.latest_assignment(f).probability) for f in found
+    ]
     for f in known:
         window.assign(f.id, p.latest_assignment(f).layers, "known from its PL peak")
     job = window.calibrate(1, "")
