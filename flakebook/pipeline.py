@@ -204,8 +204,9 @@ def store_survey(
     ``flake_for`` returns None and there is no ``new_label`` are skipped. Regions become terraces
     (a suspended region and the supported region around its hole are one terrace: same
     thickness), each region's likelihood a piece of contrast evidence on its terrace, and with
-    ``assign`` the flake gets an assignment combining its primary terrace's evidence (the
-    terrace over a hole if any, else the largest). Holes and flake-hole coverage are recorded.
+    ``assign`` each terrace gets an assignment combining its evidence (the flake's layer number
+    is its primary terrace's: over a hole if any, else the largest). Holes and flake-hole
+    coverage (with the terrace over each hole) are recorded.
     """
     from flakebook.imaging.terraces import terrace_groups
 
@@ -312,11 +313,12 @@ def store_survey(
                     margin_um=c.margin_um,
                     terrace_id=terrace_over.get(link.hole_index),
                 )
-            if assign and terraces:
-                # The flake's primary terrace (DESIGN.md: over a hole if any, else the largest).
-                primary = project.primary_terrace_id(flake)
+            if assign:
+                # Every terrace gets the layer number its evidence gives; the flake's is that of
+                # its primary terrace (DESIGN.md: over a hole if any, else the largest), which
+                # the catalogue picks.
                 for terrace, evidence in terraces:
-                    if terrace.id == primary and evidence:
+                    if evidence:
                         out.assignments.append(add_combined(project, flake, terrace, evidence).id)
     return out
 
