@@ -170,7 +170,7 @@ def link_by_stage(project: Project, image: Image, *, min_score: float = 0.5):
 
 def contrast_reason(contrast: dict, contrast_err: dict, geometry: str, stack: str) -> str:
     """One line saying what a contrast likelihood was computed from."""
-    parts = [f"{ch} {c:+.3f}±{contrast_err.get(ch, 0):.3f}" for ch, c in contrast.items()]
+    parts = [f"{ch} {c:+.3f}±{contrast_err.get(ch, 0):.2g}" for ch, c in contrast.items()]
     where = "over a hole (suspended model)" if geometry == "suspended" else "on the substrate"
     return f"contrast {', '.join(parts)} {where}, against the thin-film model of {stack}"
 
