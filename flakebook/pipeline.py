@@ -112,12 +112,27 @@ def survey_options(project: Project, sample: Sample, image: Image) -> dict:
     if cal is not None and cal["dark_offset"]:
         out["dark_offset"] = dict(cal["dark_offset"])
     if image.pixel_size_um:
-        out["scale_um_per_px"] = float(image.pixel_size_um)
+        out["scale_um_per_px"] = image_scale(image)
     if sample.hole_pattern is not None:
         out["hole_radius_um"] = sample.hole_pattern.diameter_um / 2.0
     else:
         out["find_holes"] = False
     return out
+
+
+def image_scale(image: Image):
+    """The image's scale (``flakebook.imaging.scale.Scale``) with its uncertainty: the one
+    recorded with the image (``camera["pixel_size_err_um"]``), else the relative uncertainty of
+    the objective preset of that name when the pixel size is the preset's, else none."""
+    from flakebook.imaging.scale import given_scale, load_objectives
+
+    um = float(image.pixel_size_um)
+    err = (image.camera or {}).get("pixel_size_err_um")
+    if err is None and image.objective:
+        preset = load_objectives().get(image.objective)
+        if preset is not None and math.isclose(preset.um_per_px, um, rel_tol=1e-6):
+            err = preset.um_per_px_err
+    return given_scale(um, float(err or 0.0))
 
 
 def calibration_record(project: Project, sample: Sample):

@@ -1011,25 +1011,15 @@ class Session:
         """Work finding flakes, terraces and holes with their layer evidence
         (flakebook.imaging.survey.survey_image)."""
         from flakebook.imaging.survey import survey_image
+        from flakebook.pipeline import survey_options
 
         img, sample = self._survey_inputs(image_id)
-        material, substrate, microscope = optics_inputs(sample, img)
         micro = self._micro_fn(image_id)
-        hp = sample.hole_pattern
-        cal = calibration_values(self.project, sample)
-        opts, _note = likelihood_options(cal, substrate)
-        if cal is not None and cal["dark_offset"]:
-            opts["dark_offset"] = cal["dark_offset"]
+        # The same settings the command line and the demo use (calibration, scale error, hole).
         kw = dict(
-            material=material,
-            microscope=microscope,
-            **opts,
-            scale_um_per_px=img.pixel_size_um,
+            survey_options(self.project, sample, img),
             target_layers=tuple(target_layers or (1, 2, 3)),
             max_layers=self.project.max_layers,
-            find_holes=hp is not None,
-            hole_radius_um=0.5 * hp.diameter_um if hp else None,
-            hole=optics_hole(sample),
         )
 
         def run(progress=None, cancel=None):
