@@ -23,6 +23,7 @@ from PySide6.QtGui import QBrush, QColor, QPainterPath, QPen, QPolygonF
 from PySide6.QtWidgets import QGraphicsEllipseItem, QGraphicsPathItem, QLabel
 
 from flakebook.gui import palette
+from flakebook.render.flakecard import nice_length_um
 
 pg.setConfigOptions(imageAxisOrder="row-major", antialias=False)
 
@@ -185,21 +186,10 @@ class ScaleBarItem(pg.ScaleBar):
             return
         (x0, x1), _ = view.viewRange()
         width_um = abs(x1 - x0) * self.um_per_px
-        self.size = nice_length(width_um / 5.0) / self.um_per_px
+        self.size = nice_length_um(width_um / 5.0) / self.um_per_px
         length_um = self.size * self.um_per_px
         self.text.setText(format_um(length_um))
         super().updateBar()
-
-
-def nice_length(value: float) -> float:
-    """The largest of 1, 2, 5 x 10^k not above ``value`` (value > 0)."""
-    if not value > 0 or not math.isfinite(value):
-        return 1.0
-    k = math.floor(math.log10(value))
-    for m in (5, 2, 1):
-        if m * 10**k <= value:
-            return m * 10**k
-    return 10**k
 
 
 def format_um(length_um: float) -> str:

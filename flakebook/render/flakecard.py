@@ -17,12 +17,11 @@ from flakebook.errors import InputError
 from flakebook.render.palette import HOLE_COLOUR, layer_hex
 from flakebook.store import Appearance, Flake, Image, Project
 
-_APP: list = []  # keeps an application made here alive
-
 
 def nice_length_um(target_um: float) -> float:
-    """A round scale-bar length (1, 2 or 5 times a power of ten) close to ``target_um``."""
-    if not target_um > 0:
+    """The largest round scale-bar length (1, 2 or 5 times a power of ten) not above
+    ``target_um``; 1 for a value that is not a positive number."""
+    if not target_um > 0 or not math.isfinite(target_um):
         return 1.0
     e = math.floor(math.log10(target_um))
     for m in (5.0, 2.0, 1.0):
@@ -177,13 +176,9 @@ def flake_card(
 
 def save_flake_card(project: Project, flake: Flake | str, path: str | Path, **kw) -> Path:
     """Write a flake card as PNG; returns the path."""
-    from PySide6.QtGui import QGuiApplication
+    from flakebook.render.export import ensure_app
 
-    if QGuiApplication.instance() is None:
-        import os
-
-        os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-        _APP.append(QGuiApplication([]))
+    ensure_app()
     path = Path(path)
     if path.suffix.lower() != ".png":
         raise InputError(f"{path.name}: a flake card is a PNG; accepted: a name ending in .png")
