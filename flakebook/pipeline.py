@@ -16,6 +16,7 @@ from flakebook.store import (
     Assignment,
     Evidence,
     Flake,
+    Hole,
     Image,
     Project,
     Sample,
@@ -89,11 +90,6 @@ def likelihood_options(cal: dict | None, substrate) -> tuple[dict, str]:
         f"(calibration {cal['id']})"
     )
     return opts, note
-
-
-def calibration_options(project: Project, sample: Sample, substrate) -> tuple[dict, str]:
-    """layer_likelihood keywords from the sample's latest optics calibration, and a note."""
-    return likelihood_options(calibration_values(project, sample), substrate)
 
 
 def survey_options(project: Project, sample: Sample, image: Image) -> dict:
@@ -235,28 +231,10 @@ def store_survey(
         hole_ids: dict[int, int] = {}
         existing = project.holes_of(image)
         for i, h in enumerate(result.holes):
-            near = next(
-                (
-                    e
-                    for e in existing
-                    if math.hypot(e.center_x_px - h.center_px[0], e.center_y_px - h.center_px[1])
-                    < 0.5 * h.radius_px
-                ),
-                None,
-            )
-            if near is not None:  # a hole this image already has (surveyed again)
-                hole_ids[i] = near.id
-                continue
-            rec = project.add_hole(
-                image,
-                h.center_px,
-                h.radius_px,
-                radius_um=h.radius_um,
-                radius_err_um=h.radius_err_um,
-                source="detected" if h.detected else "lattice",
-            )
+            rec, new = record_hole(project, image, h, existing)
             hole_ids[i] = rec.id
-            out.holes.append(rec.id)
+            if new:
+                out.holes.append(rec.id)
         by_id = {r.region.id: r for r in result.regions}
         groups = terrace_groups(result)
         for sf in result.flakes:
@@ -338,6 +316,58 @@ def store_survey(
     return out
 
 
+def record_hole(project: Project, image: Image, hole, existing=()) -> tuple[Hole, bool]:
+    """Record a hole found in ``image`` (a ``flakebook.imaging.holes.Hole``), unless one of
+    ``existing`` (the image's hole records) lies within half its radius: the image surveyed
+    again. Returns the record and whether it is new."""
+    cx, cy = hole.center_px
+    for e in existing:
+        if math.hypot(e.center_x_px - cx, e.center_y_px - cy) < 0.5 * hole.radius_px:
+            return e, False
+    rec = project.add_hole(
+        image,
+        hole.center_px,
+        hole.radius_px,
+        radius_um=hole.radius_um,
+        radius_err_um=hole.radius_err_um,
+        source="detected" if hole.detected else "lattice",
+    )
+    return rec, True
+
+
+def contrast_likelihood(
+    sample: Sample,
+    image: Image,
+    calibration: dict | None,
+    contrast: dict,
+    contrast_err: dict | None,
+    *,
+    geometry: str = "supported",
+    max_layers: int = 15,
+    explain: bool = True,
+):
+    """The layer likelihood (``flakebook.optics.layers.layer_likelihood``) of a contrast
+    measured in ``image`` of ``sample``, with the calibration values of
+    :func:`calibration_values` (or None); returns it and the calibration note. Reads no
+    project, so it can run in a worker thread."""
+    from flakebook.optics.layers import layer_likelihood
+
+    material, substrate, microscope = optics_inputs(sample, image)
+    kw = {"geometry": "suspended", "hole": optics_hole(sample)} if geometry == "suspended" else {}
+    opts, note = likelihood_options(calibration, substrate)
+    lk = layer_likelihood(
+        dict(contrast),
+        dict(contrast_err or {}) or None,
+        material=material,
+        microscope=microscope,
+        max_layers=max_layers,
+        explain=explain,
+        **opts,
+        **kw,
+    )
+    return lk, note
+
+
 def add_combined(project: Project, flake, terrace, evidence: list[Evidence]) -> Assignment:
     """A computed assignment of a terrace from its evidence (flat prior)."""
     from flakebook.evidence import combine
@@ -359,26 +389,19 @@ def add_combined(project: Project, flake, terrace, evidence: list[Evidence]) -> 
 
 
 def _recompute_contrast(project: Project, rec: Evidence):
-    from flakebook.optics.layers import layer_likelihood
-
     sample = project.get(Sample, project.get(Flake, rec.flake_id).sample_id)
     image_id = rec.parameters.get("image_id")
     if image_id is None:
         raise InputError("the evidence does not name the image its contrast was measured in")
     img = project.get(Image, image_id)
-    material, substrate, microscope = optics_inputs(sample, img)
-    kw = {}
-    if rec.parameters.get("geometry") == "suspended":
-        kw = {"geometry": "suspended", "hole": optics_hole(sample)}
-    opts, note = calibration_options(project, sample, substrate)
-    lk = layer_likelihood(
-        dict(rec.parameters["contrast"]),
-        dict(rec.parameters.get("contrast_err") or {}) or None,
-        material=material,
-        microscope=microscope,
+    lk, note = contrast_likelihood(
+        sample,
+        img,
+        calibration_values(project, sample),
+        rec.parameters["contrast"],
+        rec.parameters.get("contrast_err"),
+        geometry=rec.parameters.get("geometry", "supported"),
         max_layers=rec.max_layers,
-        **opts,
-        **kw,
     )
     params = dict(rec.parameters)
     params["decider"] = lk.decider

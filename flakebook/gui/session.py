@@ -45,9 +45,9 @@ from flakebook.pipeline import (  # noqa: E402 - the shared recording of core re
     COMBINED_METHOD,
     CONTRAST_METHOD,
     calibration_values,
-    likelihood_options,
-    optics_hole,
+    contrast_likelihood,
     optics_inputs,
+    record_hole,
 )
 
 Undo = Callable[[], object]
@@ -1041,21 +1041,15 @@ class Session:
         cal = calibration_values(self.project, sample)
 
         def run(progress=None, cancel=None):
-            from flakebook.optics.layers import layer_likelihood
-
-            material, substrate, microscope = optics_inputs(sample, img)
-            kw = {"geometry": "suspended", "hole": optics_hole(sample)} if suspended else {}
-            opts, _note = likelihood_options(cal, substrate)
             check_cancel(cancel)
-            lk = layer_likelihood(
+            lk, _note = contrast_likelihood(
+                sample,
+                img,
+                cal,
                 contrast,
                 err,
-                material=material,
-                microscope=microscope,
+                geometry="suspended" if suspended else "supported",
                 max_layers=nmax,
-                explain=True,
-                **opts,
-                **kw,
             )
             out = {
                 ch: np.asarray(lk.model_contrast[:, j], float) for j, ch in enumerate(lk.channels)
@@ -1275,20 +1269,9 @@ class Session:
         with p.transaction():
             existing = p.holes_of(img)
             for h in result.holes:
-                if any(
-                    np.hypot(e.center_x_px - h.center_px[0], e.center_y_px - h.center_px[1])
-                    < 0.5 * h.radius_px
-                    for e in existing
-                ):
+                rec, new = record_hole(p, img, h, existing)
+                if not new:
                     continue
-                rec = p.add_hole(
-                    img,
-                    h.center_px,
-                    h.radius_px,
-                    radius_um=h.radius_um,
-                    radius_err_um=h.radius_err_um,
-                    source="detected" if h.detected else "predicted",
-                )
                 made.append(rec.id)
                 self._update_coverage_for_hole(rec)
 
