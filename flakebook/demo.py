@@ -541,6 +541,26 @@ def _add_spectra(project, folder: Path, flakes, rng) -> None:
         )  # fmt: skip
 
 
+def _draw_series(project, folder: Path, flake, series, n, rng, steps, *, shift, name, power_mw,
+                 temperature_k) -> tuple[float, float]:  # fmt: skip
+    """Draw, write and store one Raman spectrum per step of a series (the A1g shifted by
+    ``shift(step)``); returns the weighted slope of the fitted A1g centre against the steps."""
+    centres, errs = [], []
+    for k, step in enumerate(steps):
+        x, y = raman_spectrum(n, rng, a1g_shift_cm1=shift(step))
+        file = name(k, step)
+        _write_spectrum(folder / "spectra" / file, x, y, "cm-1")
+        project.add_spectrum(
+            flake, x, y, kind="raman", x_unit="cm-1", laser_nm=LASER_NM,
+            power_mw=power_mw(step), stage_temperature_k=temperature_k(step), integration_s=60.0,
+            series_id=series.id, source_path=f"spectra/{file}", metadata={"step": k},
+        )  # fmt: skip
+        c, e = _fit_peak_centre(x, y, 225.0, 262.0)
+        centres.append(c)
+        errs.append(e)
+    return _slope(steps, np.array(centres), np.array(errs))
+
+
 def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptance) -> None:
     """Temperature and power series of the suspended flakes, and a first kappa estimate.
 
@@ -573,40 +593,26 @@ def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptan
             hole_id=hole_id, notes="stage heated in a nitrogen-flushed cell; 0.05 mW probe",
         )  # fmt: skip
         temps = np.array([295.0, 315.0, 335.0, 355.0, 375.0])
-        centres, errs = [], []
-        for k, temp in enumerate(temps):
-            x, y = raman_spectrum(n, rng, a1g_shift_cm1=CHI_T_CM1_PER_K * (temp - 295.0))
-            name = f"{label}_T{int(temp)}K.csv"
-            _write_spectrum(folder / "spectra" / name, x, y, "cm-1")
-            project.add_spectrum(
-                flake, x, y, kind="raman", x_unit="cm-1", laser_nm=LASER_NM, power_mw=0.05,
-                stage_temperature_k=float(temp), integration_s=60.0, series_id=ts.id,
-                source_path=f"spectra/{name}", metadata={"step": k},
-            )  # fmt: skip
-            c, e = _fit_peak_centre(x, y, 225.0, 262.0)
-            centres.append(c)
-            errs.append(e)
-        chi_t, chi_t_err = _slope(temps, np.array(centres), np.array(errs))
+        chi_t, chi_t_err = _draw_series(
+            project, folder, flake, ts, n, rng, temps,
+            shift=lambda temp: CHI_T_CM1_PER_K * (temp - 295.0),
+            name=lambda k, temp, label=label: f"{label}_T{int(temp)}K.csv",
+            power_mw=lambda temp: 0.05,
+            temperature_k=float,
+        )  # fmt: skip
 
         ps = project.add_thermometry_series(
             flake, "power", laser_nm=LASER_NM, mode="A1g", beam_profile_id=beam.id,
             hole_id=hole_id, notes="power ramped up then down at 295 K",
         )  # fmt: skip
         powers = np.array([0.1, 0.2, 0.3, 0.4, 0.5, 0.4, 0.2])
-        pc, pe = [], []
-        for k, p in enumerate(powers):
-            x, y = raman_spectrum(n, rng, a1g_shift_cm1=chi_p_true * p)
-            name = f"{label}_P{k:02d}_{int(round(p * 1000))}uW.csv"
-            _write_spectrum(folder / "spectra" / name, x, y, "cm-1")
-            project.add_spectrum(
-                flake, x, y, kind="raman", x_unit="cm-1", laser_nm=LASER_NM, power_mw=float(p),
-                stage_temperature_k=295.0, integration_s=60.0, series_id=ps.id,
-                source_path=f"spectra/{name}", metadata={"step": k},
-            )  # fmt: skip
-            c, e = _fit_peak_centre(x, y, 225.0, 262.0)
-            pc.append(c)
-            pe.append(e)
-        chi_p, chi_p_err = _slope(powers, np.array(pc), np.array(pe))
+        chi_p, chi_p_err = _draw_series(
+            project, folder, flake, ps, n, rng, powers,
+            shift=lambda p, chi=chi_p_true: chi * p,
+            name=lambda k, p, label=label: f"{label}_P{k:02d}_{int(round(p * 1000))}uW.csv",
+            power_mw=float,
+            temperature_k=lambda p: 295.0,
+        )  # fmt: skip
 
         geom = math.log(radius_um / BEAM_RADIUS_UM) + 0.5772156649
         kappa = chi_t * a * geom / (2 * math.pi * t_m * chi_p * 1e3)
