@@ -541,6 +541,16 @@ def _add_spectra(project, folder: Path, flakes, rng) -> None:
         )  # fmt: skip
 
 
+EULER_GAMMA = 0.5772156649015329
+
+
+def disk_geometry_factor(hole_radius_um: float, beam_radius_um: float) -> float:
+    """2 pi kappa t R_m for a suspended disk of radius R with its edge at the sink, heated by
+    a Gaussian beam of 1/e^2 radius W, the temperature read as the intensity-weighted mean:
+    ln(R/W) + gamma/2 (REFERENCES.md; better than 1e-6 for R/W >= 5)."""
+    return math.log(hole_radius_um / beam_radius_um) + EULER_GAMMA / 2
+
+
 def _draw_series(project, folder: Path, flake, series, n, rng, steps, *, shift, name, power_mw,
                  temperature_k) -> tuple[float, float]:  # fmt: skip
     """Draw, write and store one Raman spectrum per step of a series (the A1g shifted by
@@ -564,9 +574,10 @@ def _draw_series(project, folder: Path, flake, series, n, rng, steps, *, shift, 
 def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptance) -> None:
     """Temperature and power series of the suspended flakes, and a first kappa estimate.
 
-    The power series are drawn from the Gaussian-beam disk result of REFERENCES.md (the
-    intensity-weighted temperature rise R_m = [ln(R/W) + gamma/2] / (2 pi kappa t) per absorbed
-    watt) with an invented kappa; the estimate inverts the same formula from fitted A1g centres.
+    The power series are drawn from the Gaussian-beam disk result (:func:`disk_geometry_factor`:
+    the intensity-weighted temperature rise R_m = [ln(R/W) + gamma/2] / (2 pi kappa t) per
+    absorbed watt) with an invented kappa; the estimate inverts the same formula from fitted A1g
+    centres.
     """
     beam = project.add_beam_profile(
         "100x", LASER_NM, BEAM_RADIUS_UM, radius_err_um=0.03, method="knife-edge scan",
@@ -583,9 +594,8 @@ def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptan
         a = absorptance(
             mat, n, LASER_NM, _substrate(), geometry="suspended", hole=_hole(), na_objective=0.5
         ).absorptance_flake
-        r_m = (math.log(radius_um / BEAM_RADIUS_UM) + 0.5772156649) / (
-            2 * math.pi * kappa_true * t_m
-        )
+        geom = disk_geometry_factor(radius_um, BEAM_RADIUS_UM)
+        r_m = geom / (2 * math.pi * kappa_true * t_m)
         chi_p_true = CHI_T_CM1_PER_K * a * r_m * 1e-3  # cm^-1 per mW incident
 
         ts = project.add_thermometry_series(
@@ -614,7 +624,6 @@ def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptan
             temperature_k=lambda p: 295.0,
         )  # fmt: skip
 
-        geom = math.log(radius_um / BEAM_RADIUS_UM) + 0.5772156649
         kappa = chi_t * a * geom / (2 * math.pi * t_m * chi_p * 1e3)
         rel = math.hypot(chi_t_err / chi_t, chi_p_err / chi_p)
         project.add_thermometry_result(
