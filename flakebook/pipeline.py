@@ -163,14 +163,13 @@ def link_by_stage(project: Project, image: Image, *, min_score: float = 0.5):
 
     if not placed(image):
         return lambda survey_flake: None
-    candidates = []
-    for other in project.images_of(image.sample_id):
-        if other.id == image.id or not placed(other):
-            continue
-        for flake in project.flakes_of(image.sample_id):
-            for app in project.appearances_of(flake):
-                if app.image_id == other.id:
-                    candidates.append((flake.id, chip(other, app.outline_px)))
+    others = {o.id: o for o in project.images_of(image.sample_id) if o.id != image.id and placed(o)}
+    candidates = [
+        (flake.id, chip(others[app.image_id], app.outline_px))
+        for flake in project.flakes_of(image.sample_id)
+        for app in project.appearances_of(flake)
+        if app.image_id in others
+    ]
 
     def flake_for(survey_flake):
         got = suggest_links(chip(image, survey_flake.outline_px), candidates, min_score=min_score)
