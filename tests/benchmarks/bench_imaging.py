@@ -7,7 +7,7 @@
 2. 100 five-megapixel tiles (2736 x 1824 PNG) surveyed by the command line's folder path with two
    worker processes: target under 60 s on 2 cores (the ratio to 100 decodes is printed too).
 
-Run: PYTHONPATH=. /work/venv/bin/python tests/benchmarks/bench_imaging.py [--tiles N]
+Run: PYTHONPATH=. python tests/benchmarks/bench_imaging.py [--tiles N]
 The optics model's tables are computed once per process (a few hundred ms) before timing; they
 are per sample and microscope, not per image.
 """

@@ -5,7 +5,7 @@ Contrast of MoSe2 on 285 nm SiO2/Si for N = 1..50, 400-800 nm at 2 nm, illuminat
 per point) is timed on a random sample of the same points and scaled to the full count; the same
 sample checks that both agree to 1e-9 in R. Targets: >= 500x faster than tmm, under 50 ms.
 
-Run: PYTHONPATH=. /work/venv/bin/python tests/benchmarks/bench_optics.py
+Run: PYTHONPATH=. python tests/benchmarks/bench_optics.py
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """Benchmark of the project file (not part of the test run).
 
-Run: ``PYTHONPATH=. /work/venv/bin/python tests/benchmarks/bench_store.py``
+Run: ``PYTHONPATH=. python tests/benchmarks/bench_store.py``
 
 A project with 2,000 flakes, 4,000 appearances (each with a terrace), 500 images and 10,000
 spectra of 1,600 points, plus evidence and an assignment per flake. Measured:
