@@ -15,7 +15,8 @@ from typing import Any
 
 from flakebook.store._util import RecordRef, id_of
 from flakebook.store.kinds import PRIMARY_TERRACE_SQL
-from flakebook.store.records import KINDS, CatalogueRow, layer_spacing_nm
+from flakebook.store.records import KINDS, layer_spacing_nm
+from flakebook.store.results import CatalogueRow
 
 #: The keys of ``flakebook export`` rows, in order (INTERFACE.md).
 EXPORT_COLUMNS = (

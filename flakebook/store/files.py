@@ -15,7 +15,8 @@ from pathlib import Path
 from flakebook.errors import InputError, ProjectError, check_cancel
 from flakebook.store._util import Progress, RecordRef, id_of, sha256_file
 from flakebook.store.filecheck import SUFFIX
-from flakebook.store.records import Image, ImageCheck
+from flakebook.store.records import Image
+from flakebook.store.results import ImageCheck
 
 
 def stored_path(folder: Path, file: Path) -> str:

@@ -46,12 +46,12 @@ from flakebook.store.kinds import RecordKinds
 from flakebook.store.provenance import Provenance
 from flakebook.store.records import (
     Appearance,
-    DeletedRows,
     Image,
     Record,
     Terrace,
     record_type,
 )
+from flakebook.store.results import DeletedRows
 from flakebook.store.rows import AREA_TABLES, TABLE_KINDS, construct, decode, encode, layout
 
 DEFAULT_MAX_LAYERS = 15

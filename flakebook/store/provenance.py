@@ -25,11 +25,11 @@ from flakebook.store.recompute import registered_recomputers
 from flakebook.store.records import (
     DERIVED_KINDS,
     KINDS,
-    RecomputeReport,
     Record,
     SourceRef,
     record_type,
 )
+from flakebook.store.results import RecomputeReport
 
 # ---- the dependency graph, on a connection ------------------------------------------------
 
