@@ -1,6 +1,20 @@
 """The project file (SQLite): schema, migrations, lock, records and catalogue queries.
 
-``Project`` is the way in; the records are frozen dataclasses (``flakebook.store.records``).
+``Project`` is the one way in: every caller calls methods on an open project. Its methods are
+written by concern, one module each, and brought together in ``flakebook.store.project``:
+
+- ``project``: the core (open, create, close, transactions, lock, schema, generic record access)
+  and the ``Project`` class itself;
+- ``kinds``: each record kind's add and find functions and the rules of every add and update;
+- ``provenance``: inputs of derived records, stale marks, ``recompute_stale``;
+- ``files``: image files (stored paths, checks, embedded bytes, relink, pack);
+- ``catalogue``: the catalogue, export rows, summary and canonical dump;
+- ``handoff``: bundles for outside analyses and their results imported back.
+
+The records are frozen dataclasses (``records``) and what operations return are in ``results``;
+``rows`` maps records to table rows, ``codec`` codes arrays, ``schema`` holds the tables and
+migrations, ``filecheck`` recognises a project file, ``lock`` keeps two programs from writing one
+file, and ``recompute`` is the registry of recompute functions.
 """
 
 from flakebook.store.lock import LockInfo, ProjectLocked
@@ -18,8 +32,6 @@ from flakebook.store.records import (
     Assignment,
     BeamProfile,
     Calibration,
-    CatalogueRow,
-    DeletedRows,
     Evidence,
     ExternalResult,
     Flake,
@@ -27,8 +39,6 @@ from flakebook.store.records import (
     Hole,
     HolePattern,
     Image,
-    ImageCheck,
-    RecomputeReport,
     Record,
     Sample,
     SourceRef,
@@ -39,6 +49,7 @@ from flakebook.store.records import (
     layer_spacing_nm,
     record_to_dict,
 )
+from flakebook.store.results import CatalogueRow, DeletedRows, ImageCheck, RecomputeReport
 from flakebook.store.schema import SCHEMA_VERSION
 from flakebook.substrate import SubstrateLayer, parse_substrate
 
