@@ -6,7 +6,10 @@ posterior: the product of the likelihoods times the prior (flat unless given), n
 reports the most likely N, its probability, and ``ambiguous_with``: every other N whose posterior
 is at least 5%. The "more" bin is reported as N_max + 1 (label ``">N_max"``).
 
-It knows no measurement: it takes arrays (or objects with a ``likelihood`` attribute).
+It knows no measurement: it takes arrays (or objects with a ``likelihood`` attribute, such as
+:class:`Evidence`, whose optional ``grid`` attribute carries a :class:`GridLikelihood`).
+:func:`combine_report` adds what each piece of evidence contributes, which pieces conflict, and a
+person's override (:class:`ManualAssignment`), kept beside the combined posterior.
 
 Evidence that shares a systematic parameter (optical contrast, the reflectance spectrum and the
 Si-line attenuation all depend on the oxide thickness) must not be multiplied as if independent:
@@ -18,8 +21,9 @@ L(N) = sum_g w_g prod_k L_k(N | theta_g).
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -264,3 +268,242 @@ def combine(likelihoods: Sequence, prior=None) -> Posterior:
         ambiguous_with=amb,
         max_layers=size - 1,
     )
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """One piece of layer evidence: a likelihood over N = 1..N_max and "more".
+
+    ``method`` names it with its published source (shown to the user), ``reason`` says in a
+    sentence what was measured and what it implies. ``likelihood`` is the marginal (maximum 1);
+    when the evidence depends on a shared parameter, ``grid`` holds it on the parameter's grid and
+    :func:`combine` uses that instead (so the parameter is marginalised once).
+    """
+
+    method: str
+    likelihood: np.ndarray
+    reason: str
+    grid: GridLikelihood | None = None
+    warnings: tuple[str, ...] = ()
+    inputs: dict = field(default_factory=dict, compare=False)
+
+    def __post_init__(self) -> None:
+        like = _as_array(self.likelihood)
+        if like.max() <= 0:
+            raise InputError(f"{self.method}: the likelihood is zero for every layer number")
+        like = like / like.max()
+        like.setflags(write=False)
+        object.__setattr__(self, "likelihood", like)
+
+    @classmethod
+    def from_grid(cls, method: str, grid: GridLikelihood, reason: str, **kw) -> Evidence:
+        return cls(method, grid.likelihood, reason, grid=grid, **kw)
+
+    def to_dict(self) -> dict:
+        d = {"method": self.method, "likelihood": self.likelihood.tolist(), "reason": self.reason}
+        if self.grid is not None:
+            d["shared_parameter"] = self.grid.grid.parameter
+        if self.warnings:
+            d["warnings"] = list(self.warnings)
+        return d
+
+
+@dataclass(frozen=True)
+class ManualAssignment:
+    """A person's layer number with the stated reason; it overrides the evidence."""
+
+    layers: int
+    reason: str
+
+    def to_dict(self) -> dict:
+        return {"layers": self.layers, "reason": self.reason}
+
+
+@dataclass(frozen=True)
+class Contribution:
+    """What one piece of evidence adds.
+
+    ``posterior``: the evidence alone (with the prior). ``information_bits``: the Kullback-Leibler
+    divergence KL(P_all || P_without) in bits of the combined posterior from the posterior of all
+    the other evidence (leave-one-out): how far the final answer moves because of this evidence
+    (0 when it changes nothing). None when the rest alone contradicts itself.
+    """
+
+    method: str
+    posterior: Posterior
+    information_bits: float | None
+
+
+@dataclass(frozen=True)
+class Conflict:
+    """Two posteriors that are incompatible (``b`` is ``"the rest"`` for one item against all
+    others). ``overlap``: the Bhattacharyya coefficient sum_N sqrt(p_a p_b) of their flat-prior
+    posteriors; ``best_a``/``best_b`` their most likely N; ``mass_a_on_b``/``mass_b_on_a`` what
+    each puts on the other's best N."""
+
+    a: str
+    b: str
+    overlap: float
+    best_a: int
+    best_b: int
+    mass_a_on_b: float
+    mass_b_on_a: float
+
+    @property
+    def text(self) -> str:
+        return (
+            f"{self.a} points to {self.best_a}L, {self.b} to {self.best_b}L "
+            f"(overlap {self.overlap:.2f})"
+        )
+
+
+@dataclass(frozen=True)
+class CombinedReport:
+    """Combined posterior, each evidence's contribution, conflicts and any manual override.
+
+    ``layers`` is the manual layer number when there is one, else the posterior's most likely N;
+    ``posterior`` is always the evidence's own combination.
+    """
+
+    posterior: Posterior
+    contributions: tuple[Contribution, ...]
+    conflicts: tuple[Conflict, ...]
+    manual: ManualAssignment | None
+    warnings: tuple[str, ...]
+
+    @property
+    def layers(self) -> int:
+        return self.manual.layers if self.manual is not None else self.posterior.layers
+
+    @property
+    def assigned_by(self) -> str:
+        return "manual" if self.manual is not None else "evidence"
+
+    def to_dict(self) -> dict:
+        return {
+            "layers": self.layers,
+            "assigned_by": self.assigned_by,
+            "manual": None if self.manual is None else self.manual.to_dict(),
+            "combined": self.posterior.to_dict(),
+            "contributions": [
+                {
+                    "method": c.method,
+                    "layers": c.posterior.layers,
+                    "probability": c.posterior.probability,
+                    "posterior": c.posterior.posterior.tolist(),
+                    "information_bits": c.information_bits,
+                }
+                for c in self.contributions
+            ],
+            "conflicts": [
+                {
+                    "a": c.a,
+                    "b": c.b,
+                    "overlap": c.overlap,
+                    "best_a": c.best_a,
+                    "best_b": c.best_b,
+                    "text": c.text,
+                }
+                for c in self.conflicts
+            ],
+            "warnings": list(self.warnings),
+        }
+
+
+CONFLICT_OVERLAP = 0.1
+
+
+def _kl_bits(p: np.ndarray, q: np.ndarray) -> float:
+    mask = p > 0
+    with np.errstate(divide="ignore"):
+        terms = p[mask] * (np.log(p[mask]) - np.log(q[mask]))
+    return float(np.sum(terms) / math.log(2.0))
+
+
+def _conflict(a: str, b: str, pa: np.ndarray, pb: np.ndarray) -> Conflict | None:
+    overlap = float(np.sum(np.sqrt(pa * pb)))
+    ba, bb = int(np.argmax(pa)), int(np.argmax(pb))
+    ma, mb = float(pa[bb]), float(pb[ba])
+    if overlap < CONFLICT_OVERLAP:
+        return Conflict(a, b, overlap, ba + 1, bb + 1, ma, mb)
+    return None
+
+
+def _name(item, i: int) -> str:
+    return str(getattr(item, "method", "") or f"evidence {i + 1}")
+
+
+def combine_report(
+    items: Sequence,
+    prior=None,
+    *,
+    max_layers: int | None = None,
+    manual: ManualAssignment | None = None,
+) -> CombinedReport:
+    """The combined posterior of ``items`` (as :func:`combine`), each item's contribution
+    (:class:`Contribution`: its own posterior and the leave-one-out KL divergence in bits), and
+    the conflicts: an item against the rest, or a pair, whose flat-prior posteriors overlap by
+    less than 0.1 (Bhattacharyya coefficient; the mass each puts on the other's best N is
+    reported beside it).
+    Conflicts are listed, never averaged away. ``manual`` overrides the layer number (its
+    reason kept); ``max_layers`` (optional) checks the items' length.
+    """
+    items = list(items)
+    if not items:
+        raise InputError("no evidence given")
+    post = combine(items, prior)
+    if max_layers is not None and post.max_layers != max_layers:
+        raise InputError(
+            f"the evidence covers N = 1..{post.max_layers} and 'more', not 1..{max_layers}"
+        )
+    size = post.posterior.size
+    base = np.ones(size) if prior is None else _as_array(prior)
+    base = base / base.sum()
+    names = [_name(x, i) for i, x in enumerate(items)]
+    flat = [combine([x]).posterior for x in items]
+    contributions = []
+    for i, item in enumerate(items):
+        rest = items[:i] + items[i + 1 :]
+        try:
+            without = combine(rest, prior).posterior if rest else base
+            info = _kl_bits(post.posterior, without)
+        except InputError:
+            info = None
+        contributions.append(Contribution(names[i], combine([item], prior), info))
+    conflicts = []
+    if len(items) >= 2:
+        for i in range(len(items)):
+            rest = items[:i] + items[i + 1 :]
+            try:
+                rest_post = combine(rest).posterior
+            except InputError:
+                continue
+            c = _conflict(
+                names[i], "the rest" if len(rest) > 1 else names[1 - i], flat[i], rest_post
+            )
+            if c is not None and (len(rest) > 1 or i == 0):
+                conflicts.append(c)
+        if len(items) > 2:
+            for i in range(len(items)):
+                for j in range(i + 1, len(items)):
+                    c = _conflict(names[i], names[j], flat[i], flat[j])
+                    if c is not None:
+                        conflicts.append(c)
+    warnings = [f"conflicting evidence: {c.text}" for c in conflicts]
+    if manual is not None:
+        if not isinstance(manual, ManualAssignment):
+            raise InputError("a manual assignment needs ManualAssignment(layers, reason)")
+        if not (isinstance(manual.layers, (int, np.integer)) and 1 <= manual.layers <= size):
+            raise InputError(
+                f"manual layer number {manual.layers!r} out of range; accepted: 1..{size - 1}, "
+                f"or {size} for more than {size - 1}"
+            )
+        if not str(manual.reason).strip():
+            raise InputError("a manual layer number needs a stated reason (none given)")
+        p_manual = float(post.posterior[manual.layers - 1])
+        if p_manual < AMBIGUITY_THRESHOLD:
+            warnings.append(
+                f"the manual {manual.layers}L has only {p_manual:.1%} posterior probability "
+                "from the evidence"
+            )
+    return CombinedReport(post, tuple(contributions), tuple(conflicts), manual, tuple(warnings))

@@ -121,3 +121,84 @@ def test_grid_evidence_mixes_with_plain_and_needs_one_grid():
     assert exact.nodes.tolist() == [285.0] and exact.weights.tolist() == [1.0]
     with pytest.raises(InputError):
         parameter_grid("oxide_nm", 285.0, -1.0)
+
+
+def test_agreeing_evidence_sharpens_and_conflicts_are_flagged():
+    """Two agreeing independent pieces of evidence give a sharper posterior than either; a pair
+    pointing to different N is listed as a conflict, not averaged away (Bayes' rule; common
+    practice, no source)."""
+    from flakebook.evidence import combine_report
+    from flakebook.spectra.layer_evidence import Feature, afm_evidence, raman_evidence
+
+    (sep,) = raman_evidence([Feature("E2g", 385.0, 0.2), Feature("A1g", 406.8, 0.2)], "MoS2")
+    afm2 = afm_evidence(1.73, 0.25, material="MoS2")
+    rep = combine_report([sep, afm2])
+    assert rep.posterior.layers == 2 and not rep.conflicts
+    assert rep.posterior.probability > max(c.posterior.probability for c in rep.contributions)
+    assert all(c.information_bits > 0 for c in rep.contributions)
+    (sep1,) = raman_evidence([Feature("E2g", 385.0, 0.2), Feature("A1g", 404.0, 0.2)], "MoS2")
+    afm6 = afm_evidence(0.5 + 6 * 0.615, 0.2, material="MoS2")
+    bad = combine_report([sep1, afm6])
+    assert bad.conflicts and bad.conflicts[0].overlap < 0.1
+    assert {bad.conflicts[0].best_a, bad.conflicts[0].best_b} == {1, 6}
+    assert any("conflicting" in w for w in bad.warnings)
+
+
+def test_flat_evidence_adds_nothing_and_manual_override_is_kept_alongside():
+    """Evidence that is flat adds 0 bits (leave-one-out KL divergence); a manual assignment
+    overrides the layer number, keeps its reason, and the combined posterior is still reported
+    (DESIGN.md)."""
+    from flakebook.evidence import Evidence, ManualAssignment, combine_report
+
+    a = Evidence("a", np.array([0.1, 1.0, 0.2, 0.01]), "test")
+    flat = Evidence("flat", np.ones(4), "test")
+    rep = combine_report([a, flat], manual=ManualAssignment(3, "AFM on the same terrace"))
+    assert rep.contributions[1].information_bits == pytest.approx(0.0, abs=1e-12)
+    assert rep.layers == 3 and rep.assigned_by == "manual" and rep.posterior.layers == 2
+    d = rep.to_dict()
+    assert d["manual"]["reason"] == "AFM on the same terrace" and d["combined"]["layers"] == 2
+    low = combine_report([a], manual=ManualAssignment(4, "seen as bulk"))
+    assert any("only" in w for w in low.warnings)
+    with pytest.raises(InputError, match="reason"):
+        combine_report([a], manual=ManualAssignment(2, "  "))
+    with pytest.raises(InputError, match="range"):
+        combine_report([a], manual=ManualAssignment(9, "x"))
+
+
+def test_two_raman_positions_share_the_offset_once():
+    """MoSe2 A1g position and shear mode both move with the spectrometer's offset: the combined
+    likelihood is integral N(d; 0, s_cal) L_A1g(N|d) L_shear(N|d) dd, checked against
+    scipy.integrate.quad (general-purpose reference); multiplying the two marginals as if
+    independent double-counts the offset and differs."""
+    from scipy.integrate import quad
+    from scipy.stats import norm
+
+    from flakebook.spectra.layer_evidence import Feature, raman_evidence, raman_offset_grid
+    from flakebook.spectra.rules import load_rule_table
+
+    table = load_rule_table("MoSe2")
+    s_cal = 1.5
+    grid = raman_offset_grid(s_cal)
+    feats = [Feature("A1g", 243.0, 0.1), Feature("shear", 23.0, 0.1)]
+    evs = [e for e in raman_evidence(feats, table, offset_grid=grid, max_layers=5)]
+    assert all(e.grid is not None for e in evs)
+    post = combine(evs)
+    a1g, shear = table.rule("A1g position"), table.rule("shear mode")
+
+    def like(n):
+        def f(d):
+            out = norm.pdf(d, 0, s_cal)
+            for rule, x in ((a1g, 243.0), (shear, 23.0)):
+                mu, s = rule.center([n])[0], rule.spread([n])[0]
+                out *= rule.detection([n])[0] * norm.pdf(x - d, mu, np.hypot(0.1, s))
+            return out
+
+        return quad(f, -8 * s_cal, 8 * s_cal, limit=200)[0]
+
+    truth = np.array([like(n) for n in range(2, 6)])
+    np.testing.assert_allclose(
+        post.posterior[1:5] / post.posterior[1:5].sum(), truth / truth.sum(), rtol=5e-3
+    )
+    naive = evs[0].likelihood * evs[1].likelihood
+    naive = naive[1:5] / naive[1:5].sum()
+    assert np.max(np.abs(naive - truth / truth.sum())) > 0.02
