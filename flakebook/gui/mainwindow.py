@@ -37,6 +37,7 @@ from flakebook.gui.commands import Edit
 from flakebook.gui.feedback import SessionLogHandler, SessionLogWindow, show_error
 from flakebook.gui.inspector import Inspector
 from flakebook.gui.worker import Job, JobBar
+from flakebook.specs import parse_channel_values
 
 log = logging.getLogger("flakebook.gui")
 
@@ -1256,14 +1257,7 @@ class MainWindow(QMainWindow):
         channels = ("r", "g", "b")
         dark, dark_err = {c: 0.0 for c in channels}, {c: 0.005 for c in channels}
         if dark_text.strip():
-            try:
-                dark = {
-                    k.strip(): float(v) for k, v in (p.split("=") for p in dark_text.split(","))
-                }
-            except ValueError:
-                raise InputError(
-                    f"Dark frame {dark_text!r} is not understood; accepted: r=0.012,g=0.011,b=0.013"
-                ) from None
+            dark = parse_channel_values(dark_text, "Dark frame", channels)
             dark_err = {k: 0.001 for k in dark}
         run, n = s.calibration_job(sample_id, dark, dark_err)
         job = Job(f"Calibrate optics ({n} flakes)", run)
