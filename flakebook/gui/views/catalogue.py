@@ -415,3 +415,30 @@ class CatalogueView(QWidget):
             title=f"flakebook catalogue · {len(rows)} flakes",
             marks=[bool(r.get("stale")) for r in rows],
         )
+
+
+# ---- the view in the window (flakebook.gui.views) ----------------------------------------------
+TITLE = "Catalogue"
+ATTRIBUTE = "catalogue"
+SHORTCUT = "Ctrl+2"
+ACTION_TEXT = "&Catalogue"
+ACTION_NAME = "showCatalogue"
+TIP = "Show the catalogue"
+
+
+def make(window) -> CatalogueView:
+    """The catalogue table with its filter bar."""
+    return CatalogueView(window)
+
+
+def connect(window, cat: CatalogueView) -> None:
+    """Selecting, tagging, recomputing and exporting from the catalogue."""
+    guard = window._guard
+    cat.flakeActivated.connect(lambda f: window.select_flake(f, centre=True))
+    cat.tagShownRequested.connect(lambda: guard(window.tag_shown_dialog, "Tag shown flakes"))
+    cat.recomputeRequested.connect(lambda: guard(window.recompute_stale, "Recompute stale"))
+    cat.exportCsvRequested.connect(lambda: guard(window.export_csv_dialog, "Export CSV"))
+    cat.exportPictureRequested.connect(
+        lambda: guard(window.export_picture_dialog, "Export picture")
+    )
+    cat.table.doubleClicked.connect(lambda idx: window.tabs.setCurrentWidget(window.canvas))

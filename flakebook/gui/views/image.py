@@ -1,0 +1,34 @@
+"""The image view: the micrograph on the canvas (:mod:`flakebook.gui.canvas`) with its tools.
+
+The canvas widget is a module of its own because the tools (:mod:`flakebook.gui.tools`) act on
+it; this module makes it a tab of the window and connects it: the readouts under the cursor, the
+active tool's hint, and each tool's signal to its command.
+"""
+
+from __future__ import annotations
+
+from flakebook.gui.canvas import ImageCanvas
+from flakebook.gui.tools import CANVAS_TOOLS
+
+TITLE = "Image"
+ATTRIBUTE = "canvas"
+SHORTCUT = "Ctrl+1"
+ACTION_TEXT = "&Image view"
+ACTION_NAME = "showImage"
+TIP = "Show the image"
+
+
+def make(window) -> ImageCanvas:
+    """The canvas."""
+    return ImageCanvas(window)
+
+
+def connect(window, canvas: ImageCanvas) -> None:
+    """Cursor readouts and tool hints to the status bar; each tool's result to its command."""
+    canvas.cursorMoved.connect(window._on_cursor)
+    canvas.cursorLeft.connect(
+        lambda: (window.pos_label.setText(""), window.contrast_label.setText(""))
+    )
+    canvas.toolChanged.connect(window._on_tool)
+    for tool in CANVAS_TOOLS.values():
+        tool.connect(window)
