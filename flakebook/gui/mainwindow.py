@@ -39,8 +39,6 @@ from flakebook.gui.window.projects import (
 from flakebook.gui.window.samples import Exports, SettingsDialogs
 from flakebook.gui.worker import Job, JobBar
 
-log = logging.getLogger("flakebook.gui")
-
 
 class MainWindow(
     *WINDOW_PARTS,
@@ -83,14 +81,14 @@ class MainWindow(
         # are made before the tabs: the order of making sets the keyboard focus chain.
         self.views: dict[str, object] = {}
         for name in views.NAMES:
-            view = views.module(name)
-            self.views[name] = view.make(self)
-            setattr(self, view.ATTRIBUTE, self.views[name])
+            view = views.module(name).VIEW
+            self.views[name] = view.widget(self)
+            setattr(self, view.attribute, self.views[name])
         self.tabs = QTabWidget(self)
         self.tabs.setObjectName("mainTabs")
         self.tabs.setDocumentMode(True)
         for name, widget in self.views.items():
-            self.tabs.addTab(widget, views.module(name).TITLE)
+            self.tabs.addTab(widget, views.module(name).VIEW.title)
         self.setCentralWidget(self.tabs)
 
         self.browser = ProjectBrowser(self)
@@ -277,9 +275,9 @@ class MainWindow(
         )
         self.view_actions: dict[str, QAction] = {}
         for name in views.NAMES:
-            v = views.module(name)
+            v = views.module(name).VIEW
             self.view_actions[name] = A(
-                v.ACTION_TEXT, lambda n=name: self.show_view(n), v.SHORTCUT, v.TIP, v.ACTION_NAME
+                v.action_text, lambda n=name: self.show_view(n), v.shortcut, v.tip, v.action_name
             )
         self.a_log = A(
             "Session &log", self.show_log, "Ctrl+L", "Operations of this session", "sessionLog"

@@ -15,8 +15,9 @@ edits (``SessionEdits`` in :mod:`flakebook.gui.tools`, taken from the tool regis
 
 from __future__ import annotations
 
+from flakebook.gui.commands import Undo
 from flakebook.gui.session.analysis import Analysis, HoleResult
-from flakebook.gui.session.base import ProjectBusy, SessionBase, Undo
+from flakebook.gui.session.base import ProjectBusy, SessionBase
 from flakebook.gui.session.images import (
     Images,
     LinearProbe,

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 
 from flakebook.errors import InputError, check_cancel
-from flakebook.gui.session.base import Undo
+from flakebook.gui.commands import Undo
 from flakebook.pipeline import (
     CONTRAST_METHOD,
     calibration_values,
@@ -22,13 +22,7 @@ from flakebook.pipeline import (
     optics_inputs,
     record_hole,
 )
-from flakebook.store import (
-    Appearance,
-    Flake,
-    Hole,
-    Image,
-    Sample,
-)
+from flakebook.store import Appearance, Flake, Hole, Image, Sample
 
 
 class Analysis:
@@ -76,21 +70,8 @@ class Analysis:
         stored = store_survey(p, img, result, new_label=lambda: self.next_label(sample))
         for fid in stored.new_flakes:
             self._born("flake", fid)
-        made_flakes = list(stored.new_flakes)
-        made_holes = list(stored.holes)
-
-        def undo():
-            with p.transaction():
-                for fid in made_flakes:
-                    rid = self._r("flake", fid)
-                    if p.records(Flake, id=rid):
-                        p.delete(Flake, rid)
-                for hid in made_holes:
-                    rid = self._r("hole", hid)
-                    if p.records(Hole, id=rid):
-                        p.delete(Hole, rid)
-
-        return undo
+        made = [(Flake, fid) for fid in stored.new_flakes] + [(Hole, hid) for hid in stored.holes]
+        return self._undo_made(made)
 
     def holes_job(self, image_id: int):
         """Work detecting holes, fitting their lattice and predicting those hidden under flakes
@@ -137,17 +118,9 @@ class Analysis:
                 rec, new = record_hole(p, img, h, existing)
                 if not new:
                     continue
-                made.append(rec.id)
+                made.append((Hole, rec.id))
                 self._update_coverage_for_hole(rec)
-
-        def undo():
-            with p.transaction():
-                for hid in made:
-                    rid = self._r("hole", hid)
-                    if p.records(Hole, id=rid):
-                        p.delete(Hole, rid)
-
-        return undo
+        return self._undo_made(made)
 
     def model_job(self, details: dict):
         """Work giving the model contrast versus N per channel for the flake's measurement

@@ -6,13 +6,14 @@ from the old id to the new one so that older commands on the undo stack still fi
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Sequence
 from contextlib import contextmanager
 from pathlib import Path
 
 import numpy as np
 
 from flakebook.errors import ProjectError
+from flakebook.gui.commands import Undo
 from flakebook.store import (
     Appearance,
     Flake,
@@ -27,9 +28,6 @@ from flakebook.store import (
 
 class ProjectBusy(ProjectError):
     """The project is held read-write by another window or program."""
-
-
-Undo = Callable[[], object]
 
 
 class SessionBase:
@@ -121,6 +119,20 @@ class SessionBase:
 
     def _get(self, cls, rid: int):
         return self.project.get(cls, self._r(cls.KIND, rid))
+
+    def _undo_made(self, made: Sequence[tuple[type, int]]) -> Undo:
+        """An undo deleting the records an edit made, ``(record class, id)`` (those still
+        there; read when the undo runs, so a list filled later counts)."""
+        p = self.project
+
+        def undo():
+            with p.transaction():
+                for cls, rid in made:
+                    rid = self._r(cls.KIND, rid)
+                    if p.records(cls, id=rid):
+                        p.delete(cls, rid)
+
+        return undo
 
     def next_label(self, sample: Sample) -> str:
         used = {f.label for f in self.project.records(Flake)}

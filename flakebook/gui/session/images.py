@@ -12,12 +12,8 @@ import cv2
 import numpy as np
 
 from flakebook.errors import InputError, check_cancel
-from flakebook.gui.session.base import Undo
-from flakebook.store import (
-    Appearance,
-    Flake,
-    Image,
-)
+from flakebook.gui.commands import Undo
+from flakebook.store import Appearance, Flake, Image
 
 
 @dataclass

@@ -8,14 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from flakebook.errors import InputError
-from flakebook.store import (
-    Appearance,
-    Assignment,
-    Flake,
-    Image,
-    Sample,
-    Terrace,
-)
+from flakebook.store import Appearance, Assignment, Flake, Image, Sample, Terrace
 from flakebook.substrate import format_substrate
 
 

@@ -3,13 +3,8 @@
 from __future__ import annotations
 
 from flakebook.errors import InputError
-from flakebook.gui.session.base import Undo
-from flakebook.store import (
-    Assignment,
-    Flake,
-    HolePattern,
-    Sample,
-)
+from flakebook.gui.commands import Undo
+from flakebook.store import Assignment, Flake, HolePattern, Sample
 from flakebook.substrate import format_substrate
 
 

@@ -10,14 +10,27 @@ from __future__ import annotations
 
 
 class CanvasTool:
-    """A tool of the image canvas. Subclasses set the class attributes and override the events."""
+    """A tool of the image canvas; subclasses override the events they answer.
 
-    name = ""  # the canvas's and the action's name (action object name ``tool_<name>``)
-    text = ""  # the menu text, with its & mnemonic
-    key = ""  # the shortcut
-    hint = ""  # the status-bar hint
-    read_only = False  # usable on a project opened read-only
-    cross_cursor = True
+    ``name`` is the canvas's and the action's name (action object name ``tool_<name>``),
+    ``text`` the menu text with its & mnemonic, ``key`` the shortcut, ``hint`` the status-bar
+    hint; ``read_only``: usable on a project opened read-only; ``cross_cursor``: a cross, not an
+    arrow, over the image.
+    """
+
+    def __init__(
+        self,
+        name: str,
+        text: str,
+        key: str,
+        hint: str,
+        *,
+        read_only: bool = False,
+        cross_cursor: bool = True,
+    ) -> None:
+        self.name, self.text, self.key, self.hint = name, text, key, hint
+        self.read_only = read_only
+        self.cross_cursor = cross_cursor
 
     def click(self, canvas, x: float, y: float, double: bool = False) -> None:
         """A left click at image point (x, y)."""
@@ -51,5 +64,11 @@ class LineTool(CanvasTool):
             x0, y0 = canvas._points[0]
             canvas._rubber.setData([x0, x], [y0, y])
 
+    #: The canvas signal that gets a finished line (x0, y0, x1, y1), for :meth:`line`.
+    signal = ""
+
     def line(self, canvas, x0: float, y0: float, x1: float, y1: float) -> None:
-        """The line from (x0, y0) to (x1, y1) is drawn."""
+        """The line from (x0, y0) to (x1, y1) is drawn: by default the rubber band goes and the
+        canvas's :attr:`signal` reports the line."""
+        canvas._rubber.setData([], [])
+        getattr(canvas, self.signal).emit(x0, y0, x1, y1)

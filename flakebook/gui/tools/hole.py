@@ -2,26 +2,13 @@
 
 from __future__ import annotations
 
-import logging
-from collections.abc import Callable
-
+from flakebook.gui.commands import Undo
 from flakebook.gui.tools.base import CanvasTool
-from flakebook.store import (
-    Hole,
-    Image,
-)
-
-log = logging.getLogger("flakebook.gui")
-Undo = Callable[[], object]
+from flakebook.store import Hole, Image
 
 
 class HoleTool(CanvasTool):
     """A click places a hole of the chip's hole radius; picked holes move and resize."""
-
-    name = "hole"
-    text = "Place &hole"
-    key = "H"
-    hint = "Click the centre of a hole to place it (radius from the chip's hole pattern)."
 
     def click(self, canvas, x: float, y: float, double: bool = False) -> None:
         canvas.holePlaced.emit(x, y, float(canvas.default_hole_radius_px))
@@ -35,7 +22,12 @@ class HoleTool(CanvasTool):
         c.holeRemoveRequested.connect(lambda h: guard(lambda: window.delete_hole(h), "Remove hole"))
 
 
-TOOL = HoleTool()
+TOOL = HoleTool(
+    "hole",
+    "Place &hole",
+    "H",
+    "Click the centre of a hole to place it (radius from the chip's hole pattern).",
+)
 
 
 class SessionEdits:

@@ -3,18 +3,14 @@
 from __future__ import annotations
 
 import logging
-from collections.abc import Callable
 
 from PySide6.QtWidgets import QInputDialog
 
 from flakebook.errors import InputError
-from flakebook.store import (
-    Flake,
-    FlakeHole,
-)
+from flakebook.gui.commands import Undo
+from flakebook.store import Flake, FlakeHole
 
 log = logging.getLogger("flakebook.gui")
-Undo = Callable[[], object]
 
 
 class SessionEdits:

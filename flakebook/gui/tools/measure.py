@@ -13,12 +13,6 @@ log = logging.getLogger("flakebook.gui")
 class MeasureTool(LineTool):
     """Two clicks: their distance in pixels (and µm when the image has a scale)."""
 
-    name = "measure"
-    text = "&Measure distance"
-    key = "M"
-    hint = "Click two points to measure their distance."
-    read_only = True
-
     def line(self, canvas, x0: float, y0: float, x1: float, y1: float) -> None:
         d_px = math.hypot(x1 - x0, y1 - y0)
         text = f"{d_px:.1f} px"
@@ -34,7 +28,13 @@ class MeasureTool(LineTool):
         window.canvas.distanceMeasured.connect(window._on_measured)
 
 
-TOOL = MeasureTool()
+TOOL = MeasureTool(
+    "measure",
+    "&Measure distance",
+    "M",
+    "Click two points to measure their distance.",
+    read_only=True,
+)
 
 
 class WindowCommands:

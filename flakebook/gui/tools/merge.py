@@ -3,20 +3,14 @@
 from __future__ import annotations
 
 import logging
-from collections.abc import Callable
 
 from PySide6.QtWidgets import QInputDialog
 
 from flakebook.errors import InputError
-from flakebook.store import (
-    Evidence,
-    Flake,
-    FlakeHole,
-    Terrace,
-)
+from flakebook.gui.commands import Undo
+from flakebook.store import Evidence, Flake, FlakeHole, Terrace
 
 log = logging.getLogger("flakebook.gui")
-Undo = Callable[[], object]
 
 
 class SessionEdits:

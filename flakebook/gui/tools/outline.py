@@ -2,30 +2,15 @@
 
 from __future__ import annotations
 
-import logging
-from collections.abc import Callable
-
 import numpy as np
 
 from flakebook.errors import InputError
 from flakebook.gui.tools.base import CanvasTool
-from flakebook.store import (
-    Appearance,
-    Image,
-    Sample,
-)
-
-log = logging.getLogger("flakebook.gui")
-Undo = Callable[[], object]
+from flakebook.store import Appearance, Image, Sample
 
 
 class OutlineTool(CanvasTool):
     """Click corners; a double click or Enter closes the outline (three corners at least)."""
-
-    name = "outline"
-    text = "Draw &outline"
-    key = "O"
-    hint = "Click the corners of a new outline; double-click or Enter closes it, Esc drops it."
 
     def click(self, canvas, x: float, y: float, double: bool = False) -> None:
         if double:
@@ -53,7 +38,12 @@ class OutlineTool(CanvasTool):
         )
 
 
-TOOL = OutlineTool()
+TOOL = OutlineTool(
+    "outline",
+    "Draw &outline",
+    "O",
+    "Click the corners of a new outline; double-click or Enter closes it, Esc drops it.",
+)
 
 
 class SessionEdits:

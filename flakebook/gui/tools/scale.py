@@ -4,32 +4,20 @@ from __future__ import annotations
 
 import logging
 import math
-from collections.abc import Callable
 
 from PySide6.QtWidgets import QInputDialog
 
 from flakebook.errors import InputError
 from flakebook.gui.tools.base import LineTool
-from flakebook.store import (
-    Appearance,
-    Image,
-)
+from flakebook.store import Appearance, Image
 
 log = logging.getLogger("flakebook.gui")
-Undo = Callable[[], object]
 
 
 class ScaleTool(LineTool):
     """Two clicks along a length known in µm give the image's pixel size."""
 
-    name = "scale"
-    text = "&Scale line"
-    key = "S"
-    hint = "Click the two ends of a line of known length (a scale bar or a hole pitch)."
-
-    def line(self, canvas, x0: float, y0: float, x1: float, y1: float) -> None:
-        canvas._rubber.setData([], [])
-        canvas.scaleLineDrawn.emit(x0, y0, x1, y1)
+    signal = "scaleLineDrawn"
 
     def connect(self, window) -> None:
         window.canvas.scaleLineDrawn.connect(
@@ -37,7 +25,12 @@ class ScaleTool(LineTool):
         )
 
 
-TOOL = ScaleTool()
+TOOL = ScaleTool(
+    "scale",
+    "&Scale line",
+    "S",
+    "Click the two ends of a line of known length (a scale bar or a hole pitch).",
+)
 
 
 class SessionEdits:

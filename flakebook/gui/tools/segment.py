@@ -2,25 +2,14 @@
 
 from __future__ import annotations
 
-import logging
-from collections.abc import Callable
-
 import numpy as np
 
 from flakebook.gui.tools.base import CanvasTool
 from flakebook.gui.worker import Job
 
-log = logging.getLogger("flakebook.gui")
-Undo = Callable[[], object]
-
 
 class SegmentTool(CanvasTool):
     """A click inside a flake asks for its outline from the image."""
-
-    name = "segment"
-    text = "Outline from &click"
-    key = "G"
-    hint = "Click inside a flake to outline it from the image."
 
     def click(self, canvas, x: float, y: float, double: bool = False) -> None:
         canvas.segmentRequested.emit(x, y)
@@ -31,7 +20,9 @@ class SegmentTool(CanvasTool):
         )
 
 
-TOOL = SegmentTool()
+TOOL = SegmentTool(
+    "segment", "Outline from &click", "G", "Click inside a flake to outline it from the image."
+)
 
 
 class SessionEdits:

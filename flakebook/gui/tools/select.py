@@ -2,26 +2,12 @@
 
 from __future__ import annotations
 
-import logging
-
 from flakebook.errors import InputError
 from flakebook.gui.tools.base import CanvasTool
-
-log = logging.getLogger("flakebook.gui")
 
 
 class SelectTool(CanvasTool):
     """Select a flake by clicking it; pick a hole up to drag it or its handle."""
-
-    name = "select"
-    text = "&Select"
-    key = "V"
-    hint = (
-        "Click a flake to select it; click a hole to pick it up, then drag it or its handle "
-        "(Delete removes it)."
-    )
-    read_only = True
-    cross_cursor = False
 
     def click(self, canvas, x: float, y: float, double: bool = False) -> None:
         hole = canvas.hole_at(x, y)
@@ -37,7 +23,15 @@ class SelectTool(CanvasTool):
         )
 
 
-TOOL = SelectTool()
+TOOL = SelectTool(
+    "select",
+    "&Select",
+    "V",
+    "Click a flake to select it; click a hole to pick it up, then drag it or its handle "
+    "(Delete removes it).",
+    read_only=True,
+    cross_cursor=False,
+)
 
 
 class WindowCommands:

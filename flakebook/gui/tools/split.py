@@ -2,32 +2,16 @@
 
 from __future__ import annotations
 
-import logging
-from collections.abc import Callable
-
 from flakebook.errors import InputError
+from flakebook.gui.commands import Undo
 from flakebook.gui.tools.base import LineTool
-from flakebook.store import (
-    Flake,
-    Image,
-    Sample,
-)
-
-log = logging.getLogger("flakebook.gui")
-Undo = Callable[[], object]
+from flakebook.store import Flake, Image, Sample
 
 
 class SplitTool(LineTool):
     """Two clicks: a line across the selected flake, along which it splits in two."""
 
-    name = "split"
-    text = "S&plit flake"
-    key = "P"
-    hint = "Click two points of a line across the selected flake to split it in two."
-
-    def line(self, canvas, x0: float, y0: float, x1: float, y1: float) -> None:
-        canvas._rubber.setData([], [])
-        canvas.splitLineDrawn.emit(x0, y0, x1, y1)
+    signal = "splitLineDrawn"
 
     def connect(self, window) -> None:
         window.canvas.splitLineDrawn.connect(
@@ -37,7 +21,12 @@ class SplitTool(LineTool):
         )
 
 
-TOOL = SplitTool()
+TOOL = SplitTool(
+    "split",
+    "S&plit flake",
+    "P",
+    "Click two points of a line across the selected flake to split it in two.",
+)
 
 
 class SessionEdits:

@@ -6,10 +6,9 @@ NAME`` accepts each name. This module imports no Qt, so the command line can rea
 
 A view module defines:
 
-- ``TITLE`` (the tab's text), ``ATTRIBUTE`` (the window attribute that holds the widget, e.g.
-  ``window.catalogue``), ``SHORTCUT``, ``ACTION_TEXT``, ``ACTION_NAME`` (the action's object
-  name) and ``TIP`` (its status tip);
-- ``make(window) -> QWidget``: the view's widget;
+- ``VIEW``, a :class:`View`: the tab's title, the window attribute that holds the widget (e.g.
+  ``window.catalogue``), the View-menu action and the widget's class (made with the window as
+  its parent);
 - ``connect(window, widget) -> None``: its signals to the window's commands (after every view and
   dock is made).
 """
@@ -17,7 +16,24 @@ A view module defines:
 from __future__ import annotations
 
 import importlib
+from dataclasses import dataclass
 from types import ModuleType
+
+
+@dataclass(frozen=True)
+class View:
+    """How the window shows a view: tab ``title``, window ``attribute``, the View-menu action
+    (``shortcut``, ``action_text``, its object name ``action_name``, status ``tip``) and
+    ``widget``, the widget's class (called with the window as parent)."""
+
+    title: str
+    attribute: str
+    shortcut: str
+    action_text: str
+    action_name: str
+    tip: str
+    widget: type
+
 
 #: Every view, in the order of the tabs.
 NAMES = ("image", "catalogue")

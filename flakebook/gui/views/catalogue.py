@@ -39,6 +39,7 @@ from PySide6.QtWidgets import (
 
 from flakebook.errors import InputError
 from flakebook.gui import palette
+from flakebook.gui.views import View
 
 #: (key, header, tooltip) of the columns, in order. Keys follow INTERFACE.md's export.
 COLUMNS = (
@@ -418,17 +419,15 @@ class CatalogueView(QWidget):
 
 
 # ---- the view in the window (flakebook.gui.views) ----------------------------------------------
-TITLE = "Catalogue"
-ATTRIBUTE = "catalogue"
-SHORTCUT = "Ctrl+2"
-ACTION_TEXT = "&Catalogue"
-ACTION_NAME = "showCatalogue"
-TIP = "Show the catalogue"
-
-
-def make(window) -> CatalogueView:
-    """The catalogue table with its filter bar."""
-    return CatalogueView(window)
+VIEW = View(
+    "Catalogue",
+    "catalogue",
+    "Ctrl+2",
+    "&Catalogue",
+    "showCatalogue",
+    "Show the catalogue",
+    CatalogueView,
+)
 
 
 def connect(window, cat: CatalogueView) -> None:

@@ -9,18 +9,9 @@ from __future__ import annotations
 
 from flakebook.gui.canvas import ImageCanvas
 from flakebook.gui.tools import CANVAS_TOOLS
+from flakebook.gui.views import View
 
-TITLE = "Image"
-ATTRIBUTE = "canvas"
-SHORTCUT = "Ctrl+1"
-ACTION_TEXT = "&Image view"
-ACTION_NAME = "showImage"
-TIP = "Show the image"
-
-
-def make(window) -> ImageCanvas:
-    """The canvas."""
-    return ImageCanvas(window)
+VIEW = View("Image", "canvas", "Ctrl+1", "&Image view", "showImage", "Show the image", ImageCanvas)
 
 
 def connect(window, canvas: ImageCanvas) -> None:

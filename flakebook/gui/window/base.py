@@ -8,7 +8,6 @@ pushed on the undo stack.
 
 from __future__ import annotations
 
-import logging
 from collections.abc import Callable
 
 from PySide6.QtCore import QTimer
@@ -16,8 +15,7 @@ from PySide6.QtCore import QTimer
 from flakebook.errors import InputError
 from flakebook.gui.commands import Edit
 from flakebook.gui.feedback import show_error
-
-log = logging.getLogger("flakebook.gui")
+from flakebook.gui.tools import CANVAS_TOOLS
 
 
 class WindowBase:
@@ -121,5 +119,5 @@ class WindowBase:
         ):
             a.setEnabled(rw)
         for name, a in self.tool_actions.items():
-            a.setEnabled(has and (rw or name in ("select", "measure")))
+            a.setEnabled(has and (rw or CANVAS_TOOLS[name].read_only))
         self.inspector.set_read_only(not rw)
