@@ -484,7 +484,6 @@ __all__ = [
     "PROJECT_SUFFIX",
     "SETTINGS_APP",
     "SETTINGS_ORG",
-    "Job",
     "MainWindow",
     "add_recent",
     "make_app",
