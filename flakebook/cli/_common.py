@@ -16,6 +16,9 @@ from typing import Any
 
 from flakebook.errors import Cancelled, FlakebookError, InputError
 
+# The parsers the window shares live below both (re-exported for the commands).
+from flakebook.specs import parse_layer_range, positive_float  # noqa: F401
+
 EXIT_OK = 0
 EXIT_INTERNAL = 1
 EXIT_INPUT = 2
@@ -209,40 +212,3 @@ def run(func: Callable[[argparse.Namespace], int | None], args: argparse.Namespa
                 "run again with --debug for details"
             )
         return EXIT_INTERNAL
-
-
-# ---- option parsing helpers shared by commands -------------------------------------------
-
-
-def parse_layer_range(text: str, *, max_layers: int = 100) -> list[int]:
-    """Parse ``--layers`` as a range ``1-10`` or a list ``1,2,5`` (also ``1-3,7``)."""
-    out: list[int] = []
-    try:
-        for part in str(text).split(","):
-            part = part.strip()
-            if not part:
-                continue
-            if "-" in part:
-                lo, hi = (int(p) for p in part.split("-", 1))
-                if hi < lo:
-                    raise ValueError
-                out.extend(range(lo, hi + 1))
-            else:
-                out.append(int(part))
-    except ValueError:
-        raise InputError(
-            f"--layers {text!r} is not a layer range; accepted: a range like 1-10 or a list like 1,2,5"
-        ) from None
-    if not out or min(out) < 1 or max(out) > max_layers:
-        raise InputError(
-            f"--layers {text!r}: layer numbers must be whole numbers from 1 to {max_layers}"
-        )
-    return sorted(set(out))
-
-
-def positive_float(name: str, value: float, *, allow_zero: bool = False) -> float:
-    """Check a number option is finite and positive (or zero where allowed)."""
-    if not math.isfinite(value) or value < 0 or (value == 0 and not allow_zero):
-        need = "zero or a positive number" if allow_zero else "a positive number"
-        raise InputError(f"{name} {value!r} is not allowed; accepted: {need}")
-    return value

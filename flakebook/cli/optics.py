@@ -8,11 +8,11 @@ from __future__ import annotations
 
 import argparse
 import csv
-import math
 from pathlib import Path
 
 from flakebook.cli import _common
 from flakebook.errors import InputError
+from flakebook.specs import parse_channel_values
 
 CONTRAST_NOTE = (
     "contrast C = 1 - (integral R_flake I S)/(integral R_reference I S), reference: bare "
@@ -156,31 +156,6 @@ def _cmd_contrast(args) -> int:
 # ---- layers -----------------------------------------------------------------------------------
 
 
-def _parse_pairs(text: str, option: str, channels: tuple[str, ...]) -> dict[str, float]:
-    out: dict[str, float] = {}
-    for part in str(text).split(","):
-        part = part.strip()
-        if not part:
-            continue
-        if "=" not in part:
-            raise InputError(
-                f"{option} {text!r}: {part!r} lacks a channel name; accepted: "
-                + ",".join(f"{c}=VALUE" for c in channels)
-            )
-        key, value = (s.strip() for s in part.split("=", 1))
-        try:
-            out[key] = float(value)
-        except ValueError:
-            raise InputError(f"{option}: {value!r} for channel {key} is not a number") from None
-        if not math.isfinite(out[key]):
-            raise InputError(f"{option}: {value!r} for channel {key} is not a finite number")
-    if not out:
-        raise InputError(
-            f"{option} is empty; accepted e.g. " + ",".join(f"{c}=0.1" for c in channels)
-        )
-    return out
-
-
 def _read_layers_csv(path: str, channels: tuple[str, ...], single: bool):
     p = Path(path)
     try:
@@ -251,9 +226,9 @@ def _cmd_layers(args) -> int:
                     "--contrast and --contrast-err take one number with --wavelength-nm"
                 ) from None
         else:
-            c = _parse_pairs(args.contrast, "--contrast", channels)
+            c = parse_channel_values(args.contrast, "--contrast", channels)
             e = (
-                _parse_pairs(args.contrast_err, "--contrast-err", channels)
+                parse_channel_values(args.contrast_err, "--contrast-err", channels)
                 if args.contrast_err
                 else {}
             )

@@ -32,24 +32,24 @@ def _prepare_platform(offscreen: bool) -> None:
 
 
 def parse_show(text: str | None) -> tuple[str, str | None]:
-    """``catalogue`` | ``flake:ID`` | ``image`` -> (view, argument)."""
+    """A registered view's name (``image``, ``catalogue``, ...) | ``flake:ID`` -> (view, argument)."""
+    from flakebook.gui.views import NAMES
+
+    accepted = ", ".join(sorted([*NAMES, "flake:ID"]))
     if not text:
         return "image", None
     view, _, arg = text.partition(":")
     view = view.strip().lower()
-    if view == "catalogue" and not arg:
-        return "catalogue", None
     if view == "flake" and arg.strip():
         return "flake", arg.strip()
-    if view == "image" and not arg:
-        return "image", None
+    if view in NAMES and not arg:
+        return view, None
     if view in ("spectra", "thermal"):
         raise InputError(
-            f"--show {text}: the {view} view is not in this version; accepted: catalogue, flake:ID, image"
+            f"--show {text}: the {view} view is not in this version; accepted: {accepted}"
         )
-    raise InputError(
-        f"--show {text!r} is not a view; accepted: catalogue, flake:ID (a flake's name), image"
-    )
+    named = accepted.replace("flake:ID", "flake:ID (a flake's name)")
+    raise InputError(f"--show {text!r} is not a view; accepted: {named}")
 
 
 def settle(app, seconds: float = 0.0, until=None) -> None:
@@ -121,12 +121,12 @@ def run(
 
 
 def show_view(window, view: str, arg: str | None) -> None:
-    """Put the window in the state ``--show`` names."""
-    if view == "catalogue":
-        window.tabs.setCurrentWidget(window.catalogue)
-    elif view == "flake":
+    """Put the window in the state ``--show`` names: a view in front, or a flake selected."""
+    if view == "flake":
         if window.session is None:
             raise InputError("--show flake:ID needs a project")
         flake = window.session.project.find_flake(arg)
         window.select_flake(flake.id, centre=True)
-        window.tabs.setCurrentWidget(window.canvas)
+        window.show_view("image")
+    else:
+        window.show_view(view)

@@ -7,7 +7,9 @@ terraces coloured by layer number (Okabe-Ito, see :mod:`flakebook.gui.palette`),
 resizable circles), a scale bar, the selection, and the rubber band of the active tool.
 
 The canvas holds no data of the project: it shows what it is given and reports what the user did
-through signals; the main window turns those into undoable commands.
+through signals; the main window turns those into undoable commands. What a click, a cursor move
+or Enter does depends on the active tool, a :class:`~flakebook.gui.tools.base.CanvasTool` of
+:mod:`flakebook.gui.tools` (one module per tool, its command beside it).
 """
 
 from __future__ import annotations
@@ -23,20 +25,14 @@ from PySide6.QtGui import QBrush, QColor, QPainterPath, QPen, QPolygonF
 from PySide6.QtWidgets import QGraphicsEllipseItem, QGraphicsPathItem, QLabel
 
 from flakebook.gui import palette
+from flakebook.gui.tools import CANVAS_TOOLS
 from flakebook.render.flakecard import nice_length_um
 
 pg.setConfigOptions(imageAxisOrder="row-major", antialias=False)
 
-TOOLS = ("select", "scale", "outline", "hole", "measure", "segment", "split")
-TOOL_HINTS = {
-    "select": "Click a flake to select it; click a hole to pick it up, then drag it or its handle (Delete removes it).",
-    "scale": "Click the two ends of a line of known length (a scale bar or a hole pitch).",
-    "outline": "Click the corners of a new outline; double-click or Enter closes it, Esc drops it.",
-    "hole": "Click the centre of a hole to place it (radius from the chip's hole pattern).",
-    "measure": "Click two points to measure their distance.",
-    "segment": "Click inside a flake to outline it from the image.",
-    "split": "Click two points of a line across the selected flake to split it in two.",
-}
+#: The canvas's tools by name, in toolbar order (their behaviour: flakebook.gui.tools).
+TOOLS = tuple(CANVAS_TOOLS)
+TOOL_HINTS = {name: tool.hint for name, tool in CANVAS_TOOLS.items()}
 
 
 @dataclass(frozen=True)
@@ -502,7 +498,9 @@ class ImageCanvas(pg.GraphicsView):
         self.tool = name
         self.release_hole()
         self.setCursor(
-            Qt.CursorShape.ArrowCursor if name == "select" else Qt.CursorShape.CrossCursor
+            Qt.CursorShape.CrossCursor
+            if CANVAS_TOOLS[name].cross_cursor
+            else Qt.CursorShape.ArrowCursor
         )
         self.toolChanged.emit(name)
 
@@ -523,42 +521,7 @@ class ImageCanvas(pg.GraphicsView):
 
     def click(self, x: float, y: float, double: bool = False) -> None:
         """A left click at image point (x, y) with the current tool (the mouse calls this)."""
-        tool = self.tool
-        if tool == "select":
-            hole = self.hole_at(x, y)
-            if hole is not None:
-                self.pick_hole(hole)
-                return
-            self.release_hole()
-            self.flakeClicked.emit(self.flake_at(x, y))
-        elif tool == "hole":
-            self.holePlaced.emit(x, y, float(self.default_hole_radius_px))
-        elif tool == "segment":
-            self.segmentRequested.emit(x, y)
-        elif tool in ("scale", "measure", "split"):
-            self._points.append((x, y))
-            if len(self._points) == 2:
-                (x0, y0), (x1, y1) = self._points
-                self._points = []
-                if tool == "scale":
-                    self._rubber.setData([], [])
-                    self.scaleLineDrawn.emit(x0, y0, x1, y1)
-                elif tool == "split":
-                    self._rubber.setData([], [])
-                    self.splitLineDrawn.emit(x0, y0, x1, y1)
-                else:
-                    self._show_measure(x0, y0, x1, y1)
-                    self.distanceMeasured.emit(x0, y0, x1, y1)
-            else:
-                self._rubber.setData([x, x], [y, y])
-                self._measure_text.setVisible(False)
-        elif tool == "outline":
-            if double:
-                self.finish_outline()
-                return
-            self._points.append((x, y))
-            pts = np.array(self._points + [self._points[0]])
-            self._rubber.setData(pts[:, 0], pts[:, 1])
+        CANVAS_TOOLS[self.tool].click(self, x, y, double)
 
     def finish_outline(self) -> None:
         """Close the outline being drawn (three corners at least) and report it."""
@@ -567,16 +530,6 @@ class ImageCanvas(pg.GraphicsView):
         self._rubber.setData([], [])
         if len(pts) >= 3:
             self.outlineDrawn.emit(np.array(pts, float))
-
-    def _show_measure(self, x0: float, y0: float, x1: float, y1: float) -> None:
-        d_px = math.hypot(x1 - x0, y1 - y0)
-        text = f"{d_px:.1f} px"
-        if self.um_per_px:
-            text += f" = {d_px * self.um_per_px:.2f} \u00b5m"
-        self._rubber.setData([x0, x1], [y0, y1])
-        self._measure_text.setText(text)
-        self._measure_text.setPos(x1, y1)
-        self._measure_text.setVisible(True)
 
     def flake_at(self, x: float, y: float) -> int:
         """The flake whose outline holds (x, y) (the smallest if nested), else -1."""
@@ -639,12 +592,7 @@ class ImageCanvas(pg.GraphicsView):
             self.cursorMoved.emit(x, y)
         else:
             self.cursorLeft.emit()
-        if self._points and self.tool in ("scale", "measure", "split"):
-            x0, y0 = self._points[0]
-            self._rubber.setData([x0, x], [y0, y])
-        elif self._points and self.tool == "outline":
-            pts = np.array(self._points + [(x, y), self._points[0]])
-            self._rubber.setData(pts[:, 0], pts[:, 1])
+        CANVAS_TOOLS[self.tool].move(self, x, y)
 
     def _on_mouse_clicked(self, ev) -> None:
         if ev.button() != Qt.MouseButton.LeftButton or self.image_shape is None:
@@ -687,8 +635,8 @@ class ImageCanvas(pg.GraphicsView):
         if key in (Qt.Key.Key_Return, Qt.Key.Key_Enter):
             if self._edit_roi is not None:
                 self.finish_edit_outline()
-            elif self.tool == "outline":
-                self.finish_outline()
+            else:
+                CANVAS_TOOLS[self.tool].enter(self)
             ev.accept()
             return
         super().keyPressEvent(ev)

@@ -16,6 +16,9 @@ from PySide6.QtGui import QUndoCommand
 
 log = logging.getLogger("flakebook.gui")
 
+#: What an edit returns: a function that reverts it.
+Undo = Callable[[], object]
+
 
 class Edit(QUndoCommand):
     """An edit already applied: ``undo_fn`` reverts it, ``redo_fn`` applies it again."""

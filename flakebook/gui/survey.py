@@ -28,6 +28,7 @@ from PySide6.QtWidgets import (
 from flakebook.errors import InputError
 from flakebook.gui import palette
 from flakebook.gui.worker import Job
+from flakebook.specs import parse_layer_range
 
 log = logging.getLogger("flakebook.gui")
 IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
@@ -35,8 +36,6 @@ IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
 
 def parse_targets(text: str) -> tuple[int, ...]:
     """``1-3`` or ``1,2,5`` as layer numbers (the command line's --target-layers syntax)."""
-    from flakebook.cli._common import parse_layer_range
-
     return tuple(parse_layer_range(text or "1-3"))
 
 

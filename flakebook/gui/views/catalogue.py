@@ -39,6 +39,7 @@ from PySide6.QtWidgets import (
 
 from flakebook.errors import InputError
 from flakebook.gui import palette
+from flakebook.gui.views import View
 
 #: (key, header, tooltip) of the columns, in order. Keys follow INTERFACE.md's export.
 COLUMNS = (
@@ -415,3 +416,28 @@ class CatalogueView(QWidget):
             title=f"flakebook catalogue · {len(rows)} flakes",
             marks=[bool(r.get("stale")) for r in rows],
         )
+
+
+# ---- the view in the window (flakebook.gui.views) ----------------------------------------------
+VIEW = View(
+    "Catalogue",
+    "catalogue",
+    "Ctrl+2",
+    "&Catalogue",
+    "showCatalogue",
+    "Show the catalogue",
+    CatalogueView,
+)
+
+
+def connect(window, cat: CatalogueView) -> None:
+    """Selecting, tagging, recomputing and exporting from the catalogue."""
+    guard = window._guard
+    cat.flakeActivated.connect(lambda f: window.select_flake(f, centre=True))
+    cat.tagShownRequested.connect(lambda: guard(window.tag_shown_dialog, "Tag shown flakes"))
+    cat.recomputeRequested.connect(lambda: guard(window.recompute_stale, "Recompute stale"))
+    cat.exportCsvRequested.connect(lambda: guard(window.export_csv_dialog, "Export CSV"))
+    cat.exportPictureRequested.connect(
+        lambda: guard(window.export_picture_dialog, "Export picture")
+    )
+    cat.table.doubleClicked.connect(lambda idx: window.tabs.setCurrentWidget(window.canvas))

@@ -1,0 +1,135 @@
+"""Long work started from the window (find flakes, detect holes, calibrate optics, recompute):
+it runs in a :class:`~flakebook.gui.worker.Job` with the status bar's progress bar and cancel
+button, and each result is stored as one undoable edit.
+"""
+
+from __future__ import annotations
+
+import logging
+
+from PySide6.QtWidgets import QInputDialog
+
+from flakebook.gui.worker import Job
+from flakebook.specs import parse_channel_values
+
+log = logging.getLogger("flakebook.gui")
+
+
+class Analysis:
+    """Find flakes, detect holes, calibrate the optics, recompute stale results."""
+
+    def find_flakes(self, images: list[int] | None = None) -> Job | None:
+        """Find flakes on the images selected in the browser (else the one shown), one after
+        the other in a worker; each image's result is one undoable edit."""
+        s = self._need_session()
+        if images is None:
+            images = self.browser.selected_images() or [self._need_image()]
+        queue = list(images)
+        target = self.candidates.target_layers()
+        image = queue.pop(0)
+        job = Job(f"Find flakes on {s.image_info(image)['name']}", s.survey_job(image, target))
+
+        def done(result):
+            def do():
+                return s.store_survey(image, result)
+
+            name = s.image_info(image)["name"]
+            self._guard(
+                lambda: self.edit(f"Find flakes on {name} ({len(result.flakes)} flakes)", do),
+                "Find flakes",
+            )
+            for w in result.warnings:
+                log.warning("Find flakes on %s: %s", name, w)
+            if queue:
+                self._guard(lambda: self.find_flakes(queue), "Find flakes")
+
+        def failed(exc):
+            self.report_error(exc, "Find flakes")
+            if queue:
+                self._guard(lambda: self.find_flakes(queue), "Find flakes")
+
+        self.jobs.start(job, on_done=done, on_error=failed)
+        return job
+
+    def detect_holes(self) -> Job | None:
+        s = self._need_session()
+        image = self._need_image()
+        job = Job("Detect holes", s.holes_job(image))
+
+        def done(result):
+            self._guard(
+                lambda: self.edit(
+                    f"Detect holes ({len(result.holes)})", lambda: s.store_holes(image, result)
+                ),
+                "Detect holes",
+            )
+
+        self.jobs.start(job, on_done=done, on_error=lambda e: self.report_error(e, "Detect holes"))
+        return job
+
+    def recompute_stale(self):
+        """Recompute every stale record. It writes the project, so it runs on the window's
+        thread; the progress bar and its cancel button stay live (events are processed between
+        records), and a cancelled run leaves the project as it was (one store transaction)."""
+        s = self._need_session()
+        cancel = self.jobs.begin_inline("Recompute stale")
+        try:
+            report = s.recompute_stale(progress=self.jobs.inline_progress, cancel=cancel)
+        finally:
+            self.jobs.end_inline()
+        self.undo_stack.clear()  # recomputed results are not undone one by one
+        self.refresh()
+        text = f"Recomputed {len(report.recomputed)}"
+        if report.unregistered:
+            text += f"; {len(report.unregistered)} without a way to recompute them (left stale)"
+        if report.failed:
+            text += f"; {len(report.failed)} failed (left stale): " + "; ".join(
+                str(f[2]) for f in report.failed[:3]
+            )
+        log.info("Recompute stale: %s", text)
+        self.hint_label.setText(text)
+        return report
+
+    def calibrate_dialog(self) -> None:
+        s = self._need_session()
+        sample_id = s.current_sample(self.current_image)
+        n = len(s.calibration_observations(sample_id))
+        text, ok = QInputDialog.getText(
+            self,
+            "Calibrate optics",
+            f"{n} flake(s) of known layer number (manual assignments) on this sample will be fitted.\n"
+            "Dark frame per channel as a fraction of full scale (e.g. r=0.012,g=0.011,b=0.013),\n"
+            "or empty: no dark frame, the dark offset is taken as 0 ± 0.005.",
+        )
+        if ok:
+            self.calibrate(sample_id, text)
+
+    def calibrate(self, sample_id: int, dark_text: str = "") -> Job:
+        """Fit oxide, dark offsets and contrast scale (flakebook.optics.camera) in a worker."""
+        s = self._need_session()
+        channels = ("r", "g", "b")
+        dark, dark_err = {c: 0.0 for c in channels}, {c: 0.005 for c in channels}
+        if dark_text.strip():
+            dark = parse_channel_values(dark_text, "Dark frame", channels)
+            dark_err = {k: 0.001 for k in dark}
+        run, n = s.calibration_job(sample_id, dark, dark_err)
+        job = Job(f"Calibrate optics ({n} flakes)", run)
+
+        def done(cal):
+            def do():
+                return s.store_calibration(sample_id, cal)
+
+            self._guard(lambda: self.edit("Optics calibration", do), "Calibrate optics")
+            msg = (
+                f"Oxide {cal.oxide_nm:.1f} ± {cal.oxide_err_nm:.1f} nm, contrast scale "
+                f"{cal.contrast_scale:.3f} ± {cal.contrast_scale_err:.3f} "
+                f"(chi² {cal.chi2:.3g} on {cal.dof} d.o.f.). Contrast evidence of this sample is "
+                "marked stale: Recompute stale (Ctrl+R) applies the calibration."
+            )
+            log.info("Calibrate optics: %s", msg)
+            self.hint_label.setText(msg)
+
+        self.jobs.start(
+            job, on_done=done, on_error=lambda e: self.report_error(e, "Calibrate optics")
+        )
+        return job
