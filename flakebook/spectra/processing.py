@@ -3,11 +3,14 @@
 - Spikes: the modified z-score (0.6745 (d - median d) / MAD, Iglewicz & Hoaglin) of the second
   difference d of the spectrum, after D. A. Whitaker and K. Hayes, Chemom. Intell. Lab. Syst.
   179, 82 (2018), who use the first difference. A spike is a run of at most ``max_width`` points
-  whose second difference is strongly negative (z < -threshold) and is bounded on both sides by
-  strongly positive ones (z > threshold / 2): the (+1, -2, +1) signature of a narrow spike. The
+  whose second difference is strongly negative (z < -threshold), widened over the negative second differences next
+  to it, and bounded on both sides (next to it or one point further) by strongly positive ones
+  (z > threshold / 3): the (+1, -2, +1) signature of a narrow spike. The
   top of a Raman peak sampled by five or more points per FWHM has a negative second difference
   over a wider run with small ones at its edges, so it is not taken for a spike however strong.
-  Spike points are replaced by linear interpolation between their unflagged neighbours.
+  Spike points are replaced by linear interpolation between their unflagged neighbours. Not
+  seen: a spike in the first or last point, and a spike on the top of a strong peak (whose
+  own negative curvature hides the spike's signature).
 - Baselines: ``pybaselines`` methods by name. The default is ``imodpoly`` (improved modified
   polynomial, Zhao et al., Appl. Spectrosc. 61, 1225 (2007)) of order 3, which follows sloped
   and curved fluorescence backgrounds under narrow Raman lines without a smoothness parameter
@@ -101,9 +104,21 @@ def remove_spikes(y, *, threshold: float = 6.0, max_width: int = 3) -> SpikeResu
         j = i
         while j + 1 < y.size - 1 and neg[j + 1]:
             j += 1
-        width = j - i + 1
-        if width <= max_width and zfull[i - 1] > threshold / 2 and zfull[j + 1] > threshold / 2:
-            mask[i : j + 1] = True
+        a, b = i, j  # widen over the negative second differences next to the core
+        while a - 1 >= 1 and d[a - 1] < 0 and b - a + 1 <= max_width:
+            a -= 1
+        while b + 1 < y.size - 1 and d[b + 1] < 0 and b - a + 1 <= max_width:
+            b += 1
+        # the positive lobes: next to the run, or one point further out (an uneven two-point
+        # spike leaves a small second difference between its core and its lobe)
+        lobe = threshold / 3
+        if zfull[a - 1] <= lobe and a >= 3 and zfull[a - 2] > lobe:
+            a -= 1
+        if zfull[b + 1] <= lobe and b + 2 < y.size - 1 and zfull[b + 2] > lobe:
+            b += 1
+        width = b - a + 1
+        if width <= max_width and zfull[a - 1] > lobe and zfull[b + 1] > lobe:
+            mask[a : b + 1] = True
             n_spikes += 1
         i = j + 1
     out = y.copy()

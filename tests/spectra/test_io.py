@@ -93,7 +93,7 @@ def test_jcamp_dx_written_by_hand(tmp_path):
         "##LASTX=119.0",
         "##DELTAX=1.0",
         "##NPOINTS=20",
-        "##FIRSTY=%g" % y[0],
+        f"##FIRSTY={y[0]:g}",
         "##XYDATA=(X++(Y..Y))",
     ]
     for i in range(0, 20, 5):
