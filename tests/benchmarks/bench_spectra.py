@@ -7,7 +7,7 @@ fits every spectrum; the reference loop (pybaselines modpoly, then fit_peaks, i.
 timed on a random sample of 200 spectra and scaled to the full count; the same sample checks
 that the centres agree to 0.01 cm^-1. Targets: under 30 s, >= 10x faster than the loop.
 
-Run: PYTHONPATH=. /work/venv-spectra/bin/python tests/benchmarks/bench_spectra.py
+Run: PYTHONPATH=. python tests/benchmarks/bench_spectra.py
 """
 
 from __future__ import annotations
