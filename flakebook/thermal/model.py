@@ -377,31 +377,38 @@ def solve_membrane(
         cond = 2 * np.pi * faces[1:-1] * kf * t / dist
         outer_c = 2 * np.pi * faces[-1] * kappa_cells[-1] * t / outer_dist
         sink = gcell + (kappa_cells * t * m * m * area / rc**2 if m else 0.0)
-        src = src_norm * (harmonics(m, 1.0) * r_wts).sum(axis=1)
+        if m not in src_cache:
+            src_cache[m] = src_norm * (harmonics(m, 1.0) * r_wts).sum(axis=1)
+        src = src_cache[m]
         return _tridiag_solve(cond, sink, outer_c, src)
 
-    weight_norm = None
-    wm0 = (harmonics(0, k) * r_wts).sum(axis=1)
-    weight_norm = wm0[inside].sum()
+    weight_norm = (harmonics(0, k) * r_wts).sum(axis=1)[inside].sum()
+
+    wm_cache: dict[int, np.ndarray] = {}
+    src_cache: dict[int, np.ndarray] = {}
+
+    def weight_harmonic(m: int) -> np.ndarray:
+        if m not in wm_cache:
+            wm_cache[m] = (harmonics(m, k) * r_wts).sum(axis=1)
+        return wm_cache[m]
+
+    def term(m: int, theta: np.ndarray) -> float:
+        # cos(m phi) cos(n phi) over the circle: 2 pi (m = 0) or pi; the 2 pi is in r_wts
+        wm = weight_harmonic(m)
+        return float((theta * wm)[inside].sum()) * (1.0 if m == 0 else 0.5)
 
     def mean_rise(fields: list[np.ndarray]) -> float:
-        total = 0.0
-        for m, theta in enumerate(fields):
-            wm = (harmonics(m, k) * r_wts).sum(axis=1)
-            # cos(m phi) cos(n phi) over the circle: 2 pi (m = 0) or pi; the 2 pi is in r_wts
-            total += (theta * wm)[inside].sum() * (1.0 if m == 0 else 0.5)
-        return total / weight_norm
+        return sum(term(m, theta) for m, theta in enumerate(fields)) / weight_norm
 
     def linear_fields(kappa_cells: np.ndarray) -> list[np.ndarray]:
         fields = [solve_harmonic(0, kappa_cells)]
         if d > 0:
-            ref = abs(mean_rise(fields))
+            ref = abs(term(0, fields[0]))
             small = 0
-            for m in range(1, 200):
+            for m in range(1, 2000):
                 th = solve_harmonic(m, kappa_cells)
                 fields.append(th)
-                contrib = abs(mean_rise([np.zeros_like(th)] * m + [th]))
-                small = small + 1 if contrib < 1e-12 * ref else 0
+                small = small + 1 if abs(term(m, th)) < 1e-12 * ref else 0
                 if small >= 3:
                     break
         return fields

@@ -261,6 +261,7 @@ def kappa_with_uncertainty(
     in_vacuum: bool | None = None,
     transmittance: float | None = None,
     extra_warnings: tuple[str, ...] = (),
+    variance_shares: bool = True,
     progress: Callable[[float, str], None] | None = None,
     cancel: threading.Event | None = None,
 ) -> KappaResult:
@@ -275,6 +276,7 @@ def kappa_with_uncertainty(
     series' highest incident power; default the largest of ``model.powers_mw``) feeds the
     temperature-rise warning; ``mean_free_path_um``, ``in_vacuum`` and ``transmittance`` the
     other plausibility warnings. ``extra_warnings`` (e.g. the series fits') are passed through.
+    ``variance_shares=False`` skips the per-input draws (the shares are then all zero).
     """
     if int(draws) != draws or draws < 100:
         raise InputError(f"draws {draws!r} is too few; an integer of at least 100 is accepted")
@@ -411,7 +413,7 @@ def kappa_with_uncertainty(
             )
         med, p16, p84 = (float(x) for x in np.percentile(samples[good], [50, 16, 84]))
         var = {}
-        for i, g in enumerate(varying, start=1):
+        for i, g in enumerate(varying if variance_shares else [], start=1):
             check_cancel(cancel)
             ks = _kappa_draws(
                 sample(groups[g], draws), model, cancel, progress, i / n_steps, (i + 1) / n_steps
