@@ -21,10 +21,11 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import special
+from scipy import interpolate, special
 
 from flakebook.errors import InputError, check_cancel
 from flakebook.thermal import inversion as _inv
+from flakebook.thermal import model as _model
 from flakebook.thermal.inversion import HeatModel
 from flakebook.thermal.model import WEIGHTINGS
 from flakebook.thermal.warnings import plausibility_warnings
@@ -204,18 +205,109 @@ def _kappa_kirchhoff(chi_t, chi_p, a, t_nm, r_um, w_um, model: HeatModel) -> np.
     return kappa_a * (ta / model.reference_k) ** alpha
 
 
+def _grid(values: np.ndarray, n: int) -> np.ndarray:
+    lo, hi = float(np.min(values)), float(np.max(values))
+    if hi - lo < 1e-9 * max(abs(hi), 1.0):
+        return np.array([lo])
+    pad = 0.02 * (hi - lo)
+    return np.linspace(lo - pad, hi + pad, n)
+
+
+def _table(fn, xs: np.ndarray, ys: np.ndarray, cancel):
+    """A cubic interpolant of fn over the grid xs x ys (either of length 1: 1D or constant)."""
+    vals = np.empty((xs.size, ys.size))
+    for i, x in enumerate(xs):
+        check_cancel(cancel)
+        for j, y in enumerate(ys):
+            vals[i, j] = fn(x, y)
+    if xs.size > 1 and ys.size > 1:
+        spline = interpolate.RectBivariateSpline(xs, ys, vals, kx=3, ky=3)
+        return lambda x, y: spline.ev(x, y)
+    if xs.size > 1:
+        s1 = interpolate.CubicSpline(xs, vals[:, 0])
+        return lambda x, y: s1(x)
+    if ys.size > 1:
+        s2 = interpolate.CubicSpline(ys, vals[0, :])
+        return lambda x, y: s2(y)
+    return lambda x, y: np.full(np.shape(x), vals[0, 0])
+
+
+def _kappa_offset(chi_t, chi_p, a, t_nm, r_um, w_um, model: HeatModel, cancel) -> np.ndarray:
+    """Off-centre beam, edge at the sink: G depends on R/W and d/W only; tabulated once over
+    the draws' range (cubic, 9 x 9 solves) and kappa = G / (2 pi t R_meas)."""
+    rho, delta = r_um / w_um, abs(model.beam_offset_um) / w_um
+    ok = delta < rho
+
+    def g_of(x: float, y: float) -> float:
+        return _model.solve_membrane(
+            1.0, 1.0, x, 1.0, weighting=model.weighting, beam_offset_um=min(y, 0.999 * x)
+        ).geometry_factor
+
+    fn = _table(g_of, _grid(rho[ok], 9), _grid(delta[ok], 9), cancel)
+    g = np.where(ok, fn(rho, delta), np.nan)
+    r_meas = chi_p * 1e3 / (a * chi_t)
+    return g / (2 * np.pi * t_nm * 1e-9 * r_meas)
+
+
+def _kappa_supported(chi_t, chi_p, a, t_nm, r_um, w_um, model: HeatModel, cancel) -> np.ndarray:
+    """Supported annulus with conductance g: 2 pi kappa t R_m = F(R/W, beta), beta = g W^2 /
+    (kappa t), tabulated over the draws' range; beta F(beta) = 2 pi g W^2 R_meas is solved for
+    beta by bisection on the interpolant (it rises monotonically with beta)."""
+    g = float(model.interface_conductance_w_m2k)
+    rho = r_um / w_um
+    w_m, t_m = w_um * 1e-6, t_nm * 1e-9
+    r_meas = chi_p * 1e3 / (a * chi_t)
+    k_lin = _inv.geometry_factor(rho, 1.0, model.weighting) / (2 * np.pi * t_m * r_meas)
+    lb_lin = np.log(g * w_m**2 / (k_lin * t_m))
+    lbs = np.linspace(float(lb_lin.min()) - 7.0, float(lb_lin.max()) + 1.0, 33)
+
+    def f_of(x: float, lb: float) -> float:
+        # kappa = 1 W/m/K, t = 1 nm, W = 1 um: beta = g W^2 / (kappa t) = 1e-3 g
+        return _model.solve_membrane(
+            1.0,
+            1.0,
+            x,
+            1.0,
+            weighting=model.weighting,
+            interface_conductance_w_m2k=1e3 * math.exp(lb),
+        ).geometry_factor
+
+    fn = _table(f_of, _grid(rho, 9), lbs, cancel)
+    target = np.log(2 * np.pi * g * w_m**2 * r_meas)
+    lo = np.full(rho.size, lbs[0])
+    hi = np.full(rho.size, lbs[-1])
+
+    def h(lb: np.ndarray) -> np.ndarray:
+        return lb + np.log(fn(rho, lb)) - target
+
+    inside = (h(lo) < 0) & (h(hi) > 0)
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        up = h(mid) > 0
+        hi = np.where(up, mid, hi)
+        lo = np.where(up, lo, mid)
+    beta = np.exp(0.5 * (lo + hi))
+    return np.where(inside, g * w_m**2 / (beta * t_m), np.nan)
+
+
 def _kappa_draws(inputs: dict, model: HeatModel, cancel, progress, frac0, frac1) -> np.ndarray:
     chi_t, chi_p, a, t, r, w = (inputs[k] for k in ("chi_t", "chi_p", "a", "t", "r", "w"))
     ok = (a > 0) & (a < 1) & (w > 0) & (r > w) & (chi_t * chi_p > 0) & np.isfinite(a)
     out = np.full(chi_t.size, np.nan)
     if not np.any(ok):
         return out
+    linear = model.kappa_alpha == 0 or not model.powers_mw
     if model.is_simple:
         out[ok] = _inv.kappa_simple(
             chi_t[ok], chi_p[ok], a[ok], t[ok], r[ok], w[ok], model.weighting
         )
     elif model.interface_conductance_w_m2k is None and model.beam_offset_um == 0:
         out[ok] = _kappa_kirchhoff(chi_t[ok], chi_p[ok], a[ok], t[ok], r[ok], w[ok], model)
+    elif linear and model.interface_conductance_w_m2k is None:
+        ok &= abs(model.beam_offset_um) < r
+        out[ok] = _kappa_offset(chi_t[ok], chi_p[ok], a[ok], t[ok], r[ok], w[ok], model, cancel)
+    elif linear and model.beam_offset_um == 0 and model.supported_outer_radius_um is None:
+        out[ok] = _kappa_supported(chi_t[ok], chi_p[ok], a[ok], t[ok], r[ok], w[ok], model, cancel)
     else:
         idx = np.flatnonzero(ok)
         for j, i in enumerate(idx):
