@@ -193,3 +193,39 @@ def test_bad_geometry_refused():
         model.geometry_factor_closed_form(2.5, 0.5, "peak")
     with pytest.raises(InputError, match="offset"):
         model.solve_membrane(30.0, 1.938, 2.5, 0.5, beam_offset_um=3.0)
+
+
+def test_kappa_of_t_off_centre_tends_to_centred():
+    """kappa(T) with a beam off centre (Kirchhoff transform of the harmonic solve) tends to
+    the centred kappa(T) solve as the offset goes to zero, and a larger offset (nearer the cold
+    edge) reads cooler (definition; method of images for the sign)."""
+    c = model.solve_membrane(30.0, 1.938, 2.5, 0.5, 2e-5, kappa_alpha=1.0)
+    o = model.solve_membrane(30.0, 1.938, 2.5, 0.5, 2e-5, kappa_alpha=1.0, beam_offset_um=1e-6)
+    far = model.solve_membrane(30.0, 1.938, 2.5, 0.5, 2e-5, kappa_alpha=1.0, beam_offset_um=0.8)
+    assert o.temperature_rise_k == pytest.approx(c.temperature_rise_k, rel=1e-6)
+    assert far.temperature_rise_k < c.temperature_rise_k
+
+
+def test_supported_annulus_with_kappa_of_t_iterates():
+    """A supported annulus with kappa(T) is solved by fixed-point iteration; alpha = 0 there is
+    the linear supported solve (definition)."""
+    lin = model.solve_membrane(30.0, 1.938, 2.5, 0.5, 2e-5, interface_conductance_w_m2k=1e7)
+    zero = model.solve_membrane(
+        30.0, 1.938, 2.5, 0.5, 2e-5, interface_conductance_w_m2k=1e7, nonlinear="iterate"
+    )
+    hot = model.solve_membrane(
+        30.0, 1.938, 2.5, 0.5, 2e-5, interface_conductance_w_m2k=1e7, kappa_alpha=1.0
+    )
+    assert zero.temperature_rise_k == pytest.approx(lin.temperature_rise_k, rel=1e-12)
+    assert hot.iterations > 1 and hot.temperature_rise_k > lin.temperature_rise_k
+    with pytest.raises(InputError, match="Kirchhoff"):
+        model.solve_membrane(
+            30.0,
+            1.938,
+            2.5,
+            0.5,
+            2e-5,
+            interface_conductance_w_m2k=1e7,
+            kappa_alpha=1.0,
+            nonlinear="kirchhoff",
+        )
