@@ -298,3 +298,74 @@ def invert_kappa(
         method=label,
         warnings=tuple(warnings),
     )
+
+
+@dataclass(frozen=True)
+class KappaWithConductance:
+    """kappa of the membrane and the interface conductance g fitted to the supported series."""
+
+    kappa_w_mk: float
+    interface_conductance_w_m2k: float
+    suspended: KappaInversion
+    iterations: int
+
+
+def invert_kappa_and_conductance(
+    chi_t_cm1_per_k: float,
+    chi_p_cm1_per_mw: float,
+    absorptance: float,
+    chi_p_supported_cm1_per_mw: float,
+    absorptance_supported: float,
+    thickness_nm: float,
+    hole_radius_um: float,
+    beam_radius_um: float,
+    model: HeatModel = HeatModel(),  # noqa: B008 (frozen)
+) -> KappaWithConductance:
+    """kappa and g together from a power series on the membrane and one on the supported part.
+
+    The supported series gives R_sup = chi_P,sup / (A_sup chi_T), which the supported-flake model
+    (:func:`flakebook.thermal.model.supported_geometry_factor`, the substrate itself at the
+    ambient: its spreading resistance neglected) turns into g for a given kappa; the membrane's
+    series then gives kappa with that g on the supported annulus. The two are iterated to a
+    fixed point (the membrane's kappa depends only weakly on g). chi_T is shared.
+    """
+    check_inputs(
+        chi_t_cm1_per_k,
+        chi_p_supported_cm1_per_mw,
+        absorptance_supported,
+        thickness_nm,
+        hole_radius_um,
+        beam_radius_um,
+    )
+    r_sup = chi_p_supported_cm1_per_mw * 1e3 / (absorptance_supported * chi_t_cm1_per_k)
+    kappa = invert_kappa(
+        chi_t_cm1_per_k,
+        chi_p_cm1_per_mw,
+        absorptance,
+        thickness_nm,
+        hole_radius_um,
+        beam_radius_um,
+        HeatModel(weighting=model.weighting),
+    ).kappa_w_mk
+    g = float("nan")
+    for it in range(1, 51):
+        g = _model.interface_conductance_from_supported(
+            r_sup, kappa, thickness_nm, beam_radius_um, model.weighting
+        )
+        res = invert_kappa(
+            chi_t_cm1_per_k,
+            chi_p_cm1_per_mw,
+            absorptance,
+            thickness_nm,
+            hole_radius_um,
+            beam_radius_um,
+            HeatModel(**{**model.__dict__, "interface_conductance_w_m2k": g, "method": "auto"}),
+        )
+        done = abs(res.kappa_w_mk / kappa - 1) < 1e-9
+        kappa = res.kappa_w_mk
+        if done:
+            return KappaWithConductance(kappa, g, res, it)
+    raise InputError(
+        "kappa and the interface conductance did not settle together; check the supported "
+        "series (its thermal resistance may be too high for this membrane)"
+    )

@@ -128,3 +128,21 @@ def test_closed_form_inversion_formula():
     r_meas = 2.9e3 / (0.1 * 0.0056)
     expect = g / (2 * math.pi * 3 * MOSE2_SPACING_NM * 1e-9 * r_meas)
     assert invert_kappa(**EXAMPLE).kappa_w_mk == pytest.approx(expect, rel=1e-9)
+
+
+def test_kappa_and_conductance_from_two_series():
+    """A membrane series and a supported series made from one kappa and one g (forward models:
+    the finite-volume solver and the supported-flake E1 form, itself checked against the K0
+    Green's function) give both back."""
+    from flakebook.thermal.model import solve_membrane, supported_geometry_factor
+
+    kappa, g, t_nm = 25.0, 2.0e7, 3 * MOSE2_SPACING_NM
+    chi_t, a_s, a_sup = -0.0056, 0.10, 0.05
+    r_m = solve_membrane(kappa, t_nm, 2.5, 0.5, 1e-6, interface_conductance_w_m2k=g)
+    r_sus = r_m.temperature_rise_k / 1e-6
+    r_sup = supported_geometry_factor(g, kappa, t_nm, 0.5) / (2 * math.pi * kappa * t_nm * 1e-9)
+    res = inversion.invert_kappa_and_conductance(
+        chi_t, chi_t * a_s * r_sus * 1e-3, a_s, chi_t * a_sup * r_sup * 1e-3, a_sup, t_nm, 2.5, 0.5
+    )
+    assert res.kappa_w_mk == pytest.approx(kappa, rel=1e-5)
+    assert res.interface_conductance_w_m2k == pytest.approx(g, rel=1e-4)
