@@ -7,7 +7,7 @@
 Each is printed beside the time of one forward solve of the finite-volume solver (centred,
 constant kappa; and with kappa(T) at one power) and as a ratio to it.
 
-Run: PYTHONPATH=. /work/venv/bin/python tests/benchmarks/bench_thermal.py
+Run: PYTHONPATH=. python tests/benchmarks/bench_thermal.py
 """
 
 from __future__ import annotations
