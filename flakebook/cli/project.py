@@ -172,6 +172,9 @@ def _export(args: argparse.Namespace) -> int:
     with Project.open(args.project, read_only=True) as project:
         _show_warnings(project)
         rows = project.export_rows()
+    for problem in rows.problems:
+        message(f"flakebook: warning: {problem}")
+    payload = {"flakes": rows, "warnings": list(rows.problems)}
     fmt = args.format
     if args.out:
         out = Path(args.out)
@@ -180,7 +183,7 @@ def _export(args: argparse.Namespace) -> int:
         if fmt == "csv":
             text = csv_text(rows, EXPORT_COLUMNS)
         elif fmt == "json":
-            text = dumps({"flakes": rows}) + "\n"
+            text = dumps(payload) + "\n"
         else:
             text = table_text(rows, EXPORT_COLUMNS) + "\n"
         try:
@@ -189,7 +192,7 @@ def _export(args: argparse.Namespace) -> int:
             raise InputError(f"--out {out} cannot be written: {exc.strerror}") from None
         message(f"flakebook: wrote {len(rows)} flakes to {out}")
         return 0
-    emit(args, {"flakes": rows}, rows=rows, columns=EXPORT_COLUMNS)
+    emit(args, payload, rows=rows, columns=EXPORT_COLUMNS)
     return 0
 
 

@@ -1,0 +1,111 @@
+"""Project commands on damaged files, a full disk, moved images and special files: exit 2 with
+at most three lines (0 with a warning where the result is still sound), never an internal error,
+and the project file byte-identical afterwards (INTERFACE.md exit codes; common practice, no
+source)."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from flakebook.cli import main
+from flakebook.store import Project
+from tests.store.damage import DAMAGES, break_sample_reference, wrong_type
+
+
+def run(capsys, *argv):
+    code = main([str(a) for a in argv])
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def digest(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+@pytest.fixture
+def campaign(tmp_path):
+    path = tmp_path / "k7.flakebook"
+    with Project.create(path, clock=lambda: "2026-03-02T10:00:00Z") as p:
+        s = p.add_sample("K7-north", "MoSe2", "SiO2:285,Si")
+        tile = tmp_path / "tile.png"
+        tile.write_bytes(np.random.default_rng(3).integers(0, 256, 300, dtype=np.uint8).tobytes())
+        img = p.add_image(s, tile, pixel_size_um=0.1)
+        f1 = p.add_flake(s, "K7N-001")
+        p.add_appearance(f1, img, [[0, 0], [100, 0], [100, 100], [0, 100]])
+        p.add_assignment(f1, 2, probability=0.9, method="combined-posterior")
+        p.add_flake(s, "K7N-002")
+        p.add_flake(s, "K7N-003")
+    return path
+
+
+def _commands(tmp_path: Path, path: Path) -> list[list]:
+    results = tmp_path / "results.csv"
+    results.write_text(
+        "flake_id,kappa_w_mk,kappa_p16_w_mk,kappa_p84_w_mk,method,note\nK7N-001,40,35,45,x,\n"
+    )
+    return [
+        ["info", path],
+        ["export", path],
+        ["export", path, "--out", tmp_path / "cat.csv"],
+        ["assign", path, "--flake", "K7N-001"],
+        ["assign", path, "--flake", "K7N-001", "--layers", "2", "--reason", "shear mode"],
+        ["pack", path],
+        ["relink", path, "--search", tmp_path],
+        ["recompute", path],
+        ["handoff", "export", path, "--flakes", "K7N-001", "--out", tmp_path / "h.json"],
+        ["handoff", "import", path, results],
+    ]
+
+
+@pytest.mark.parametrize("damage", sorted(DAMAGES))
+def test_damaged_file_every_command_refuses_in_three_lines_and_changes_nothing(
+    campaign, tmp_path, capsys, damage
+):
+    DAMAGES[damage](campaign)
+    before = digest(campaign)
+    for argv in _commands(tmp_path, campaign):
+        code, out, err = run(capsys, *argv)
+        assert code == 2, (argv[0], code, err)
+        assert "internal error" not in err and "Traceback" not in err
+        assert 1 <= len(err.strip().splitlines()) <= 3, err
+        assert "damaged" in err, (argv[0], err)
+        assert digest(campaign) == before, argv[0]
+        assert not (tmp_path / "cat.csv").exists() and not (tmp_path / "h.json").exists()
+        assert not Path(str(campaign) + ".lock").exists()
+
+
+def test_export_and_info_warn_of_a_flake_whose_sample_reference_is_broken(
+    campaign, tmp_path, capsys
+):
+    fid = break_sample_reference(campaign, "K7N-002")
+    before = digest(campaign)
+    code, out, err = run(capsys, "export", campaign)
+    assert code == 0
+    assert [f["flake_id"] for f in json.loads(out)["flakes"]] == ["K7N-001", "K7N-003"]
+    assert f"1 flake could not be read: its sample reference is broken (flake id {fid})" in err
+    code, out, err = run(capsys, "export", campaign, "--format", "csv")
+    assert code == 0 and "sample reference is broken" in err and "K7N-002" not in out
+    assert digest(campaign) == before
+
+
+def test_a_value_of_the_wrong_type_exits_2_or_warns_never_internal(campaign, tmp_path, capsys):
+    fid = wrong_type(campaign, "K7N-003")
+    before = digest(campaign)
+    code, out, err = run(capsys, "export", campaign)
+    assert code == 0 and f"tags are not readable (flake id {fid})" in err
+    for argv in _commands(tmp_path, campaign):
+        code, out, err = run(capsys, *argv)
+        assert code in (0, 2), (argv[0], err)
+        assert "internal error" not in err and len(err.strip().splitlines()) <= 3
+    code, out, err = run(capsys, "assign", campaign, "--flake", "K7N-003")
+    assert code == 2 and f"flake id {fid} cannot be read: its tags" in err
+    code, out, err = run(
+        capsys, "assign", campaign, "--flake", "K7N-001", "--layers", "3", "--reason", "x"
+    )
+    assert code == 0, "the intact flakes stay editable"
+    assert digest(campaign) != before
