@@ -25,6 +25,7 @@ from flakebook.cli._common import (
 )
 from flakebook.errors import InputError
 from flakebook.store import DEFAULT_MAX_LAYERS, Project, record_to_dict
+from flakebook.store.outfile import write_file
 from flakebook.store.project import EXPORT_COLUMNS
 from flakebook.store.recompute import load_recomputers
 from flakebook.substrate import format_substrate, oxide_stack, parse_substrate
@@ -186,10 +187,7 @@ def _export(args: argparse.Namespace) -> int:
             text = dumps(payload) + "\n"
         else:
             text = table_text(rows, EXPORT_COLUMNS) + "\n"
-        try:
-            out.write_text(text, encoding="utf-8")
-        except OSError as exc:
-            raise InputError(f"--out {out} cannot be written: {exc.strerror}") from None
+        write_file(out, text)
         message(f"flakebook: wrote {len(rows)} flakes to {out}")
         return 0
     emit(args, payload, rows=rows, columns=EXPORT_COLUMNS)
@@ -394,10 +392,7 @@ def _handoff_export(args: argparse.Namespace) -> int:
         _show_warnings(project)
         bundle = project.handoff_bundle(keys)
     out = Path(args.out)
-    try:
-        out.write_text(json.dumps(bundle, ensure_ascii=False, indent=1) + "\n", encoding="utf-8")
-    except OSError as exc:
-        raise InputError(f"--out {out} cannot be written: {exc.strerror}") from None
+    write_file(out, json.dumps(bundle, ensure_ascii=False, indent=1) + "\n")
     message(f"flakebook: wrote {len(keys)} flakes to {out}")
     return 0
 

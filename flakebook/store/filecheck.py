@@ -145,9 +145,10 @@ def is_disk_full(exc: BaseException) -> bool:
     return False
 
 
-def sql_error(path: Path, exc: sqlite3.Error) -> FlakebookError:
-    """The error for the user in place of an SQLite error on ``path``: a full disk, a damaged
-    file (a corrupted page, a missing table or column), or the file that cannot be used."""
+def sql_error(path: Path, exc: sqlite3.Error, *, otherwise: str | None = None) -> FlakebookError:
+    """The error for the user in place of an SQLite error on ``path``: a full disk, a broken
+    reference (InputError), a damaged file (a corrupted page, a missing table or column), or
+    else ``otherwise`` (default: the file cannot be used)."""
     code = (getattr(exc, "sqlite_errorcode", 0) or 0) & 0xFF
     text = str(exc)
     if code == _SQLITE_FULL:
@@ -166,7 +167,7 @@ def sql_error(path: Path, exc: sqlite3.Error) -> FlakebookError:
         or text.startswith(("no such table", "no such column"))
     ):
         return ProjectError(damaged_message(path, f"SQLite: {text}"))
-    return ProjectError(f"{path} cannot be used: {text}")
+    return ProjectError(otherwise or f"{path} cannot be used: {text}")
 
 
 def _newer_message(path: Path, version: int) -> str:

@@ -48,6 +48,7 @@ from flakebook.store.filecheck import (
     check_integrity,
     check_tables,
     inspect,
+    is_disk_full,
     journal_path,
     sql_error,
 )
@@ -172,9 +173,22 @@ class _ProjectCore:
                 raise ProjectError(f"{path} already exists; choose another name or open it")
             os.replace(tmp, path)
             con = cls._connect_rw(path)
-        except BaseException:
+        except BaseException as exc:
             tmp.unlink(missing_ok=True)
             lock.release(path, lock_info)
+            if isinstance(exc, sqlite3.Error):
+                raise sql_error(
+                    path, exc, otherwise=f"{path} could not be created ({exc}); no file was made"
+                ) from None
+            if isinstance(exc, OSError):
+                if is_disk_full(exc):
+                    raise ProjectError(
+                        f"{path} could not be created: the disk is full; no file was made.\n"
+                        "Free some space on that disk and try again."
+                    ) from None
+                raise ProjectError(
+                    f"{path} could not be created: {exc.strerror or exc}; no file was made"
+                ) from None
             raise
         return cls(
             path,
@@ -402,29 +416,43 @@ class _ProjectCore:
         depth = self._depth
         if depth == 0:
             con.execute("BEGIN IMMEDIATE")
+        elif not con.in_transaction:
+            raise ProjectError(
+                f"{self._path} could not be saved: this action was already undone by an error "
+                "inside it; nothing of it was saved"
+            )
         else:
             con.execute(f"SAVEPOINT sp{depth}")
         self._depth += 1
         try:
             yield self
             if depth == 0:
+                if not con.in_transaction:  # SQLite undid it (a full disk) and it was caught
+                    raise ProjectError(
+                        f"{self._path} could not be saved: an error inside this action undid "
+                        "it; nothing of it was saved"
+                    )
                 con.execute("COMMIT")
         except BaseException as exc:
             self._depth -= 1
-            if depth == 0:
-                if con.in_transaction:
-                    con.execute("ROLLBACK")
-            else:
-                con.execute(f"ROLLBACK TO sp{depth}")
-                con.execute(f"RELEASE sp{depth}")
-            if isinstance(exc, sqlite3.IntegrityError):
-                raise InputError(
-                    f"{self._path.name}: this change refers to a record that does not exist or "
-                    f"repeats a unique name ({exc}); nothing was changed"
-                ) from None
+            # SQLite rolls a whole transaction back by itself on some errors (a full disk):
+            # then there is no savepoint left to undo, and the cause is what the user needs.
+            if con.in_transaction:
+                try:
+                    if depth == 0:
+                        con.execute("ROLLBACK")
+                    else:
+                        con.execute(f"ROLLBACK TO sp{depth}")
+                        con.execute(f"RELEASE sp{depth}")
+                except sqlite3.Error:
+                    if not isinstance(exc, sqlite3.Error):
+                        raise
             if isinstance(exc, sqlite3.Error):
-                raise ProjectError(
-                    f"{self._path} could not be saved ({exc}); nothing of this action was saved"
+                raise sql_error(
+                    self._path,
+                    exc,
+                    otherwise=f"{self._path} could not be saved ({exc}); nothing of this action "
+                    "was saved",
                 ) from None
             raise
         self._depth -= 1

@@ -5,8 +5,12 @@ source)."""
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
+import os
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -109,3 +113,70 @@ def test_a_value_of_the_wrong_type_exits_2_or_warns_never_internal(campaign, tmp
     )
     assert code == 0, "the intact flakes stay editable"
     assert digest(campaign) != before
+
+
+def _no_space(*args, **kwargs):
+    raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+
+@pytest.mark.parametrize(
+    "argv",
+    [
+        ["export", "{p}", "--out", "{d}/cat.csv"],
+        ["export", "{p}", "--out", "{d}/cat.json", "--format", "json"],
+        ["handoff", "export", "{p}", "--flakes", "K7N-001", "--out", "{d}/h.json"],
+    ],
+)
+def test_output_on_a_full_disk_is_named_and_leaves_no_file(
+    campaign, tmp_path, capsys, monkeypatch, argv
+):
+    """ENOSPC simulated on the OS write: exit 2, 'the disk is full', no partial output file."""
+    out_dir = tmp_path / "out"
+    out_dir.mkdir()
+    argv = [a.format(p=campaign, d=out_dir) for a in argv]
+    before = digest(campaign)
+    monkeypatch.setattr(os, "write", _no_space)
+    code, out, err = run(capsys, *argv)
+    monkeypatch.undo()
+    assert code == 2 and "the disk is full" in err, err
+    assert len(err.strip().splitlines()) <= 3
+    assert list(out_dir.iterdir()) == [], "no empty or partial file, no temporary"
+    assert digest(campaign) == before
+
+
+def test_survey_into_a_project_on_a_full_disk_names_the_disk(tmp_path):
+    """survey --project when the project cannot grow (SQLITE_FULL from max_page_count, set on
+    every read-write connection of the child process)."""
+    from tests.imaging.test_cli import ARGS, _png
+
+    _png(tmp_path / "a.png")
+    proj = tmp_path / "run.flakebook"
+    with Project.create(proj) as p:
+        p.add_sample("chip-A", "MoSe2", oxide_nm=285)
+    before = digest(proj)
+    child = (
+        "import sys\n"
+        "from flakebook.store import project as pm\n"
+        "real = pm._ProjectCore._connect_rw\n"
+        "def full(path):\n"
+        "    con = real(path)\n"
+        "    n = con.execute('PRAGMA page_count').fetchone()[0]\n"
+        "    con.execute(f'PRAGMA max_page_count = {n}')\n"
+        "    return con\n"
+        "pm._ProjectCore._connect_rw = staticmethod(full)\n"
+        "from flakebook.cli import main\n"
+        "sys.exit(main(sys.argv[1:]))\n"
+    )
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
+    out = subprocess.run(
+        [sys.executable, "-c", child, "survey", str(tmp_path / "a.png"), *ARGS]
+        + ["--project", str(proj), "--format", "json"],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=300,
+    )
+    assert "the disk is full" in out.stderr, out.stderr
+    assert "savepoint" not in out.stderr and "internal error" not in out.stderr
+    assert out.returncode == 2
+    assert digest(proj) == before
