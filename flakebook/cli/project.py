@@ -150,6 +150,18 @@ def _info(args: argparse.Namespace) -> int:
     with Project.open(args.project, read_only=True) as project:
         _show_warnings(project)
         info = project.info()
+    for img in info["images_missing"]:
+        serves = "; its embedded copy is used" if img["embedded"] else ""
+        message(
+            f"flakebook: warning: image {img['path']} is missing (looked at {img['looked_at']})"
+            f"{serves}; find it with flakebook relink PROJECT --search DIR"
+        )
+    for img in info["images_changed"]:
+        serves = "; its embedded copy is used" if img["embedded"] else ""
+        message(
+            f"flakebook: warning: image {img['path']} has changed since it was added (its "
+            f"SHA-256 differs){serves}; relink it to the original file"
+        )
     lines = [
         f"{info['path']}  (project format {info['project_format']}, N_max {info['max_layers']})",
         "  " + ", ".join(f"{n} {kind}" for kind, n in info["counts"].items() if n),

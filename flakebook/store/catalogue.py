@@ -43,7 +43,8 @@ class CatalogueQueries:
     Relies on the project core (``_db``, ``_path``, ``_meta``, ``_read_only``, ``count``,
     ``schema_version``, ``max_layers``), on :class:`~flakebook.store.kinds.RecordKinds`
     (``samples``, ``images_of``, ``flakes_of``) and on
-    :class:`~flakebook.store.provenance.Provenance` (``stale_records``).
+    :class:`~flakebook.store.provenance.Provenance` (``stale_records``) and on
+    :class:`~flakebook.store.files.ImageFiles` (``check_images``).
     """
 
     def catalogue(self, sample: RecordRef | None = None) -> CatalogueRows:
@@ -135,7 +136,9 @@ class CatalogueQueries:
         return CatalogueRows(out, catalogue.problems)
 
     def info(self) -> dict[str, Any]:
-        """A summary: file, format, counts of every record kind, stale records, samples."""
+        """A summary: file, format, counts of every record kind, stale records, samples, and
+        the images whose file is missing or changed (``images_missing``, ``images_changed``:
+        ``{"image_id", "path", "embedded", "looked_at"}``; an embedded copy still serves)."""
         counts = {kind: self.count(kind) for kind in KINDS}
         samples = []
         for s in self.samples():
@@ -150,6 +153,7 @@ class CatalogueQueries:
                 }
             )
         embedded = self._db.execute("SELECT COUNT(*) FROM image_data").fetchone()[0]
+        checks = [c for c in self.check_images() if c.status != "ok"]
         return {
             "path": str(self._path),
             "project_format": self.schema_version,
@@ -160,6 +164,8 @@ class CatalogueQueries:
             "images_embedded": embedded,
             "stale": len(self.stale_records()),
             "samples": samples,
+            "images_missing": _image_list(checks, "missing"),
+            "images_changed": _image_list(checks, "changed"),
         }
 
     def canonical_dump(self, *, include_timestamps: bool = True) -> dict[str, Any]:
@@ -194,6 +200,14 @@ class CatalogueQueries:
                 rows.append([_canonical_value(row[i]) for i in keep])
             out["tables"][table] = {"columns": [columns[i] for i in keep], "rows": rows}
         return out
+
+
+def _image_list(checks, status: str) -> list[dict[str, Any]]:
+    return [
+        {"image_id": c.image_id, "path": c.path, "embedded": c.embedded, "looked_at": c.file}
+        for c in checks
+        if c.status == status
+    ]
 
 
 def _tags(text: str) -> tuple:

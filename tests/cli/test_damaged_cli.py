@@ -180,3 +180,33 @@ def test_survey_into_a_project_on_a_full_disk_names_the_disk(tmp_path):
     assert "savepoint" not in out.stderr and "internal error" not in out.stderr
     assert out.returncode == 2
     assert digest(proj) == before
+
+
+def test_info_names_missing_and_changed_images(campaign, tmp_path, capsys):
+    """Moved images (relink finds them) and edited ones: exit 0, one warning naming each."""
+    with Project.open(campaign) as p:
+        s = p.sample_by_name("K7-north")
+        second = tmp_path / "tile_2.png"
+        second.write_bytes(b"\x89PNG" + bytes(range(200)))
+        p.add_image(s, second, pixel_size_um=0.1)
+    code, out, err = run(capsys, "info", campaign)
+    assert code == 0 and err == ""
+    info = json.loads(out)
+    assert info["images_missing"] == [] and info["images_changed"] == []
+    moved = tmp_path / "moved"
+    moved.mkdir()
+    (tmp_path / "tile.png").rename(moved / "tile.png")
+    second.write_bytes(b"\x89PNG" + bytes(range(201)))
+    before = digest(campaign)
+    code, out, err = run(capsys, "info", campaign)
+    assert code == 0
+    info = json.loads(out)
+    assert [m["path"] for m in info["images_missing"]] == ["tile.png"]
+    assert [c["path"] for c in info["images_changed"]] == ["tile_2.png"]
+    lines = err.strip().splitlines()
+    assert any("tile.png" in line and "missing" in line for line in lines), err
+    assert any("tile_2.png" in line and "changed" in line for line in lines), err
+    assert any("relink" in line for line in lines)
+    assert digest(campaign) == before
+    code, out, err = run(capsys, "info", campaign, "--format", "table")
+    assert code == 0 and "tile.png" in err
