@@ -209,11 +209,22 @@ def _export(args: argparse.Namespace) -> int:
 def _pack(args: argparse.Namespace) -> int:
     with Project.open(args.project) as project:
         _show_warnings(project)
+        outside = project.images_outside_folder()
         added = project.pack(progress=Progress(), cancel=cancel_event())
         total = project.count("image")
+    if outside:
+        shown = ", ".join(c.path for c in outside[:3]) + (" ..." if len(outside) > 3 else "")
+        message(
+            f"flakebook: warning: {len(outside)} image(s) outside the project folder were read "
+            f"and embedded after their SHA-256 matched: {shown}"
+        )
     emit(
         args,
-        {"embedded": added, "images": total},
+        {
+            "embedded": added,
+            "images": total,
+            "outside_folder": [{"image_id": c.image_id, "path": c.path} for c in outside],
+        },
         text=f"embedded {added} images; all {total} images are now in {args.project}",
     )
     return 0

@@ -61,13 +61,17 @@ def unreadable_summary(unreadable: list[tuple[int, str]], kind: str = "flake") -
 
 @dataclass(frozen=True)
 class ImageCheck:
-    """The state of an image's file: ``ok``, ``missing`` or ``changed`` (hash differs)."""
+    """The state of an image's file: ``ok``, ``missing`` or ``changed`` (hash differs).
+
+    ``note`` says more where there is more to say (a FIFO or a device in the file's place is
+    ``missing``, with the note "not a regular file (a FIFO)": it is never read)."""
 
     image_id: int
     path: str
     status: str
     embedded: bool
     file: str
+    note: str = ""
 
 
 @dataclass(frozen=True)

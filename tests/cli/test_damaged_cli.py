@@ -210,3 +210,101 @@ def test_info_names_missing_and_changed_images(campaign, tmp_path, capsys):
     assert digest(campaign) == before
     code, out, err = run(capsys, "info", campaign, "--format", "table")
     assert code == 0 and "tile.png" in err
+
+
+_CHILD = "import sys\nfrom flakebook.cli import main\nsys.exit(main(sys.argv[1:]))\n"
+
+
+def _cli(*argv, timeout=60):
+    """The command in a child process, so that a read that would hang fails the test."""
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
+    return subprocess.run(
+        [sys.executable, "-c", _CHILD, *map(str, argv)],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=timeout,
+    )
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs FIFOs (POSIX)")
+def test_pack_never_reads_a_fifo_in_place_of_an_image(campaign, tmp_path):
+    tile = tmp_path / "tile.png"
+    tile.unlink()
+    os.mkfifo(tile)
+    before = digest(campaign)
+    out = _cli("pack", campaign)
+    assert out.returncode == 2, out.stderr
+    assert "tile.png" in out.stderr and "not a regular file" in out.stderr
+    assert len(out.stderr.strip().splitlines()) <= 3
+    assert digest(campaign) == before
+    with Project.open(campaign, read_only=True) as p:
+        (check,) = p.check_images()
+        assert check.status == "missing" and "not a regular file" in check.note
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs FIFOs (POSIX)")
+def test_reading_and_relinking_skip_special_files(campaign, tmp_path):
+    """An image whose file is a FIFO is refused, not read (image_bytes in a child process); a
+    FIFO in the searched folder is passed over by relink (an empty image would match its size)."""
+    with Project.open(campaign) as p:
+        empty = tmp_path / "blank.png"
+        empty.write_bytes(b"")
+        p.add_image(p.sample_by_name("K7-north"), empty, pixel_size_um=0.1)
+    (tmp_path / "tile.png").unlink()
+    os.mkfifo(tmp_path / "tile.png")
+    child = (
+        "import sys\n"
+        "from flakebook.errors import ProjectError\n"
+        "from flakebook.store import Project\n"
+        "with Project.open(sys.argv[1], read_only=True) as p:\n"
+        "    try:\n"
+        "        p.image_bytes(p.records('image')[0])\n"
+        "    except ProjectError as exc:\n"
+        "        print(exc)\n"
+    )
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
+    out = subprocess.run(
+        [sys.executable, "-c", child, str(campaign)],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=60,
+    )
+    assert "not a regular file" in out.stdout, out.stdout + out.stderr
+    empty.unlink()
+    search = tmp_path / "search"
+    search.mkdir()
+    os.mkfifo(search / "blank.png")
+    out = _cli("relink", campaign, "--search", search, "--format", "json")
+    assert out.returncode == 0, out.stderr
+    assert json.loads(out.stdout)["relinked"] == []
+
+
+def test_pack_reports_images_outside_the_project_folder(tmp_path, capsys):
+    folder = tmp_path / "campaign"
+    folder.mkdir()
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    far = elsewhere / "far.png"
+    far.write_bytes(b"\x89PNG" + bytes(range(100)))
+    near = folder / "near.png"
+    near.write_bytes(b"\x89PNG" + bytes(range(50)))
+    path = folder / "k7.flakebook"
+    with Project.create(path) as p:
+        s = p.add_sample("K7-north", "MoSe2", "SiO2:285,Si")
+        p.add_image(s, far, pixel_size_um=0.1)
+        p.add_image(s, near, pixel_size_um=0.1)
+        stored = p.records("image")[0].path
+    assert stored.startswith("../elsewhere/")
+    far.write_bytes(b"something else")
+    before = digest(path)
+    code, out, err = run(capsys, "pack", path)
+    assert code == 2 and "changed" in err and digest(path) == before, "the hash is checked"
+    far.write_bytes(b"\x89PNG" + bytes(range(100)))
+    code, out, err = run(capsys, "pack", path)
+    assert code == 0
+    result = json.loads(out)
+    assert result["embedded"] == 2
+    assert [o["path"] for o in result["outside_folder"]] == [stored]
+    assert "outside the project folder" in err and stored in err
