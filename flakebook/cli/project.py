@@ -150,6 +150,8 @@ def _info(args: argparse.Namespace) -> int:
     with Project.open(args.project, read_only=True) as project:
         _show_warnings(project)
         info = project.info()
+    for problem in info["unreadable"]:
+        message(f"flakebook: warning: {problem}")
     for img in info["images_missing"]:
         serves = "; its embedded copy is used" if img["embedded"] else ""
         message(

@@ -138,7 +138,8 @@ class CatalogueQueries:
     def info(self) -> dict[str, Any]:
         """A summary: file, format, counts of every record kind, stale records, samples, and
         the images whose file is missing or changed (``images_missing``, ``images_changed``:
-        ``{"image_id", "path", "embedded", "looked_at"}``; an embedded copy still serves)."""
+        ``{"image_id", "path", "embedded", "looked_at"}``; an embedded copy still serves), and
+        ``unreadable``: the catalogue's problems (flakes that could not be read)."""
         counts = {kind: self.count(kind) for kind in KINDS}
         samples = []
         for s in self.samples():
@@ -164,6 +165,7 @@ class CatalogueQueries:
             "images_embedded": embedded,
             "stale": len(self.stale_records()),
             "samples": samples,
+            "unreadable": list(self.catalogue().problems),
             "images_missing": _image_list(checks, "missing"),
             "images_changed": _image_list(checks, "changed"),
         }

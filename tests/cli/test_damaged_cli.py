@@ -94,6 +94,11 @@ def test_export_and_info_warn_of_a_flake_whose_sample_reference_is_broken(
     assert f"1 flake could not be read: its sample reference is broken (flake id {fid})" in err
     code, out, err = run(capsys, "export", campaign, "--format", "csv")
     assert code == 0 and "sample reference is broken" in err and "K7N-002" not in out
+    code, out, err = run(capsys, "info", campaign)
+    assert code == 0 and f"sample reference is broken (flake id {fid})" in err
+    assert json.loads(out)["unreadable"] == [
+        f"1 flake could not be read: its sample reference is broken (flake id {fid})"
+    ]
     assert digest(campaign) == before
 
 
