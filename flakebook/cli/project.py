@@ -25,6 +25,7 @@ from flakebook.cli._common import (
 )
 from flakebook.errors import InputError
 from flakebook.store import DEFAULT_MAX_LAYERS, Project, record_to_dict
+from flakebook.store.outfile import write_file
 from flakebook.store.project import EXPORT_COLUMNS
 from flakebook.store.recompute import load_recomputers
 from flakebook.substrate import format_substrate, oxide_stack, parse_substrate
@@ -149,6 +150,20 @@ def _info(args: argparse.Namespace) -> int:
     with Project.open(args.project, read_only=True) as project:
         _show_warnings(project)
         info = project.info()
+    for problem in info["unreadable"]:
+        message(f"flakebook: warning: {problem}")
+    for img in info["images_missing"]:
+        serves = "; its embedded copy is used" if img["embedded"] else ""
+        message(
+            f"flakebook: warning: image {img['path']} is missing (looked at {img['looked_at']})"
+            f"{serves}; find it with flakebook relink PROJECT --search DIR"
+        )
+    for img in info["images_changed"]:
+        serves = "; its embedded copy is used" if img["embedded"] else ""
+        message(
+            f"flakebook: warning: image {img['path']} has changed since it was added (its "
+            f"SHA-256 differs){serves}; relink it to the original file"
+        )
     lines = [
         f"{info['path']}  (project format {info['project_format']}, N_max {info['max_layers']})",
         "  " + ", ".join(f"{n} {kind}" for kind, n in info["counts"].items() if n),
@@ -172,6 +187,9 @@ def _export(args: argparse.Namespace) -> int:
     with Project.open(args.project, read_only=True) as project:
         _show_warnings(project)
         rows = project.export_rows()
+    for problem in rows.problems:
+        message(f"flakebook: warning: {problem}")
+    payload = {"flakes": rows, "warnings": list(rows.problems)}
     fmt = args.format
     if args.out:
         out = Path(args.out)
@@ -180,27 +198,35 @@ def _export(args: argparse.Namespace) -> int:
         if fmt == "csv":
             text = csv_text(rows, EXPORT_COLUMNS)
         elif fmt == "json":
-            text = dumps({"flakes": rows}) + "\n"
+            text = dumps(payload) + "\n"
         else:
             text = table_text(rows, EXPORT_COLUMNS) + "\n"
-        try:
-            out.write_text(text, encoding="utf-8")
-        except OSError as exc:
-            raise InputError(f"--out {out} cannot be written: {exc.strerror}") from None
+        write_file(out, text)
         message(f"flakebook: wrote {len(rows)} flakes to {out}")
         return 0
-    emit(args, {"flakes": rows}, rows=rows, columns=EXPORT_COLUMNS)
+    emit(args, payload, rows=rows, columns=EXPORT_COLUMNS)
     return 0
 
 
 def _pack(args: argparse.Namespace) -> int:
     with Project.open(args.project) as project:
         _show_warnings(project)
+        outside = project.images_outside_folder()
         added = project.pack(progress=Progress(), cancel=cancel_event())
         total = project.count("image")
+    if outside:
+        shown = ", ".join(c.path for c in outside[:3]) + (" ..." if len(outside) > 3 else "")
+        message(
+            f"flakebook: warning: {len(outside)} image(s) outside the project folder were read "
+            f"and embedded after their SHA-256 matched: {shown}"
+        )
     emit(
         args,
-        {"embedded": added, "images": total},
+        {
+            "embedded": added,
+            "images": total,
+            "outside_folder": [{"image_id": c.image_id, "path": c.path} for c in outside],
+        },
         text=f"embedded {added} images; all {total} images are now in {args.project}",
     )
     return 0
@@ -391,10 +417,7 @@ def _handoff_export(args: argparse.Namespace) -> int:
         _show_warnings(project)
         bundle = project.handoff_bundle(keys)
     out = Path(args.out)
-    try:
-        out.write_text(json.dumps(bundle, ensure_ascii=False, indent=1) + "\n", encoding="utf-8")
-    except OSError as exc:
-        raise InputError(f"--out {out} cannot be written: {exc.strerror}") from None
+    write_file(out, json.dumps(bundle, ensure_ascii=False, indent=1) + "\n")
     message(f"flakebook: wrote {len(keys)} flakes to {out}")
     return 0
 

@@ -16,7 +16,7 @@ from typing import Any
 from flakebook.store._util import RecordRef, id_of
 from flakebook.store.kinds import PRIMARY_TERRACE_SQL
 from flakebook.store.records import KINDS, layer_spacing_nm
-from flakebook.store.results import CatalogueRow
+from flakebook.store.results import CatalogueRow, CatalogueRows, unreadable_summary
 
 #: The keys of ``flakebook export`` rows, in order (INTERFACE.md).
 EXPORT_COLUMNS = (
@@ -43,39 +43,56 @@ class CatalogueQueries:
     Relies on the project core (``_db``, ``_path``, ``_meta``, ``_read_only``, ``count``,
     ``schema_version``, ``max_layers``), on :class:`~flakebook.store.kinds.RecordKinds`
     (``samples``, ``images_of``, ``flakes_of``) and on
-    :class:`~flakebook.store.provenance.Provenance` (``stale_records``).
+    :class:`~flakebook.store.provenance.Provenance` (``stale_records``) and on
+    :class:`~flakebook.store.files.ImageFiles` (``check_images``).
     """
 
-    def catalogue(self, sample: RecordRef | None = None) -> list[CatalogueRow]:
+    def catalogue(self, sample: RecordRef | None = None) -> CatalogueRows:
         """The flakes (of one sample, or all) with their latest assignment, area (from the
-        finest-pixel image), fully covered holes and whether anything of theirs is stale."""
+        finest-pixel image), fully covered holes and whether anything of theirs is stale.
+
+        A flake that cannot be read (its sample reference broken, a value of the wrong type) is
+        not a row: it is named in the result's ``problems``."""
         sid = id_of(sample)
         con = self._db
         # Few flakes cover holes or have stale records: two small queries, looked up per row.
         covered = {r[0]: r[1:] for r in con.execute(_COVERED_SQL)}
         stale = {r[0] for r in con.execute(_STALE_SQL)}
         make = CatalogueRow._make
-        return [
-            make(
-                (
-                    *r[:6],
-                    _tags(r[6]),
-                    *r[7:11],
-                    bool(r[11]),
-                    *covered.get(r[0], (0, None)),
-                    r[0] in stale,
+        rows, unreadable = [], []
+        for r in con.execute(_CATALOGUE_SQL, (sid, sid)):
+            reason = _unreadable(r)
+            if reason is None:
+                try:
+                    tags = _tags(r[6])
+                except (TypeError, ValueError):
+                    reason = "its tags are not readable"
+            if reason is not None:
+                unreadable.append((r[0], reason))
+                continue
+            rows.append(
+                make(
+                    (
+                        *r[:6],
+                        tags,
+                        *r[7:11],
+                        bool(r[11]),
+                        *covered.get(r[0], (0, None)),
+                        r[0] in stale,
+                    )
                 )
             )
-            for r in con.execute(_CATALOGUE_SQL, (sid, sid))
-        ]
+        unreadable.sort()
+        return CatalogueRows(rows, unreadable_summary(unreadable))
 
-    def export_rows(self, sample: RecordRef | None = None) -> list[dict[str, Any]]:
+    def export_rows(self, sample: RecordRef | None = None) -> CatalogueRows:
         """The rows of ``flakebook export`` (INTERFACE.md): ``flake_id`` (the label),
         ``sample``, ``area_um2``, ``layers``, ``probability``, ``holes_covered`` (fully covered),
         ``thickness_nm``, ``kappa_w_mk``, ``kappa_p16_w_mk``, ``kappa_p84_w_mk``, ``stale``.
 
         kappa comes from the latest thermometry result, else the latest imported result;
-        thickness is that result's own, else layers x the material's layer spacing.
+        thickness is that result's own, else layers x the material's layer spacing. Flakes
+        that cannot be read are named in the result's ``problems`` (as in :meth:`catalogue`).
         """
         thermo = {
             r[0]: r[1:]
@@ -94,7 +111,8 @@ class CatalogueQueries:
             )
         }
         out = []
-        for row in self.catalogue(sample):
+        catalogue = self.catalogue(sample)
+        for row in catalogue:
             kappa, p16, p84, thickness = thermo.get(row.flake_id) or external.get(
                 row.flake_id, (None, None, None, None)
             )
@@ -115,10 +133,13 @@ class CatalogueQueries:
                 row.stale,
             )
             out.append(dict(zip(EXPORT_COLUMNS, values, strict=True)))
-        return out
+        return CatalogueRows(out, catalogue.problems)
 
     def info(self) -> dict[str, Any]:
-        """A summary: file, format, counts of every record kind, stale records, samples."""
+        """A summary: file, format, counts of every record kind, stale records, samples, and
+        the images whose file is missing or changed (``images_missing``, ``images_changed``:
+        ``{"image_id", "path", "embedded", "looked_at"}``; an embedded copy still serves), and
+        ``unreadable``: the catalogue's problems (flakes that could not be read)."""
         counts = {kind: self.count(kind) for kind in KINDS}
         samples = []
         for s in self.samples():
@@ -133,6 +154,7 @@ class CatalogueQueries:
                 }
             )
         embedded = self._db.execute("SELECT COUNT(*) FROM image_data").fetchone()[0]
+        checks = [c for c in self.check_images() if c.status != "ok"]
         return {
             "path": str(self._path),
             "project_format": self.schema_version,
@@ -143,6 +165,9 @@ class CatalogueQueries:
             "images_embedded": embedded,
             "stale": len(self.stale_records()),
             "samples": samples,
+            "unreadable": list(self.catalogue().problems),
+            "images_missing": _image_list(checks, "missing"),
+            "images_changed": _image_list(checks, "changed"),
         }
 
     def canonical_dump(self, *, include_timestamps: bool = True) -> dict[str, Any]:
@@ -179,8 +204,40 @@ class CatalogueQueries:
         return out
 
 
+def _image_list(checks, status: str) -> list[dict[str, Any]]:
+    return [
+        {"image_id": c.image_id, "path": c.path, "embedded": c.embedded, "looked_at": c.file}
+        for c in checks
+        if c.status == status
+    ]
+
+
 def _tags(text: str) -> tuple:
-    return () if text == "[]" else tuple(json.loads(text))
+    if text == "[]":
+        return ()
+    tags = json.loads(text)
+    if not isinstance(tags, list) or not all(isinstance(t, str) for t in tags):
+        raise ValueError("tags are a JSON list of texts")
+    return tuple(tags)
+
+
+_NUMBER = (int, float)
+
+
+def _unreadable(r) -> str | None:
+    """Why a catalogue row cannot be read (a broken reference, a value of the wrong type), or
+    None. Columns as in ``_CATALOGUE_SQL``."""
+    if r[3] is None:
+        return "its sample reference is broken"
+    if not isinstance(r[1], str) or not isinstance(r[4], str) or not isinstance(r[6], str):
+        return "its label, material or tags are not text"
+    if r[7] is not None and (isinstance(r[7], bool) or not isinstance(r[7], _NUMBER)):
+        return "its area is not a number"
+    if r[8] is not None and not isinstance(r[8], int):
+        return "its layer number is not a whole number"
+    if r[9] is not None and not isinstance(r[9], _NUMBER):
+        return "its probability is not a number"
+    return None
 
 
 def _canonical_value(value: Any) -> Any:
@@ -207,7 +264,7 @@ SELECT l.id, l.label, l.sample_id, s.name, s.material, l.status, l.tags,
       ORDER BY COALESCE(ap.pixel_size_um, 1e308), ap.id LIMIT 1),
     asg.layers, asg.probability, l.tid, COALESCE(asg.manual, 0)
 FROM latest l
-JOIN samples s ON s.id = l.sample_id
+LEFT JOIN samples s ON s.id = l.sample_id
 LEFT JOIN assignments asg ON asg.id = l.aid
 ORDER BY l.sample_id, l.label
 """

@@ -8,12 +8,13 @@ refused without SQLite touching it (not even rolling back a leftover journal);
 
 from __future__ import annotations
 
+import errno
 import sqlite3
 import struct
 from pathlib import Path
 
 import flakebook
-from flakebook.errors import ProjectError
+from flakebook.errors import FlakebookError, InputError, ProjectError
 from flakebook.store import schema
 
 #: The file name suffix of a project file.
@@ -89,6 +90,84 @@ def inspect(con: sqlite3.Connection, path: Path) -> int:
     if version < 1:
         raise ProjectError(f"{path} has no project format version; {ACCEPTED}")
     return version
+
+
+def check_tables(con: sqlite3.Connection, path: Path, version: int) -> None:
+    """Refuse a project that lacks a table of its format (dropped by another program)."""
+    try:
+        present = {r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    except sqlite3.DatabaseError as exc:
+        raise ProjectError(
+            damaged_message(path, f"its list of tables cannot be read: {exc}")
+        ) from None
+    missing = sorted(schema.tables_of(version) - present)
+    if missing:
+        what = (
+            f"its table {missing[0]} is missing"
+            if len(missing) == 1
+            else f"its tables {', '.join(missing)} are missing"
+        )
+        raise ProjectError(
+            f"{path} is damaged: {what}; the file was not changed.\n"
+            "Go back to a backup copy of the project (a copy of this file has the same damage)."
+        )
+
+
+def check_integrity(con: sqlite3.Connection, path: Path) -> None:
+    """Refuse a file whose pages fail SQLite's ``PRAGMA quick_check`` (before writing to it)."""
+    try:
+        result = [r[0] for r in con.execute("PRAGMA quick_check(3)")]
+    except sqlite3.DatabaseError as exc:
+        result = [str(exc)]
+    if result != ["ok"]:
+        raise ProjectError(damaged_message(path, f"SQLite's integrity check: {result[0]}"))
+
+
+def damaged_message(path: Path, what: str) -> str:
+    """The refusal of a damaged file, with what really helps: reading it read-only (every read
+    names what it cannot read) or a backup copy."""
+    return (
+        f"{path} is damaged ({what}); the file was not changed.\n"
+        "Open it read-only (e.g. flakebook export) to save what can still be read, or go back "
+        "to a backup copy."
+    )
+
+
+_SQLITE_CORRUPT, _SQLITE_FULL, _SQLITE_NOTADB = 11, 13, 26
+
+
+def is_disk_full(exc: BaseException) -> bool:
+    """True for SQLite's SQLITE_FULL ("database or disk is full") and OSError ENOSPC/EDQUOT."""
+    if isinstance(exc, sqlite3.Error):
+        return (getattr(exc, "sqlite_errorcode", 0) or 0) & 0xFF == _SQLITE_FULL
+    if isinstance(exc, OSError):
+        return exc.errno in (errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC))
+    return False
+
+
+def sql_error(path: Path, exc: sqlite3.Error, *, otherwise: str | None = None) -> FlakebookError:
+    """The error for the user in place of an SQLite error on ``path``: a full disk, a broken
+    reference (InputError), a damaged file (a corrupted page, a missing table or column), or
+    else ``otherwise`` (default: the file cannot be used)."""
+    code = (getattr(exc, "sqlite_errorcode", 0) or 0) & 0xFF
+    text = str(exc)
+    if code == _SQLITE_FULL:
+        return ProjectError(
+            f"{path} could not be saved: the disk is full (SQLite: {text}); nothing of this "
+            "action was saved.\nFree some space on that disk and try again."
+        )
+    if isinstance(exc, sqlite3.IntegrityError):
+        return InputError(
+            f"{path.name}: this change refers to a record that does not exist or repeats a "
+            f"unique name ({text}); nothing was changed"
+        )
+    if (
+        code in (_SQLITE_CORRUPT, _SQLITE_NOTADB)
+        or "malformed" in text
+        or text.startswith(("no such table", "no such column"))
+    ):
+        return ProjectError(damaged_message(path, f"SQLite: {text}"))
+    return ProjectError(otherwise or f"{path} cannot be used: {text}")
 
 
 def _newer_message(path: Path, version: int) -> str:

@@ -13,7 +13,15 @@ import os
 from pathlib import Path
 
 from flakebook.errors import InputError, ProjectError, check_cancel
-from flakebook.store._util import Progress, RecordRef, id_of, sha256_file
+from flakebook.store._util import (
+    NotRegularFile,
+    Progress,
+    RecordRef,
+    id_of,
+    read_regular,
+    sha256_file,
+    special_kind,
+)
 from flakebook.store.filecheck import SUFFIX
 from flakebook.store.records import Image
 from flakebook.store.results import ImageCheck
@@ -47,13 +55,32 @@ class ImageFiles:
 
     def _check_one(self, img: Image) -> ImageCheck:
         file = self.image_file(img)
-        if not file.is_file():
+        note = ""
+        try:
+            st = file.stat()
+            kind = special_kind(st.st_mode)
+            if kind is not None:
+                status, note = "missing", f"not a regular file ({kind})"
+            elif st.st_size != img.size_bytes or sha256_file(file)[0] != img.sha256:
+                status = "changed"
+            else:
+                status = "ok"
+        except NotRegularFile:  # replaced by a FIFO or device since the stat
+            status, note = "missing", "not a regular file"
+        except OSError:
             status = "missing"
-        elif file.stat().st_size != img.size_bytes or sha256_file(file)[0] != img.sha256:
-            status = "changed"
-        else:
-            status = "ok"
-        return ImageCheck(img.id, img.path, status, img.embedded, str(file))
+        return ImageCheck(img.id, img.path, status, img.embedded, str(file), note)
+
+    def images_outside_folder(self) -> list[ImageCheck]:
+        """Images not embedded whose file lies outside the project's folder (a stored path
+        leading out of it, or a link to elsewhere), as checks of status ``outside``: reported
+        before their bytes are read."""
+        out = []
+        for img in self._select(Image, "id NOT IN (SELECT image_id FROM image_data)"):
+            file = self.image_file(img)
+            if not file.is_relative_to(self.folder):
+                out.append(ImageCheck(img.id, img.path, "outside", False, str(file)))
+        return out
 
     def check_images(self, progress: Progress | None = None, cancel=None) -> list[ImageCheck]:
         """The state of every image's file: ``ok``, ``missing`` or ``changed`` (its hash
@@ -76,7 +103,12 @@ class ImageFiles:
         img = self.get(Image, iid)
         file = self.image_file(img)
         try:
-            data = file.read_bytes()
+            data = read_regular(file)
+        except NotRegularFile as exc:
+            raise ProjectError(
+                f"image {img.path} of {self._path.name} is {exc.strerror or exc} and is not "
+                "read; relink it (flakebook relink PROJECT --search DIR)"
+            ) from None
         except OSError:
             raise ProjectError(
                 f"image {img.path} of {self._path.name} is missing (looked at {file}); "
@@ -115,9 +147,10 @@ class ImageFiles:
         for i, path in enumerate(candidates):
             check_cancel(cancel)
             try:
-                if path.stat().st_size in sizes:
+                st = path.stat()
+                if special_kind(st.st_mode) is None and st.st_size in sizes:
                     by_hash.setdefault(sha256_file(path)[0], path)
-            except OSError:
+            except OSError:  # gone, unreadable, or no longer a regular file
                 continue
             if progress is not None:
                 progress((i + 1) / len(candidates), path.name)
@@ -135,12 +168,18 @@ class ImageFiles:
 
     def pack(self, progress: Progress | None = None, cancel=None) -> int:
         """Embed every referenced image's bytes so the file stands alone; returns how many were
-        added. All or nothing: a missing or changed image raises :class:`ProjectError`."""
+        added. All or nothing: a missing or changed image raises :class:`ProjectError`. Only
+        regular files are read (never a FIFO or a device), and only bytes whose SHA-256 is the
+        one recorded are embedded; :meth:`images_outside_folder` lists the files outside the
+        project's folder that this reads."""
         todo = self._select(Image, "id NOT IN (SELECT image_id FROM image_data)")
         checks = [self._check_one(img) for img in todo]
         bad = [c for c in checks if c.status != "ok"]
         if bad:
-            names = ", ".join(f"{c.path} ({c.status})" for c in bad[:3])
+            names = ", ".join(
+                f"{c.path} ({c.status}: {c.note})" if c.note else f"{c.path} ({c.status})"
+                for c in bad[:3]
+            )
             more = f" and {len(bad) - 3} more" if len(bad) > 3 else ""
             raise ProjectError(
                 f"cannot pack {self._path.name}: {names}{more}.\n"
@@ -149,7 +188,13 @@ class ImageFiles:
         with self.transaction():
             for i, img in enumerate(todo):
                 check_cancel(cancel)
-                data = self.image_file(img).read_bytes()
+                try:
+                    data = read_regular(self.image_file(img))
+                except OSError as exc:
+                    raise ProjectError(
+                        f"image {img.path} cannot be read while packing "
+                        f"({exc.strerror or exc}); nothing was changed"
+                    ) from None
                 if hashlib.sha256(data).hexdigest() != img.sha256:
                     raise ProjectError(
                         f"image {img.path} changed while packing; nothing was changed"

@@ -21,7 +21,7 @@ import numpy as np
 
 import flakebook
 from flakebook.errors import InputError
-from flakebook.store._util import RecordRef, id_of, sha256_file
+from flakebook.store._util import RecordRef, id_of, read_regular, sha256_file
 from flakebook.store.files import stored_path
 from flakebook.store.provenance import check_inputs, outdated
 from flakebook.store.records import (
@@ -207,9 +207,15 @@ class RecordKinds:
         ``embed=True`` also stores the bytes in the project."""
         file = Path(file)
         if not file.is_file():
-            raise InputError(f"image file {file} does not exist")
-        data = file.read_bytes() if embed else None
-        sha, size = (hashlib.sha256(data).hexdigest(), len(data)) if data else sha256_file(file)
+            raise InputError(
+                f"image file {file} does not exist or is not a regular file; accepted: an "
+                "image file"
+            )
+        try:
+            data = read_regular(file) if embed else None
+            sha, size = (hashlib.sha256(data).hexdigest(), len(data)) if data else sha256_file(file)
+        except OSError as exc:
+            raise InputError(f"image file {file} cannot be read: {exc.strerror or exc}") from None
         with self.transaction():
             img = self.add(
                 Image(

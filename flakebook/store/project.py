@@ -25,9 +25,12 @@ catalogue queries and exports (:mod:`~flakebook.store.catalogue`) and hand-off
 from __future__ import annotations
 
 import dataclasses
+import functools
+import inspect as inspect_module
 import os
 import shutil
 import sqlite3
+import struct
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
 from datetime import UTC, datetime
@@ -39,7 +42,16 @@ from flakebook.errors import InputError, ProjectError
 from flakebook.store import lock, provenance, schema
 from flakebook.store._util import id_of, qmarks
 from flakebook.store.catalogue import EXPORT_COLUMNS, CatalogueQueries
-from flakebook.store.filecheck import SUFFIX, check_header, inspect, journal_path
+from flakebook.store.filecheck import (
+    SUFFIX,
+    check_header,
+    check_integrity,
+    check_tables,
+    inspect,
+    is_disk_full,
+    journal_path,
+    sql_error,
+)
 from flakebook.store.files import ImageFiles
 from flakebook.store.handoff import Handoff
 from flakebook.store.kinds import RecordKinds
@@ -161,9 +173,22 @@ class _ProjectCore:
                 raise ProjectError(f"{path} already exists; choose another name or open it")
             os.replace(tmp, path)
             con = cls._connect_rw(path)
-        except BaseException:
+        except BaseException as exc:
             tmp.unlink(missing_ok=True)
             lock.release(path, lock_info)
+            if isinstance(exc, sqlite3.Error):
+                raise sql_error(
+                    path, exc, otherwise=f"{path} could not be created ({exc}); no file was made"
+                ) from None
+            if isinstance(exc, OSError):
+                if is_disk_full(exc):
+                    raise ProjectError(
+                        f"{path} could not be created: the disk is full; no file was made.\n"
+                        "Free some space on that disk and try again."
+                    ) from None
+                raise ProjectError(
+                    f"{path} could not be created: {exc.strerror or exc}; no file was made"
+                ) from None
             raise
         return cls(
             path,
@@ -188,7 +213,8 @@ class _ProjectCore:
 
         Read-write takes the lock (:class:`~flakebook.store.lock.ProjectLocked` if another
         program holds it) and upgrades a file of an earlier format in place (keeping a copy
-        ``NAME.flakebook.vN.bak``). Read-only needs no write access to the folder and changes
+        ``NAME.flakebook.vN.bak``); it first checks the file (every table of its format
+        present, SQLite's ``PRAGMA quick_check``) and refuses a damaged one. Read-only needs no write access to the folder and changes
         nothing (an earlier format is upgraded in memory only). Files that are not projects, are
         damaged or come from a newer flakebook raise :class:`ProjectError` and are left alone.
         """
@@ -214,6 +240,11 @@ class _ProjectCore:
             ro = None
         if read_only:
             assert ro is not None
+            try:
+                check_tables(ro, path, version)
+            except BaseException:
+                ro.close()
+                raise
             warnings: list[str] = []
             con = ro
             if version < schema.SCHEMA_VERSION:
@@ -250,6 +281,9 @@ class _ProjectCore:
             try:
                 if hot_journal:
                     version = inspect(con, path)
+                # Never write into a damaged file: every table of its format, and its pages.
+                check_tables(con, path, version)
+                check_integrity(con, path)
                 if version < schema.SCHEMA_VERSION:
                     backup = path.with_name(f"{path.name}.v{version}.bak")
                     shutil.copy2(path, backup)
@@ -382,29 +416,43 @@ class _ProjectCore:
         depth = self._depth
         if depth == 0:
             con.execute("BEGIN IMMEDIATE")
+        elif not con.in_transaction:
+            raise ProjectError(
+                f"{self._path} could not be saved: this action was already undone by an error "
+                "inside it; nothing of it was saved"
+            )
         else:
             con.execute(f"SAVEPOINT sp{depth}")
         self._depth += 1
         try:
             yield self
             if depth == 0:
+                if not con.in_transaction:  # SQLite undid it (a full disk) and it was caught
+                    raise ProjectError(
+                        f"{self._path} could not be saved: an error inside this action undid "
+                        "it; nothing of it was saved"
+                    )
                 con.execute("COMMIT")
         except BaseException as exc:
             self._depth -= 1
-            if depth == 0:
-                if con.in_transaction:
-                    con.execute("ROLLBACK")
-            else:
-                con.execute(f"ROLLBACK TO sp{depth}")
-                con.execute(f"RELEASE sp{depth}")
-            if isinstance(exc, sqlite3.IntegrityError):
-                raise InputError(
-                    f"{self._path.name}: this change refers to a record that does not exist or "
-                    f"repeats a unique name ({exc}); nothing was changed"
-                ) from None
+            # SQLite rolls a whole transaction back by itself on some errors (a full disk):
+            # then there is no savepoint left to undo, and the cause is what the user needs.
+            if con.in_transaction:
+                try:
+                    if depth == 0:
+                        con.execute("ROLLBACK")
+                    else:
+                        con.execute(f"ROLLBACK TO sp{depth}")
+                        con.execute(f"RELEASE sp{depth}")
+                except sqlite3.Error:
+                    if not isinstance(exc, sqlite3.Error):
+                        raise
             if isinstance(exc, sqlite3.Error):
-                raise ProjectError(
-                    f"{self._path} could not be saved ({exc}); nothing of this action was saved"
+                raise sql_error(
+                    self._path,
+                    exc,
+                    otherwise=f"{self._path} could not be saved ({exc}); nothing of this action "
+                    "was saved",
                 ) from None
             raise
         self._depth -= 1
@@ -442,12 +490,26 @@ class _ProjectCore:
         lay = layout(cls)
         kwargs = {"id": row[0]}
         for name, value in zip(lay.columns, row[1:]):
-            kwargs[name] = decode(lay.codecs[name], value)
+            try:
+                kwargs[name] = decode(lay.codecs[name], value)
+            except (TypeError, ValueError, KeyError, AttributeError, struct.error, ProjectError):
+                raise self._unreadable(cls, row[0], f"its {name} is not readable") from None
         if cls is Image:
             kwargs["embedded"] = bool(row[len(lay.columns) + 1])
         if cls.DERIVED:
             kwargs["inputs"] = provenance.read_inputs(self._db, cls.KIND, row[0])
-        return construct(cls, kwargs)
+        try:
+            return construct(cls, kwargs)
+        except (TypeError, ValueError, KeyError) as exc:
+            raise self._unreadable(cls, row[0], f"its values are not accepted ({exc})") from None
+
+    def _unreadable(self, cls: type[Record], rid: Any, why: str) -> ProjectError:
+        """A stored row that cannot be read (changed by another program or a failing disk)."""
+        first = str(why).splitlines()[0][:160]
+        return ProjectError(
+            f"{self._path.name}: {cls.KIND} id {rid} cannot be read: {first}.\n"
+            "Open the file read-only to save what can still be read, or go back to a backup copy."
+        )
 
     def _select(self, cls: type[Record], where: str = "", params: Sequence[Any] = ()) -> list:
         sql = layout(cls).select + (f" WHERE {where}" if where else "") + " ORDER BY id"
@@ -665,6 +727,33 @@ class Project(RecordKinds, Provenance, ImageFiles, CatalogueQueries, Handoff, _P
     Record arguments accept a stored record or its integer id. Every method that changes the file
     runs in one transaction; wrap several calls in :meth:`transaction` to make them one action.
     """
+
+
+def _guard(method: Callable) -> Callable:
+    @functools.wraps(method)
+    def guarded(self, *args, **kwargs):
+        try:
+            return method(self, *args, **kwargs)
+        except sqlite3.Error as exc:
+            raise sql_error(self._path, exc) from None
+
+    return guarded
+
+
+# Every public method of Project turns an SQLite error (a damaged file, a full disk) into the
+# user's error (ProjectError, or InputError for a broken reference) instead of letting it
+# through as an internal one; transaction() does the same for the writes inside it.
+for _name, _member in list(vars(Project).items()) + [
+    (n, m) for base in Project.__mro__[1:-1] for n, m in vars(base).items()
+]:
+    if (
+        not _name.startswith("_")
+        and _name not in ("transaction", "close", "create", "open")
+        and inspect_module.isfunction(_member)
+        and not hasattr(Project.__dict__.get(_name), "__wrapped__")
+    ):
+        setattr(Project, _name, _guard(_member))
+del _name, _member
 
 
 __all__ = ["Project", "SUFFIX", "DEFAULT_MAX_LAYERS", "EXPORT_COLUMNS"]

@@ -358,3 +358,30 @@ def migrate(con: sqlite3.Connection, version: int) -> int:
         version += 1
         con.execute(f"PRAGMA user_version = {version}")
     return version
+
+
+_TABLES_OF: dict[int, frozenset[str]] = {}
+
+
+def tables_of(version: int) -> frozenset[str]:
+    """The tables a file of project format ``version`` holds (built once in memory)."""
+    if version not in _TABLES_OF:
+        con = sqlite3.connect(":memory:", isolation_level=None)
+        try:
+            con.execute("BEGIN")
+            create_v1(con)
+            v = 1
+            while v < version:
+                MIGRATIONS[v](con)
+                v += 1
+            con.execute("COMMIT")
+            _TABLES_OF[version] = frozenset(
+                r[0]
+                for r in con.execute(
+                    "SELECT name FROM sqlite_master WHERE type = 'table' "
+                    "AND name NOT LIKE 'sqlite_%'"
+                )
+            )
+        finally:
+            con.close()
+    return _TABLES_OF[version]

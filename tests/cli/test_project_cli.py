@@ -149,7 +149,7 @@ def test_pack_relink_recompute(campaign, tmp_path, capsys):
     code, out, _ = run(capsys, "relink", campaign, "--search", moved)
     assert code == 0 and json.loads(out)["relinked"][0]["path"] == "moved/tile.png"
     code, out, _ = run(capsys, "pack", campaign)
-    assert code == 0 and json.loads(out) == {"embedded": 1, "images": 1}
+    assert code == 0 and json.loads(out) == {"embedded": 1, "images": 1, "outside_folder": []}
     with Project.open(campaign) as p:
         app = p.appearances_of(p.find_flake("K7N-001"))[0]
         ev = p.evidence_of(app.flake_id)[0]
