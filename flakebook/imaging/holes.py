@@ -425,11 +425,62 @@ def _gray(a: np.ndarray) -> np.ndarray:
 # ---- lattice -----------------------------------------------------------------------------
 
 
-def fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
+MIN_LATTICE_HOLES = 6  # fewer holes do not fix a lattice (4 points fit some lattice nearly always)
+MAX_LATTICE_RESIDUAL = 0.05  # largest rms residual accepted, as a fraction of the pitch
+
+
+def fit_lattice(
+    centers_px: np.ndarray,
+    kind: str = "auto",
+    *,
+    min_holes: int = MIN_LATTICE_HOLES,
+    max_residual_rel: float = MAX_LATTICE_RESIDUAL,
+) -> Lattice | None:
     """Fit a square or hexagonal lattice to hole centres ([n, 2], pixels).
 
-    Returns None with fewer than 4 centres or when no lattice is apparent.
+    A lattice predicts holes that nobody has seen, so it is accepted only from at least
+    ``min_holes`` centres whose rms residual (per coordinate) is under ``max_residual_rel`` of
+    the pitch. Returns None otherwise (:func:`lattice_refusal` says why).
     """
+    lat = _fit_lattice(centers_px, kind)
+    if lat is None or lat.n_holes < min_holes:
+        return None
+    if lat.residual_px > max_residual_rel * lat.pitch_px:
+        return None
+    return lat
+
+
+def lattice_refusal(
+    centers_px: np.ndarray,
+    kind: str = "auto",
+    *,
+    min_holes: int = MIN_LATTICE_HOLES,
+    max_residual_rel: float = MAX_LATTICE_RESIDUAL,
+) -> str | None:
+    """Why :func:`fit_lattice` gives no lattice for these centres (None when it gives one)."""
+    p = np.asarray(centers_px, np.float64).reshape(-1, 2)
+    if len(p) < min_holes:
+        return (
+            f"no hole lattice fitted: {len(p)} holes found, at least {min_holes} are needed, so "
+            "no hidden holes are predicted"
+        )
+    lat = _fit_lattice(p, kind)
+    if lat is None:
+        return "no hole lattice fitted: the holes form no regular pattern"
+    if lat.residual_px > max_residual_rel * lat.pitch_px:
+        return (
+            f"no hole lattice fitted: the holes lie {100 * lat.residual_px / lat.pitch_px:.0f}% "
+            f"of the pitch off the best {lat.kind} lattice (at most "
+            f"{100 * max_residual_rel:.0f}% accepted), so no hidden holes are predicted"
+        )
+    return None
+
+
+def _fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
+    """The best square or hexagonal lattice through the centres, however poor (None with fewer
+    than 4 centres or no neighbour pairs)."""
+    if kind not in ("auto", "square", "hexagonal"):
+        raise InputError(f"lattice kind {kind!r}; accepted: auto, square, hexagonal")
     p = np.asarray(centers_px, np.float64).reshape(-1, 2)
     n = len(p)
     if n < 4:
@@ -450,8 +501,6 @@ def fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
     r6 = np.abs(np.mean(np.exp(6j * th)))
     if kind == "auto":
         kind = "square" if r4 >= r6 else "hexagonal"
-    if kind not in ("square", "hexagonal"):
-        raise InputError(f"lattice kind {kind!r}; accepted: auto, square, hexagonal")
     k = 4 if kind == "square" else 6
     ang = float(np.angle(np.mean(np.exp(1j * k * th))) / k) % (2 * math.pi / k)
     second = ang + (math.pi / 2 if kind == "square" else math.pi / 3)
@@ -463,13 +512,13 @@ def fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
         ij = np.linalg.solve(basis, (p - ref).T).T
         idx = np.round(ij)
         a = np.column_stack([np.ones(n), idx[:, 0], idx[:, 1]])
+        if np.linalg.matrix_rank(a) < 3:
+            return None  # the holes lie on one line: the second lattice vector is unknown
         sol, *_ = np.linalg.lstsq(a, p, rcond=None)
         ref, a1, a2 = sol[0], sol[1], sol[2]
         basis = np.column_stack([a1, a2])
     res = p - a @ sol
     rms = float(np.sqrt(np.sum(res**2) / max(2 * n - 6, 1)))
-    if rms > 0.25 * pitch0:
-        return None
     cov = np.linalg.pinv(a.T @ a) * rms**2
     l1, l2 = float(np.hypot(*a1)), float(np.hypot(*a2))
     pitch = 0.5 * (l1 + l2)
