@@ -86,6 +86,9 @@ def test_flake_edge_through_a_hole_covers_about_half(mono_nm):
         noise=0.01,
         seed=4,
         mono_nm=mono_nm,
+        # A bare hole is about 3.7 times brighter than the substrate at 550 nm: exposed so
+        # that it does not saturate.
+        substrate=None if mono_nm is None else (0.2,),
     )
     res = _survey(_u16(lin), mono_nm=mono_nm, hole_radius_um=1.6)
     cov = _pair(res, hole[:2])
@@ -117,6 +120,9 @@ def test_flake_over_a_hole_with_a_wide_margin(mono_nm):
         noise=0.01,
         seed=5,
         mono_nm=mono_nm,
+        # A bare hole is about 3.7 times brighter than the substrate at 550 nm: exposed so
+        # that it does not saturate.
+        substrate=None if mono_nm is None else (0.2,),
     )
     res = _survey(_u16(lin), mono_nm=mono_nm)
     cov = _pair(res, hole[:2])
