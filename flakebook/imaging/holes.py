@@ -459,8 +459,23 @@ def _spots(gray: np.ndarray, rmin: float, rmax: float, max_spots: int = 20000) -
             d = np.hypot(c[nb, 0] - c[i, 0], c[nb, 1] - c[i, 1])
             keep[nb[d < np.maximum(c[nb, 2], c[i, 2]) + 1.0]] = False
             keep[i] = True
-    out = c[keep][:max_spots, :3]
-    return out
+    c = c[keep]
+    # A hole is a uniform disk in a uniform surround: sampled at 0.4 r inside and 1.7 r
+    # outside, each ring's spread must stay under a third of the step between them (flake
+    # corners and edges, which also stand out of their surroundings, do not pass).
+    th = np.linspace(0, 2 * math.pi, 12, endpoint=False)
+    rows, cols = g.shape
+
+    def ring(k: float) -> np.ndarray:
+        xs = np.clip(np.round(c[:, :1] + k * c[:, 2:3] * np.cos(th)), 0, cols - 1).astype(int)
+        ys = np.clip(np.round(c[:, 1:2] + k * c[:, 2:3] * np.sin(th)), 0, rows - 1).astype(int)
+        return g[ys, xs]
+
+    inner, outer = ring(0.4), ring(1.7)
+    step = np.abs(np.median(inner, axis=1) - np.median(outer, axis=1))
+    spread = np.maximum(np.ptp(inner, axis=1), np.ptp(outer, axis=1))
+    c = c[(spread < step / 3.0) & (step > 0)]
+    return c[:max_spots, :3]
 
 
 def _gray_sampler(img):

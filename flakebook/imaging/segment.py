@@ -615,7 +615,7 @@ def segment(
             n2, lab2, st2, _ = cv2.connectedComponentsWithStats(tm, connectivity=8)
             for j in range(1, n2):
                 if st2[j, cv2.CC_STAT_AREA] < min_px_work and not _over_hole(
-                    st2[j], px0, py0, hole_w, lab2 == j
+                    st2[j], px0, py0, hole_w, lab2, j
                 ):
                     continue
                 rx, ry, rw, rh = (int(v) for v in st2[j, :4])
@@ -846,10 +846,15 @@ def _bare_hole_pixels(
 
 
 def _over_hole(
-    stat: np.ndarray, x0: int, y0: int, hole_w: list, mask: np.ndarray | None = None
+    stat: np.ndarray,
+    x0: int,
+    y0: int,
+    hole_w: list,
+    labels: np.ndarray | None = None,
+    label: int = 0,
 ) -> bool:
-    """Whether a small component (crop stats; ``mask`` its pixels in the crop whose top-left
-    is (x0, y0)) lies over a hole and fills a good part of it: at least 8% of the hole's area
+    """Whether a small component (crop stats; ``labels == label`` its pixels in the crop whose
+    top-left is (x0, y0)) lies over a hole and fills a good part of it: at least 8% of the hole's area
     lies more than 1.5 px inside its edge (a sliver along the rim is an edge, not a membrane)."""
     if not hole_w:
         return False
@@ -859,10 +864,11 @@ def _over_hole(
     for x, y, r in hole_w:
         if np.hypot(cx - x, cy - y) >= r + 1.5 or area < max(6.0, 0.08 * np.pi * r * r):
             continue
-        if mask is None:
+        if labels is None:
             return True
-        ys, xs = np.nonzero(mask)
-        inside = np.hypot(xs + x0 - x, ys + y0 - y) <= r - 1.5
+        bx, by, bw_, bh = (int(v) for v in stat[:4])
+        ys, xs = np.nonzero(labels[by : by + bh, bx : bx + bw_] == label)
+        inside = np.hypot(xs + bx + x0 - x, ys + by + y0 - y) <= r - 1.5
         if np.count_nonzero(inside) >= max(6.0, 0.08 * np.pi * r * r):
             return True
     return False
