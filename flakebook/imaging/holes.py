@@ -236,6 +236,8 @@ def refine_hole(
 
 # ---- detection -----------------------------------------------------------------------------
 
+MIN_HOLE_RADIUS_PX = 6.0  # smallest hole radius (full-resolution pixels) the default search finds
+
 
 def detect_holes(
     intensity: np.ndarray,
@@ -255,7 +257,8 @@ def detect_holes(
         intensity: a Micrograph, or float ``[row, col, ch]`` (or 2-D) linear intensity.
         um_per_px, um_per_px_err: the scale.
         radius_um: the expected hole radius (searches 0.6x to 1.6x of it), or
-        radius_range_um: (min, max) radius; default: 4 working pixels to a quarter of the image.
+        radius_range_um: (min, max) radius; default: MIN_HOLE_RADIUS_PX (6 px) to a quarter of
+            the image (radii under 4 working pixels on a finer grid).
         work, factor: a block-averaged working copy and its factor.
         min_step: smallest inside-outside intensity step accepted for a hole (default: 8 noise
             standard deviations of the image).
@@ -275,6 +278,11 @@ def detect_holes(
         def work_of(f: int) -> np.ndarray:
             return img.working(f)
 
+        def fine_gray(f: int) -> np.ndarray:
+            # Edges only (the Hough transform): block means of the decoded samples, which are
+            # a monotonic function of the intensity, with no conversion to linear.
+            return _gray(_grid.downsample(img.samples, f).astype(np.float32, copy=False))
+
         sampler = _gray_sampler(img)
     else:
         arr = np.asarray(intensity)
@@ -287,6 +295,9 @@ def detect_holes(
 
         def work_of(f: int) -> np.ndarray:
             return _grid.downsample(arr, f)
+
+        def fine_gray(f: int) -> np.ndarray:
+            return _gray(_grid.downsample(arr, f))
 
         sampler = None
 
@@ -312,30 +323,36 @@ def detect_holes(
         work = work_of(f)
     if work.ndim == 2:
         work = work[:, :, None]
-    gray = _gray(work)
-    lo, hi = np.percentile(
-        gray[:: max(1, gray.shape[0] // 300), :: max(1, gray.shape[1] // 300)], [0.5, 99.5]
-    )
-    if hi - lo <= 0:
-        return ()
-    g8 = np.clip((gray - lo) * (255.0 / (hi - lo)), 0, 255).astype(np.uint8)
-    g8 = cv2.GaussianBlur(g8, (0, 0), 1.0)
+    # Hough passes: (gray image, its factor, smallest and largest radius in its pixels).
+    passes = []
     if lo_um is not None:
         rmin = max(3, int(math.floor(lo_um / um_per_px / f)))
         rmax = max(rmin + 2, int(math.ceil(hi_um / um_per_px / f)))
+        passes.append((_gray(work), f, rmin, rmax, "hough"))
     else:
-        rmin, rmax = 4, max(8, min(gray.shape) // 4)
-    circles = cv2.HoughCircles(
-        g8,
-        cv2.HOUGH_GRADIENT_ALT,
-        dp=1.5,
-        minDist=max(2 * rmin, 4),
-        param1=80,
-        param2=0.75,
-        minRadius=rmin,
-        maxRadius=rmax,
-    )
-    if circles is None:
+        # Default: every hole from MIN_HOLE_RADIUS_PX up to a quarter of the image. Radii under
+        # 4 working pixels are searched on a grid fine enough to give them 3 pixels or more.
+        gray = _gray(work)
+        top = max(8, min(gray.shape) // 4)
+        fs = max(1, int(MIN_HOLE_RADIUS_PX // 3))
+        lo_w = MIN_HOLE_RADIUS_PX / f
+        if lo_w < 4:
+            # Too small for the Hough transform on the working grid: round spots on a grid
+            # giving them >= 3 pixels, fitted (and checked for roundness) below.
+            fs = max(1, min(f, int(MIN_HOLE_RADIUS_PX // 3)))
+            g = gray if fs == f else fine_gray(fs)
+            passes.append((g, fs, MIN_HOLE_RADIUS_PX / fs, 4.5 * f / fs, "spots"))
+        passes.append((gray, f, 4, top, "hough"))
+    found: list[tuple[float, float, float]] = []
+    for gray, fp, rmin, rmax, how in passes:
+        if rmax <= rmin:
+            continue
+        circles = _hough(gray, rmin, rmax) if how == "hough" else _spots(gray, rmin, rmax)
+        for c in circles:
+            found.append(
+                (float(_grid.to_full(c[0], fp)), float(_grid.to_full(c[1], fp)), float(c[2] * fp))
+            )
+    if not found:
         return ()
     # Noise estimate of the full-resolution gray level (MAD of horizontal differences).
     bands = [
@@ -346,9 +363,8 @@ def detect_holes(
     noise = 1.4826 * float(np.median(np.abs(np.diff(sample, axis=1)))) / math.sqrt(2)
     need = min_step if min_step is not None else max(8 * noise, 1e-4)
     holes: list[Hole] = []
-    for c in circles.reshape(-1, 3):
+    for cx, cy, r in found:
         check_cancel(cancel)
-        cx, cy, r = (float(_grid.to_full(c[0], f)), float(_grid.to_full(c[1], f)), float(c[2] * f))
         if sampler is not None:
             fit = refine_hole(None, cx, cy, r, min_step=need, sampler=sampler)
         else:
@@ -369,6 +385,97 @@ def detect_holes(
         holes.append(Hole((fx, fy), fr, re, ce, um_per_px, um_per_px_err, True, n))
     holes.sort(key=lambda h: (round(h.center_px[1]), h.center_px[0]))
     return tuple(holes)
+
+
+def _hough(gray: np.ndarray, rmin: int, rmax: int) -> np.ndarray:
+    """Circles ``[n, 3]`` (x, y, r in the gray image's pixels) by OpenCV's gradient Hough
+    transform on the image stretched to its 0.5-99.5 percentile range, widened to the extremes
+    of a smoothed copy (a few small holes are far less than 0.5% of an image, and stretching
+    the noise of the rest to full scale would hide their edges)."""
+    gray = np.ascontiguousarray(gray, np.float32)
+    lo, hi = np.percentile(
+        gray[:: max(1, gray.shape[0] // 300), :: max(1, gray.shape[1] // 300)], [0.5, 99.5]
+    )
+    smooth_lo, smooth_hi, _, _ = cv2.minMaxLoc(cv2.GaussianBlur(gray, (0, 0), 1.5))
+    lo, hi = min(lo, smooth_lo), max(hi, smooth_hi)
+    if hi - lo <= 0:
+        return np.zeros((0, 3))
+    g8 = np.clip((gray - lo) * (255.0 / (hi - lo)), 0, 255).astype(np.uint8)
+    g8 = cv2.GaussianBlur(g8, (0, 0), 1.0)
+    circles = cv2.HoughCircles(
+        g8,
+        cv2.HOUGH_GRADIENT_ALT,
+        dp=1.0 if rmin < 6 else 1.5,
+        minDist=max(2 * rmin, 4),
+        param1=80,
+        param2=0.75,
+        minRadius=rmin,
+        maxRadius=rmax,
+    )
+    return np.zeros((0, 3)) if circles is None else circles.reshape(-1, 3)
+
+
+def _spots(gray: np.ndarray, rmin: float, rmax: float, max_spots: int = 20000) -> np.ndarray:
+    """Candidate small round spots ``[n, 3]`` (x, y, rough r, in the gray image's pixels).
+
+    At radii from ``rmin`` to ``rmax`` (steps of 1.3x): the mean of a box of side 1.2 r (inside
+    a disk of radius r) minus the mean of the square ring out to side 3 r; local extremes of
+    this centre-surround difference above 6 of its noise standard deviations, the strongest
+    radius kept at each place. The fit at full resolution decides which are holes.
+    """
+    g = np.ascontiguousarray(gray, np.float32)
+    sample = g[:: max(1, g.shape[0] // 400)]
+    noise = 1.4826 * float(np.median(np.abs(np.diff(sample, axis=1)))) / math.sqrt(2)
+    cand = []
+    r = float(rmin)
+    while r <= rmax * 1.0001:
+        a = max(3, int(round(1.2 * r)) | 1)
+        b = max(a + 4, int(round(3.0 * r)) | 1)
+        inner = cv2.boxFilter(g, -1, (a, a), borderType=cv2.BORDER_REPLICATE)
+        outer = cv2.boxFilter(g, -1, (b, b), borderType=cv2.BORDER_REPLICATE)
+        ring = (outer * np.float32(b * b) - inner * np.float32(a * a)) / np.float32(b * b - a * a)
+        resp = np.abs(inner - ring)
+        thr = 6.0 * max(noise, 1e-12) * math.sqrt(1.0 / (a * a) + 1.0 / (b * b - a * a))
+        peak = (resp >= cv2.dilate(resp, np.ones((3, 3), np.uint8))) & (resp > thr)
+        ys, xs = np.nonzero(peak)
+        if len(ys):
+            cand.append(np.column_stack([xs, ys, np.full(len(xs), r), resp[ys, xs]]))
+        r *= 1.3
+    if not cand:
+        return np.zeros((0, 3))
+    c = np.concatenate(cand)
+    c = c[np.argsort(-c[:, 3])][: 4 * max_spots]
+    # (The difference, not its ratio to the noise, which grows with the box.)
+    # Strongest difference first; a weaker candidate nearer than the larger of the two radii
+    # (plus a pixel) to a kept one is the same spot.
+    from scipy.spatial import cKDTree
+
+    tree = cKDTree(c[:, :2])
+    keep = np.ones(len(c), bool)
+    top = float(c[:, 2].max())
+    for i in range(len(c)):
+        if keep[i]:
+            nb = np.asarray(tree.query_ball_point(c[i, :2], max(c[i, 2], top) + 1.0), int)
+            d = np.hypot(c[nb, 0] - c[i, 0], c[nb, 1] - c[i, 1])
+            keep[nb[d < np.maximum(c[nb, 2], c[i, 2]) + 1.0]] = False
+            keep[i] = True
+    c = c[keep]
+    # A hole is a uniform disk in a uniform surround: sampled at 0.4 r inside and 1.7 r
+    # outside, each ring's spread must stay under a third of the step between them (flake
+    # corners and edges, which also stand out of their surroundings, do not pass).
+    th = np.linspace(0, 2 * math.pi, 12, endpoint=False)
+    rows, cols = g.shape
+
+    def ring(k: float) -> np.ndarray:
+        xs = np.clip(np.round(c[:, :1] + k * c[:, 2:3] * np.cos(th)), 0, cols - 1).astype(int)
+        ys = np.clip(np.round(c[:, 1:2] + k * c[:, 2:3] * np.sin(th)), 0, rows - 1).astype(int)
+        return g[ys, xs]
+
+    inner, outer = ring(0.4), ring(1.7)
+    step = np.abs(np.median(inner, axis=1) - np.median(outer, axis=1))
+    spread = np.maximum(np.ptp(inner, axis=1), np.ptp(outer, axis=1))
+    c = c[(spread < step / 3.0) & (step > 0)]
+    return c[:max_spots, :3]
 
 
 def _gray_sampler(img):
@@ -425,11 +532,62 @@ def _gray(a: np.ndarray) -> np.ndarray:
 # ---- lattice -----------------------------------------------------------------------------
 
 
-def fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
+MIN_LATTICE_HOLES = 6  # fewer holes do not fix a lattice (4 points fit some lattice nearly always)
+MAX_LATTICE_RESIDUAL = 0.05  # largest rms residual accepted, as a fraction of the pitch
+
+
+def fit_lattice(
+    centers_px: np.ndarray,
+    kind: str = "auto",
+    *,
+    min_holes: int = MIN_LATTICE_HOLES,
+    max_residual_rel: float = MAX_LATTICE_RESIDUAL,
+) -> Lattice | None:
     """Fit a square or hexagonal lattice to hole centres ([n, 2], pixels).
 
-    Returns None with fewer than 4 centres or when no lattice is apparent.
+    A lattice predicts holes that nobody has seen, so it is accepted only from at least
+    ``min_holes`` centres whose rms residual (per coordinate) is under ``max_residual_rel`` of
+    the pitch. Returns None otherwise (:func:`lattice_refusal` says why).
     """
+    lat = _fit_lattice(centers_px, kind)
+    if lat is None or lat.n_holes < min_holes:
+        return None
+    if lat.residual_px > max_residual_rel * lat.pitch_px:
+        return None
+    return lat
+
+
+def lattice_refusal(
+    centers_px: np.ndarray,
+    kind: str = "auto",
+    *,
+    min_holes: int = MIN_LATTICE_HOLES,
+    max_residual_rel: float = MAX_LATTICE_RESIDUAL,
+) -> str | None:
+    """Why :func:`fit_lattice` gives no lattice for these centres (None when it gives one)."""
+    p = np.asarray(centers_px, np.float64).reshape(-1, 2)
+    if len(p) < min_holes:
+        return (
+            f"no hole lattice fitted: {len(p)} holes found, at least {min_holes} are needed, so "
+            "no hidden holes are predicted"
+        )
+    lat = _fit_lattice(p, kind)
+    if lat is None:
+        return "no hole lattice fitted: the holes form no regular pattern"
+    if lat.residual_px > max_residual_rel * lat.pitch_px:
+        return (
+            f"no hole lattice fitted: the holes lie {100 * lat.residual_px / lat.pitch_px:.0f}% "
+            f"of the pitch off the best {lat.kind} lattice (at most "
+            f"{100 * max_residual_rel:.0f}% accepted), so no hidden holes are predicted"
+        )
+    return None
+
+
+def _fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
+    """The best square or hexagonal lattice through the centres, however poor (None with fewer
+    than 4 centres or no neighbour pairs)."""
+    if kind not in ("auto", "square", "hexagonal"):
+        raise InputError(f"lattice kind {kind!r}; accepted: auto, square, hexagonal")
     p = np.asarray(centers_px, np.float64).reshape(-1, 2)
     n = len(p)
     if n < 4:
@@ -450,8 +608,6 @@ def fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
     r6 = np.abs(np.mean(np.exp(6j * th)))
     if kind == "auto":
         kind = "square" if r4 >= r6 else "hexagonal"
-    if kind not in ("square", "hexagonal"):
-        raise InputError(f"lattice kind {kind!r}; accepted: auto, square, hexagonal")
     k = 4 if kind == "square" else 6
     ang = float(np.angle(np.mean(np.exp(1j * k * th))) / k) % (2 * math.pi / k)
     second = ang + (math.pi / 2 if kind == "square" else math.pi / 3)
@@ -463,13 +619,13 @@ def fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
         ij = np.linalg.solve(basis, (p - ref).T).T
         idx = np.round(ij)
         a = np.column_stack([np.ones(n), idx[:, 0], idx[:, 1]])
+        if np.linalg.matrix_rank(a) < 3:
+            return None  # the holes lie on one line: the second lattice vector is unknown
         sol, *_ = np.linalg.lstsq(a, p, rcond=None)
         ref, a1, a2 = sol[0], sol[1], sol[2]
         basis = np.column_stack([a1, a2])
     res = p - a @ sol
     rms = float(np.sqrt(np.sum(res**2) / max(2 * n - 6, 1)))
-    if rms > 0.25 * pitch0:
-        return None
     cov = np.linalg.pinv(a.T @ a) * rms**2
     l1, l2 = float(np.hypot(*a1)), float(np.hypot(*a2))
     pitch = 0.5 * (l1 + l2)

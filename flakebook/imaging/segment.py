@@ -548,6 +548,13 @@ def segment(
     erode5 = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
     grow = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * pad + 1, 2 * pad + 1))
     usable = valid & ~bare_mask
+    hole_disks = None
+    if hole_w:
+        hole_disks = np.zeros((wr, wc), np.uint8)
+        for x, y, r in hole_w:
+            cv2.circle(hole_disks, (int(round(x)), int(round(y))), max(1, int(round(r))), 1, -1)
+        hole_zone = cv2.dilate(hole_disks, np.ones((5, 5), np.uint8))
+        hole_disks = hole_disks.astype(np.float64)
     if exclude is not None:
         usable &= ~exclude[:wr, :wc]
     for k, comp in enumerate(order):
@@ -562,7 +569,17 @@ def segment(
         vecs = cs[y0 : y0 + h, x0 : x0 + w][interior]
         lab, centres = _terrace_labels(vecs, bw)
         weight = np.bincount(lab, minlength=len(centres))
-        centres = centres[weight >= max(6, 0.1 * min_px_work)]
+        keep = weight >= max(6, 0.1 * min_px_work)
+        if hole_disks is not None:
+            # A mode lying mostly over holes is a suspended part (a membrane, perhaps only a
+            # part of a hole): kept however small, like the terraces over a hole below.
+            over = np.bincount(
+                lab, weights=hole_disks[y0 : y0 + h, x0 : x0 + w][interior], minlength=len(centres)
+            )
+            keep |= (weight >= 6) & (over >= 0.5 * weight)
+        if bare_c is not None:
+            keep &= np.sqrt((((centres - bare_c) / thr) ** 2).sum(-1)) >= 1.5  # bare hole
+        centres = centres[keep]
         if len(centres) == 0:
             continue
         # Every pixel near the component goes to the nearest of {substrate, terrace modes} by
@@ -577,7 +594,14 @@ def segment(
         d2 = ((z[:, :, None, :] - cz[None, None, :, :]) ** 2).sum(-1)
         tl = np.argmin(d2, axis=2).astype(np.int32)
         tl[~near] = 0
+        if bare_c is not None and hole_disks is not None:
+            # Over a hole, a pixel nearer to the bare hole's contrast than to every class is
+            # bare hole (a flake edge across the hole then lies half-way, as on substrate).
+            db = ((z - (bare_c / bw)) ** 2).sum(-1)
+            tl[(db < d2.min(axis=2)) & (hole_zone[py0:py1, px0:px1] > 0)] = 0
         fmask = tl > 0
+        if hole_disks is not None:
+            fmask = _bridge_rims(fmask, hole_zone[py0:py1, px0:px1] > 0, 3)
         if np.count_nonzero(fmask) < min_px_work:
             continue
         fid = len(flakes) + 1
@@ -591,7 +615,7 @@ def segment(
             n2, lab2, st2, _ = cv2.connectedComponentsWithStats(tm, connectivity=8)
             for j in range(1, n2):
                 if st2[j, cv2.CC_STAT_AREA] < min_px_work and not _over_hole(
-                    st2[j], px0, py0, hole_w
+                    st2[j], px0, py0, hole_w, lab2, j
                 ):
                     continue
                 rx, ry, rw, rh = (int(v) for v in st2[j, :4])
@@ -736,6 +760,8 @@ def _flake_outline(
             best[closer] = d2[closer]
             lab[closer] = k
         sub = (lab >= n_off) & (allowed[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] > 0)
+        yy, xx = np.ogrid[y0:y1, x0:x1]
+        sub = _bridge_rims(sub, np.abs(np.hypot(xx - x, yy - y) - r) <= 4.0, 4)
         big[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] = sub
     big = cv2.morphologyEx(big, cv2.MORPH_OPEN, np.ones((3, 3), np.uint8))
     contours, _ = cv2.findContours(big, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
@@ -747,6 +773,19 @@ def _flake_outline(
     cmax[:, 0] += bx0
     cmax[:, 1] += by0
     return cmax
+
+
+def _bridge_rims(mask: np.ndarray, rim: np.ndarray, half: int) -> np.ndarray:
+    """A flake mask with the hole rims it covers closed (a disk of radius ``half``).
+
+    Under a flake, the blurred edge of a hole mixes the flake's supported and suspended
+    contrasts; with one channel the mixture can pass through the substrate's contrast and cut
+    the suspended part off. Closing within the rims joins them again; elsewhere nothing changes.
+    """
+    k = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * half + 1, 2 * half + 1))
+    m = np.pad(mask.astype(np.uint8), half + 1)
+    closed = cv2.morphologyEx(m, cv2.MORPH_CLOSE, k)[half + 1 : -half - 1, half + 1 : -half - 1]
+    return mask | ((closed > 0) & rim)
 
 
 def _bare_hole_pixels(
@@ -787,23 +826,50 @@ def _bare_hole_pixels(
         if x1 <= x0 or y1 <= y0:
             continue
         yy, xx = np.ogrid[y0:y1, x0:x1]
-        disk = np.hypot(xx - x, yy - y) <= r + 2.0
+        d = np.hypot(xx - x, yy - y)
         v = cs[y0:y1, x0:x1] / thr
         t = np.clip((v @ (cb / thr)) / max(nb, 1e-12), 0, 1)
         dist = np.sqrt(((v - t[..., None] * (cb / thr)) ** 2).sum(-1))
-        mask[y0:y1, x0:x1] |= disk & (dist < 1.5)
+        # Mixtures of substrate and bare hole only on the rim, where the blurred edge makes
+        # them: inside, a pixel is bare hole only near the bare holes' own contrast (with one
+        # channel, every suspended flake darker than a bare hole lies on the segment).
+        # The rim counts only where bare substrate lies just outside it: where a flake covers
+        # the edge, mixtures of its supported and suspended parts can lie on the segment too.
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ux, uy = (xx - x) / np.maximum(d, 1e-9), (yy - y) / np.maximum(d, 1e-9)
+        oxs = np.clip(np.round(x + ux * (r + 3.5)).astype(int), 0, cols - 1)
+        oys = np.clip(np.round(y + uy * (r + 3.5)).astype(int), 0, rows - 1)
+        rim = (np.abs(d - r) <= 2.5) & sub_mask[oys, oxs]
+        near_cb = np.sqrt(((v - cb / thr) ** 2).sum(-1)) < 1.5
+        mask[y0:y1, x0:x1] |= (d <= r + 2.0) & (dist < 1.5) & (rim | near_cb)
     return mask, cb
 
 
-def _over_hole(stat: np.ndarray, x0: int, y0: int, hole_w: list) -> bool:
-    """Whether a small component (crop stats) lies over a hole and fills a good part of it."""
+def _over_hole(
+    stat: np.ndarray,
+    x0: int,
+    y0: int,
+    hole_w: list,
+    labels: np.ndarray | None = None,
+    label: int = 0,
+) -> bool:
+    """Whether a small component (crop stats; ``labels == label`` its pixels in the crop whose
+    top-left is (x0, y0)) lies over a hole and fills a good part of it: at least 8% of the hole's area
+    lies more than 1.5 px inside its edge (a sliver along the rim is an edge, not a membrane)."""
     if not hole_w:
         return False
     cx = x0 + stat[0] + stat[2] / 2.0
     cy = y0 + stat[1] + stat[3] / 2.0
     area = float(stat[cv2.CC_STAT_AREA])
     for x, y, r in hole_w:
-        if np.hypot(cx - x, cy - y) < r and area >= max(6.0, 0.2 * np.pi * r * r):
+        if np.hypot(cx - x, cy - y) >= r + 1.5 or area < max(6.0, 0.08 * np.pi * r * r):
+            continue
+        if labels is None:
+            return True
+        bx, by, bw_, bh = (int(v) for v in stat[:4])
+        ys, xs = np.nonzero(labels[by : by + bh, bx : bx + bw_] == label)
+        inside = np.hypot(xs + bx + x0 - x, ys + by + y0 - y) <= r - 1.5
+        if np.count_nonzero(inside) >= max(6.0, 0.08 * np.pi * r * r):
             return True
     return False
 

@@ -29,6 +29,7 @@ from flakebook.imaging.holes import (
     coverage_pairs,
     detect_holes,
     fit_lattice,
+    lattice_refusal,
     predict_hidden_holes,
 )
 from flakebook.imaging.io import Micrograph, from_array, read_image, with_intensity
@@ -304,9 +305,12 @@ def survey_image(
     check_cancel(cancel)
 
     lattice = None
-    if len(holes) >= 4:
-        lattice = fit_lattice(np.array([h.center_px for h in holes]))
-        if lattice is not None:
+    if len(holes) >= 2:
+        centres = np.array([h.center_px for h in holes])
+        lattice = fit_lattice(centres)
+        if lattice is None:
+            warnings.append(lattice_refusal(centres) or "no hole lattice fitted")
+        else:
             hidden = predict_hidden_holes(
                 holes, lattice, image.shape, [fl.outline_px for fl in seg.flakes]
             )

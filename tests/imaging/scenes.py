@@ -70,6 +70,7 @@ def micrograph(
     holes=(),
     seed=0,
     mono_nm=None,
+    substrate=None,
 ):
     """Linear camera signal: substrate x (1 - C_model(N)) with vignetting, dark offset, noise.
 
@@ -77,7 +78,7 @@ def micrograph(
     under the flakes with the suspended model where a flake covers them.
     """
     _, _, _, sup, susp = model(oxide_nm, mono_nm=mono_nm)
-    sub = SUBSTRATE_RGB if mono_nm is None else (0.3,)
+    sub = substrate or (SUBSTRATE_RGB if mono_nm is None else (0.3,))
     layers_masks = []
     hole_masks = [disk_coverage(shape, cx, cy, r) for cx, cy, r in holes]
     for hm in hole_masks:
