@@ -28,7 +28,13 @@ from flakebook.errors import InputError
 from flakebook.optics.materials import DataSet, Material
 
 _GRID_STEP_NM = 2.0
-_MIN_SHARE = 0.02  # directions whose singular value is below 2% of the largest are dropped
+_MIN_SHARE = 0.02
+# 1-sigma share of the step from layer-resolved (Hsu et al. 2019) to bulk n,k that a thin flake
+# may take: the layer-resolved data are the best-suited centre, bulk-like thin flakes lie at
+# 2 sigma (a modelling choice, stated in every description).
+LAYER_DIRECTION_SIGMA = (
+    0.5  # directions whose singular value is below 2% of the largest are dropped
+)
 
 
 def _short_source(ds: DataSet) -> str:
@@ -92,7 +98,7 @@ class NkUncertainty:
             return material
         delta = self.offset(a)
         lam = self.wavelength_nm
-        tag = ",".join(f"{x:.6g}" for x in a)
+        tag = ",".join(f"{x:.17g}" for x in a)
 
         def moved(ds: DataSet, row: int) -> DataSet:
             nk = ds.nk(lam) + delta[row]
@@ -136,7 +142,7 @@ class NkUncertainty:
         mean = np.asarray(mean, float).reshape(self.n_directions)
         cov = np.asarray(cov, float).reshape(self.n_directions, self.n_directions)
         cov = 0.5 * (cov + cov.T)
-        tag = ",".join(f"{x:.6g}" for x in np.concatenate([mean, cov.ravel()]))
+        tag = ",".join(f"{x:.17g}" for x in np.concatenate([mean, cov.ravel()]))
         return replace(self, mean=mean, cov=cov, key=f"cal[{tag}]")
 
     @property
@@ -150,8 +156,9 @@ class NkUncertainty:
         state = "after calibration on known flakes" if self.calibrated else "before calibration"
         return (
             f"n,k uncertainty: centre {self.centre}; spread from the differences of "
-            f"{', '.join(self.sources[1:])} from {self.sources[0]}, applied at every thickness, as {self.n_directions} Gaussian principal "
-            f"directions; 1-sigma RMS {state}: n {n1:.2f}, k {k1:.2f} at 1L, n {nb:.2f}, "
+            f"{', '.join(self.sources[1:])} from {self.sources[0]}, applied at every thickness, as {self.n_directions - 1} Gaussian principal "
+            f"directions, and the step from the layer-resolved to the bulk n,k for thin flakes "
+            f"({LAYER_DIRECTION_SIGMA:g} of it at 1 sigma); 1-sigma RMS {state}: n {n1:.2f}, k {k1:.2f} at 1L, n {nb:.2f}, "
             f"k {kb:.2f} from {self.layers}L on"
         )
 
@@ -195,6 +202,11 @@ def _nk_uncertainty(material: Material) -> NkUncertainty:
     half = top * lam.size
     dirs = sv[keep, None] * vt[keep]
     directions = (dirs[:, :half] + 1j * dirs[:, half:]).reshape(-1, top, lam.size)
+    # How bulk-like a thin flake's index is: the step from the layer-resolved centre to the bulk
+    # set, zero from the last hand-over layer on, with a stated 1-sigma share.
+    centre = np.array([material.nk(lam, n) for n in range(1, top + 1)])
+    layer_dir = LAYER_DIRECTION_SIGMA * (bulk[None, :] - centre)
+    directions = np.concatenate([directions, layer_dir[None]], axis=0)
     directions.setflags(write=False)
     k = directions.shape[0]
     resolved = sorted(n for n, ds in material.by_layers if not ds.ident.startswith("blend:"))
