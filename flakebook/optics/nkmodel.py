@@ -28,13 +28,13 @@ from flakebook.errors import InputError
 from flakebook.optics.materials import DataSet, Material
 
 _GRID_STEP_NM = 2.0
-_MIN_SHARE = 0.02
+_MIN_SHARE = 0.02  # directions whose singular value is below 2% of the largest are dropped
 # 1-sigma share of the step from layer-resolved (Hsu et al. 2019) to bulk n,k that a thin flake
 # may take: the layer-resolved data are the best-suited centre, bulk-like thin flakes lie at
 # 2 sigma (a modelling choice, stated in every description).
-LAYER_DIRECTION_SIGMA = (
-    0.5  # directions whose singular value is below 2% of the largest are dropped
-)
+LAYER_DIRECTION_SIGMA = 0.5
+# Scale of the bulk sets' spread (1: their root-mean-square offset from the bulk centre).
+BULK_SPREAD_SCALE = 1.0
 
 
 def _short_source(ds: DataSet) -> str:
@@ -200,7 +200,7 @@ def _nk_uncertainty(material: Material) -> NkUncertainty:
     _, sv, vt = np.linalg.svd(mat, full_matrices=False)
     keep = sv > _MIN_SHARE * sv[0]
     half = top * lam.size
-    dirs = sv[keep, None] * vt[keep]
+    dirs = BULK_SPREAD_SCALE * sv[keep, None] * vt[keep]
     directions = (dirs[:, :half] + 1j * dirs[:, half:]).reshape(-1, top, lam.size)
     # How bulk-like a thin flake's index is: the step from the layer-resolved centre to the bulk
     # set, zero from the last hand-over layer on, with a stated 1-sigma share.
