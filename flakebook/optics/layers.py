@@ -83,9 +83,12 @@ class LayerLikelihood:
     warnings: tuple[str, ...]
     provenance: dict = field(compare=False)
     grid: evidence.GridLikelihood | None = field(default=None, compare=False)
+    _posterior: evidence.Posterior | None = field(default=None, compare=False, repr=False)
 
     def posterior(self) -> evidence.Posterior:
         """The posterior with a flat prior (flakebook.evidence.combine)."""
+        if self._posterior is not None:
+            return self._posterior
         return evidence.combine([self])
 
     def to_dict(self) -> dict:
@@ -145,7 +148,7 @@ def _oxide_grid(center: float, sigma: float, spacing_nm: float = 2.0, max_nodes:
 
 def _oxide_model_nodes(center: float, sigma: float) -> tuple[np.ndarray, np.ndarray]:
     """Where the model is computed (coarse, <= 3 nm apart, one node beyond +-3 sigma on each
-    side) and where the likelihood is evaluated (fine, <= 0.25 nm apart): model contrast is a
+    side) and where the likelihood is evaluated (fine, <= 0.75 nm and sigma/4 apart): model contrast is a
     smooth function of the oxide thickness (fringes ~100-200 nm apart), so a cubic spline
     through the coarse nodes is exact to far below the model error, while the likelihood in
     oxide can be narrower than 1 nm for thick flakes."""
@@ -153,7 +156,7 @@ def _oxide_model_nodes(center: float, sigma: float) -> tuple[np.ndarray, np.ndar
     n_half = int(np.ceil(3.0 * sigma / h)) + 1
     coarse = center + h * np.arange(-n_half, n_half + 1)
     coarse = coarse[coarse >= 0]
-    fine, w = _oxide_grid(center, sigma, spacing_nm=min(0.5, sigma / 6.0), max_nodes=1201)
+    fine, w = _oxide_grid(center, sigma, spacing_nm=min(0.75, sigma / 4.0), max_nodes=1201)
     return coarse, np.stack([fine, w])
 
 
@@ -168,10 +171,10 @@ def _coarse_nodes(lo: float, hi: float) -> np.ndarray:
 def _model_layers(max_layers: int) -> tuple[np.ndarray, np.ndarray]:
     """Layer numbers the model is evaluated at, and each one's weight in the "more" bin.
 
-    Every N up to max(30, max_layers + 15), then every 5th up to 100; the "more" bin is the
+    Every N up to max(20, max_layers + 5), then every 5th up to 100; the "more" bin is the
     average over N_max+1..100, each sampled N standing for the integers up to the next one.
     """
-    top = min(max(30, max_layers + 15), N_MORE_MAX)
+    top = min(max(20, max_layers + 5), N_MORE_MAX)
     layers = np.concatenate([np.arange(1, top + 1), np.arange(top + 5, N_MORE_MAX + 1, 5)])
     nxt = np.append(layers[1:], N_MORE_MAX + 1)
     w = np.where(layers > max_layers, nxt - layers, 0).astype(float)
@@ -293,16 +296,21 @@ def _moments(material, unc: NkUncertainty | None, tables_args: dict):
     return mean, np.moveaxis(u, 0, -1)
 
 
-def _mvn_loglike(d: np.ndarray, cov: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """log N(d | 0, cov) and chi-square over leading axes (cov (..., C, C), C small)."""
+def _mvn_loglike(d: np.ndarray, cov: np.ndarray, extra_diag=None) -> tuple[np.ndarray, np.ndarray]:
+    """log N(d | 0, cov + diag(extra_diag)) and chi-square over leading axes (C small).
+
+    ``cov`` (..., C, C) and ``extra_diag`` (..., C) broadcast against ``d`` (..., C); the sum is
+    never formed as one array (a Cholesky factorisation written out per element)."""
     c = d.shape[-1]
     lmat = [[None] * c for _ in range(c)]
     logdet = 0.0
     for i in range(c):
         for j in range(i + 1):
-            s = cov[..., i, j].copy()
+            s = cov[..., i, j]
+            if i == j and extra_diag is not None:
+                s = s + extra_diag[..., i]
             for k in range(j):
-                s -= lmat[i][k] * lmat[j][k]
+                s = s - lmat[i][k] * lmat[j][k]
             if i == j:
                 lmat[i][i] = np.sqrt(np.maximum(s, 1e-300))
                 logdet = logdet + 2.0 * np.log(lmat[i][i])
@@ -311,10 +319,10 @@ def _mvn_loglike(d: np.ndarray, cov: np.ndarray) -> tuple[np.ndarray, np.ndarray
     y = []
     chi2 = 0.0
     for i in range(c):
-        v = d[..., i].copy()
+        v = d[..., i]
         for k in range(i):
-            v -= lmat[i][k] * y[k]
-        v /= lmat[i][i]
+            v = v - lmat[i][k] * y[k]
+        v = v / lmat[i][i]
         y.append(v)
         chi2 = chi2 + v * v
     return -0.5 * (chi2 + logdet + c * math.log(2.0 * math.pi)), chi2
@@ -549,14 +557,14 @@ def layer_likelihoods(
 def _lse(x: np.ndarray, axis: int) -> np.ndarray:
     """log-sum-exp along one axis (a single entry is returned as it is)."""
     if x.shape[axis] == 1:
-        return np.take(x, 0, axis=axis)
+        return x[(slice(None),) * axis + (0,)]
     top = np.max(x, axis=axis, keepdims=True)
     top = np.where(np.isfinite(top), top, 0.0)
     with np.errstate(divide="ignore"):
         return np.log(np.sum(np.exp(x - top), axis=axis)) + np.squeeze(top, axis=axis)
 
 
-_CHUNK = 200_000  # (rows x nodes x layers) per vectorised block
+_CHUNK = 400_000  # (rows x nodes x layers) per vectorised block
 
 
 def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
@@ -572,23 +580,26 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     base = base + diag_base[..., None] * np.eye(n_c)
     per_row = int(np.prod(mean.shape[:-1]))
     step = max(1, _CHUNK // max(per_row, 1))
-    ll_rows, chi_rows = [], []
+    log_wv, log_wox = ctx["log_wv"], ctx["log_wox"]
+    beyond = more_w > 0
+    log_more_w = np.log(more_w[beyond])
+    model_s = s0 * mean[None]
+    grid_rows, like_rows, chi_rows = [], [], []
     for a in range(0, meas.shape[0], step):
         check_cancel(cancel)
         m, e = meas[a : a + step], err[a : a + step]
-        cov = base[None] + (e**2)[:, None, None, None, :, None] * np.eye(n_c)
-        d = m[:, None, None, None, :] - s0 * mean[None]
-        ll, chi2 = _mvn_loglike(d, cov)  # (r, Kox, Kv, N)
-        ll_rows.append(ll)
+        d = m[:, None, None, None, :] - model_s
+        ll, chi2 = _mvn_loglike(d, base[None], (e**2)[:, None, None, None, :])  # (r, Kox, Kv, N)
         chi_rows.append(np.min(chi2[..., :max_layers], axis=(1, 2, 3)))
-    ll = np.concatenate(ll_rows)
+        with np.errstate(divide="ignore"):
+            ll_node = _lse(ll + log_wv[None, None, :, None], axis=2)  # (r, Kox, N)
+            node_more = _lse(ll_node[..., beyond] + log_more_w[None, None, :], axis=2)
+            g = np.concatenate([ll_node[..., :max_layers], node_more[..., None]], axis=2)
+            like_rows.append(_lse(g + log_wox[None, :, None], axis=1))  # (r, max_layers + 1)
+        grid_rows.append(g)
     best_chi2 = np.concatenate(chi_rows)
-    log_wv, log_wox = ctx["log_wv"], ctx["log_wox"]
-    with np.errstate(divide="ignore"):
-        ll_node = _lse(ll + log_wv[None, None, :, None], axis=2)  # (R, Kox, N)
-        node_more = _lse(ll_node + np.log(more_w)[None, None, :], axis=2)
-        grid_ll = np.concatenate([ll_node[..., :max_layers], node_more[..., None]], axis=2)
-        log_like = _lse(grid_ll + log_wox[None, :, None], axis=1)  # (R, max_layers + 1)
+    grid_ll = np.concatenate(grid_rows)
+    log_like = np.concatenate(like_rows)
     # Nominal model (the oxide node nearest the nominal value) and residuals.
     nodes = np.asarray(ctx["grid_nodes"], dtype=float) if ctx["grid_nodes"][0] is not None else None
     t0 = ctx["substrate"].oxide_nm
@@ -608,19 +619,24 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
             t0,
         )[:, [ctx["microscope"].channel_names.index(c) for c in use]]
     prov = _provenance(ctx)
+    # Everything per row that is arithmetic, for all rows at once.
+    if not np.all(np.any(np.isfinite(log_like), axis=1)):
+        raise InputError("no layer number is compatible with the measured contrast")
+    likes = np.exp(log_like - np.max(log_like, axis=1, keepdims=True))
+    posts = likes / likes.sum(axis=1, keepdims=True)
+    tots = np.sqrt(var0[None] + (err**2)[:, None, :])  # (R, N, C)
+    resids = (meas[:, None, :] - model_c[None]) / tots
     results = []
+    said: dict[tuple, str] = {}
     for r in range(meas.shape[0]):
-        check_cancel(cancel)
-        lr = log_like[r]
-        if not np.any(np.isfinite(lr)):
-            raise InputError("no layer number is compatible with the measured contrast")
-        like = np.exp(lr - lr.max())
+        if r % 1000 == 0:
+            check_cancel(cancel)
+        lr, like = log_like[r], likes[r]
         like.setflags(write=False)
         grid = None
         if ctx["oxide_grid"] is not None:
             grid = evidence.GridLikelihood(ctx["oxide_grid"], grid_ll[r], method=prov["method"])
-        post = evidence.combine([like])
-        tot = np.sqrt(var0 + err[r] ** 2)
+        post = _flat_posterior(posts[r])
         warnings = []
         if best_chi2[r] > thresh:
             warnings.append(
@@ -644,20 +660,24 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
         text = ""
         if ctx["explain"] and post.ambiguous_with:
             cands = [min(n, max_layers + 1) for n in [post.layers, *post.ambiguous_with]]
-            text = decider(
-                cands[0],
-                cands[1],
-                use=use,
-                sep_need=separation_needed(err[r], ctx["model_err"]),
-                material=ctx["material"],
-                substrate=ctx["substrate"],
-                microscope=ctx["microscope"],
-                geometry=ctx["geometry"],
-                hole=ctx["hole"],
-                oxide_err_nm=float(ctx["oxide_err_nm"]),
-                max_layers=max_layers,
-                saturated=ctx["saturated"],
-            )
+            key = (cands[0], cands[1], separation_needed(err[r], ctx["model_err"]))
+            if key in said:
+                text = said[key]
+            else:
+                text = said[key] = decider(
+                    key[0],
+                    key[1],
+                    use=use,
+                    sep_need=key[2],
+                    material=ctx["material"],
+                    substrate=ctx["substrate"],
+                    microscope=ctx["microscope"],
+                    geometry=ctx["geometry"],
+                    hole=ctx["hole"],
+                    oxide_err_nm=float(ctx["oxide_err_nm"]),
+                    max_layers=max_layers,
+                    saturated=ctx["saturated"],
+                )
         results.append(
             LayerLikelihood(
                 likelihood=like,
@@ -667,14 +687,32 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
                 contrast=meas[r],
                 contrast_err=err[r],
                 model_contrast=model_c,
-                residuals=(meas[r][None, :] - model_c) / tot,
+                residuals=resids[r],
                 decider=text,
                 warnings=tuple(warnings),
                 provenance=prov,
                 grid=grid,
+                _posterior=post,
             )
         )
     return results
+
+
+def _flat_posterior(post: np.ndarray) -> evidence.Posterior:
+    """evidence.combine of one likelihood with a flat prior, from its normalised values (the
+    same rule: most likely bin, its probability, others at >= evidence.AMBIGUITY_THRESHOLD)."""
+    post = post.copy()
+    post.setflags(write=False)
+    best = int(np.argmax(post))
+    order = np.argsort(-post, kind="stable")
+    amb = tuple(int(i) + 1 for i in order if i != best and post[i] >= evidence.AMBIGUITY_THRESHOLD)
+    return evidence.Posterior(
+        posterior=post,
+        layers=best + 1,
+        probability=float(post[best]),
+        ambiguous_with=amb,
+        max_layers=post.size - 1,
+    )
 
 
 def _provenance(ctx) -> dict:

@@ -33,7 +33,34 @@ def layer_name(n: int, max_layers: int) -> str:
     return f">{max_layers}L" if n > max_layers else f"{n}L"
 
 
-@functools.lru_cache(maxsize=256)
+@functools.lru_cache(maxsize=32)
+def _scans(material, substrate, microscope, geometry, hole, oxide_err_nm, max_layers):
+    """Model contrast of N = 1..max_layers + 1 at the nominal oxide and +-1 sigma: per camera
+    channel (oxides, N, C) and over a 420-780 nm scan for a bandpass filter (oxides, N, L),
+    or None where the data sets do not cover the scan."""
+    t0 = substrate.oxide_nm
+    oxides = (
+        [None] if (t0 is None or oxide_err_nm <= 0) else [t0 - oxide_err_nm, t0, t0 + oxide_err_nm]
+    )
+    subs = [substrate if t is None else substrate.with_oxide(max(t, 0.0)) for t in oxides]
+    lay = list(range(1, max_layers + 2))
+    tables = np.array(
+        [channel_contrast(material, lay, sub, microscope, geometry, hole).contrast for sub in subs]
+    )
+    lam = np.arange(420.0, 781.0, 10.0)
+    try:
+        scan = []
+        common = {"na": microscope.na_illumination, "n_angles": min(microscope.n_angles, 8)}
+        for sub in subs:
+            r_ref = cone_reflectance(None, (), sub, lam, **common)[0]
+            r_fl = cone_reflectance(material, lay, sub, lam, geometry=geometry, hole=hole, **common)
+            scan.append(1.0 - r_fl / r_ref[None, :])
+        scan = np.array(scan)
+    except InputError:
+        scan = None  # data sets not covering the scan: no bandpass suggestion
+    return tables, lam, scan
+
+
 def decider(
     a: int,
     b: int,
@@ -50,30 +77,20 @@ def decider(
     saturated: tuple[str, ...] = (),
 ) -> str:
     """Say what would settle between ``a`` layers (the most likely) and ``b`` (its rival);
-    ``sep_need`` is the contrast difference that tells them apart (3 sigma)."""
+    ``sep_need`` is the contrast difference that tells them apart (3 sigma). ``a`` or ``b``
+    equal to max_layers + 1 stands for the "more" bin (modelled as max_layers + 1 layers)."""
+    tables, lam, scan = _scans(
+        material, substrate, microscope, geometry, hole, float(oxide_err_nm), int(max_layers)
+    )
     tips: list[str] = []
     names = microscope.channel_names
-    t0 = substrate.oxide_nm
-    oxides = (
-        [None] if (t0 is None or oxide_err_nm <= 0) else [t0 - oxide_err_nm, t0, t0 + oxide_err_nm]
-    )
-    tables = [
-        channel_contrast(
-            material,
-            [a, b],
-            substrate if t is None else substrate.with_oxide(max(t, 0.0)),
-            microscope,
-            geometry,
-            hole,
-        ).contrast
-        for t in oxides
-    ]
-    nominal = tables[len(tables) // 2]
+    mid = tables.shape[0] // 2
+    nominal = tables[mid][[a - 1, b - 1]]
     # 1. A channel of this camera that was not measured.
     for j, ch in enumerate(names):
         if ch in use:
             continue
-        sep = min(abs(tb[0, j] - tb[1, j]) for tb in tables)
+        sep = float(np.min(np.abs(tables[:, a - 1, j] - tables[:, b - 1, j])))
         if sep > sep_need:
             how = (
                 f"lower the exposure until the {ch} channel is not saturated"
@@ -93,30 +110,15 @@ def decider(
                 "with flakes of known N or a reflectance spectrum)"
             )
     # 3. A narrow bandpass filter at the wavelength that separates them best, whatever the oxide.
-    try:
-        lam = np.arange(420.0, 781.0, 10.0)
-        seps, vals = [], None
-        for t in oxides:
-            sub = substrate if t is None else substrate.with_oxide(max(t, 0.0))
-            common = {"na": microscope.na_illumination, "n_angles": min(microscope.n_angles, 8)}
-            r_ref = cone_reflectance(None, (), sub, lam, **common)[0]
-            r_fl = cone_reflectance(
-                material, [a, b], sub, lam, geometry=geometry, hole=hole, **common
-            )
-            c = 1.0 - r_fl / r_ref[None, :]
-            seps.append(np.abs(c[0] - c[1]))
-            if t is None or t == t0:
-                vals = c
-        sep = np.min(seps, axis=0)
+    if scan is not None:
+        sep = np.min(np.abs(scan[:, a - 1] - scan[:, b - 1]), axis=0)
         k = int(np.argmax(sep))
-        if sep[k] > sep_need and vals is not None:
+        if sep[k] > sep_need:
             tips.append(
                 f"measure through a narrow bandpass filter at {lam[k]:.0f} nm "
-                f"(model {vals[0, k]:.3f} for {layer_name(a, max_layers)}, "
-                f"{vals[1, k]:.3f} for {layer_name(b, max_layers)})"
+                f"(model {scan[mid, a - 1, k]:.3f} for {layer_name(a, max_layers)}, "
+                f"{scan[mid, b - 1, k]:.3f} for {layer_name(b, max_layers)})"
             )
-    except InputError:
-        pass  # data sets not covering the scan: skip this suggestion
     tips.append("add other evidence (the Raman shear and breathing modes, or PL)")
     return (
         f"to decide between {layer_name(a, max_layers)} and {layer_name(b, max_layers)}: "
