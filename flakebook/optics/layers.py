@@ -358,7 +358,27 @@ def _calibration_options(calibration, substrate, oxide_err_nm, contrast_scale, c
 def layer_likelihood(
     contrast: dict[str, float],
     contrast_err: dict[str, float] | None = None,
-    **options,
+    *,
+    material: Material,
+    substrate: Substrate,
+    microscope: Microscope,
+    max_layers: int = 15,
+    oxide_err_nm: float = 0.0,
+    na_err: float = 0.0,
+    contrast_scale: float = 1.0,
+    contrast_scale_err: float = 0.0,
+    thickness_scale_err: float = DEFAULT_THICKNESS_SCALE_ERR,
+    model_err: float = DEFAULT_MODEL_ERR,
+    model_rel_err: float = DEFAULT_MODEL_REL_ERR,
+    geometry: str = "supported",
+    hole: Hole | None = None,
+    saturated: tuple[str, ...] = (),
+    nk_ensemble: bool = True,
+    oxide_grid: evidence.ParameterGrid | None = None,
+    calibration=None,
+    explain: bool = True,
+    progress=None,
+    cancel=None,
 ) -> LayerLikelihood:
     """Likelihood of N = 1..max_layers and "more" from measured channel contrast.
 
@@ -394,7 +414,30 @@ def layer_likelihood(
         ``progress(fraction, text)`` and a ``threading.Event``; the first call for a sample and
         microscope builds the model tables (a second or two), later calls reuse them.
     """
-    return layer_likelihoods([contrast], [contrast_err], **options)[0]
+    return layer_likelihoods(
+        [contrast],
+        [contrast_err],
+        material=material,
+        substrate=substrate,
+        microscope=microscope,
+        max_layers=max_layers,
+        oxide_err_nm=oxide_err_nm,
+        na_err=na_err,
+        contrast_scale=contrast_scale,
+        contrast_scale_err=contrast_scale_err,
+        thickness_scale_err=thickness_scale_err,
+        model_err=model_err,
+        model_rel_err=model_rel_err,
+        geometry=geometry,
+        hole=hole,
+        saturated=saturated,
+        nk_ensemble=nk_ensemble,
+        oxide_grid=oxide_grid,
+        calibration=calibration,
+        explain=explain,
+        progress=progress,
+        cancel=cancel,
+    )[0]
 
 
 def layer_likelihoods(

@@ -182,3 +182,26 @@ def test_suspended_flake_likelihood():
         explain=False,
     )
     assert like.posterior().layers == 2
+
+
+def test_rows_at_once_equal_rows_one_by_one():
+    """layer_likelihoods over many rows (vectorised) gives each row the same likelihood,
+    posterior (evidence.combine, flat prior) and warnings as layer_likelihood row by row, also
+    for rows that measured different channels (common practice, no source)."""
+    from flakebook import evidence
+    from flakebook.optics.layers import layer_likelihoods
+
+    rng = np.random.default_rng(4)
+    rows = [dict(zip(RGB, rng.uniform([0.3, -0.4, -0.3], [1.0, 0.6, -0.05]))) for _ in range(6)]
+    rows.append({"g": 0.3})
+    errs = [dict.fromkeys(r, 0.015) for r in rows]
+    kw = {"material": MOSE2, "substrate": SUB, "microscope": MIC, "oxide_err_nm": 3.0}
+    many = layer_likelihoods(rows, errs, **kw)
+    for r, e, lk in zip(rows, errs, many):
+        one = layer_likelihood(r, e, **kw)
+        np.testing.assert_allclose(lk.likelihood, one.likelihood, rtol=1e-9, atol=1e-300)
+        ref = evidence.combine([one.likelihood])
+        post = lk.posterior()
+        np.testing.assert_allclose(post.posterior, ref.posterior, rtol=1e-9, atol=1e-300)
+        assert (post.layers, post.ambiguous_with) == (ref.layers, ref.ambiguous_with)
+        assert lk.warnings == one.warnings and lk.decider == one.decider
