@@ -100,10 +100,12 @@ def _material(args):
 
 def _cmd_materials(args) -> int:
     from flakebook.optics.materials import list_materials
+    from flakebook.optics.nkmodel import nk_uncertainty
 
     rows = []
     for m in list_materials():
         lo, hi = m.wavelength_range_nm()
+        unc = nk_uncertainty(m)
         rows.append(
             {
                 "name": m.name,
@@ -111,6 +113,7 @@ def _cmd_materials(args) -> int:
                 "wavelength_range_nm": [lo, hi],
                 "reference": m.reference,
                 "layer_spacing_nm": m.layer_spacing_nm,
+                "nk_uncertainty": None if unc is None else unc.description(),
             }
         )
     if _common.output_format(args) == "table":
@@ -118,6 +121,7 @@ def _cmd_materials(args) -> int:
             f"{r['name']}  ({r['wavelength_range_nm'][0]:g}-{r['wavelength_range_nm'][1]:g} nm"
             + (f", layer spacing {r['layer_spacing_nm']:g} nm" if r["layer_spacing_nm"] else "")
             + f")\n  data: {r['data_set']}\n  reference: {r['reference']}"
+            + (f"\n  {r['nk_uncertainty']}" if r["nk_uncertainty"] else "")
             for r in rows
         )
         _common.emit(args, {"materials": rows}, text=text)
@@ -156,7 +160,7 @@ def _cmd_contrast(args) -> int:
 # ---- layers -----------------------------------------------------------------------------------
 
 
-def _read_layers_csv(path: str, channels: tuple[str, ...], single: bool):
+def _read_layers_csv(path: str, channels: tuple[str, ...], single: bool, known: bool = False):
     p = Path(path)
     try:
         text = p.read_text(encoding="utf-8-sig")
@@ -166,6 +170,11 @@ def _read_layers_csv(path: str, channels: tuple[str, ...], single: bool):
     header = [h.strip() for h in (reader.fieldnames or [])]
     if "id" not in header:
         raise InputError(f"{p}: the header needs an id column; found {', '.join(header) or 'none'}")
+    if known and "layers" not in header:
+        raise InputError(
+            f"{p}: the header needs a layers column (each flake's known N); found "
+            f"{', '.join(header)}"
+        )
     if single:
         wanted = {"mono": ("contrast", "contrast_err")}
     else:
@@ -189,21 +198,93 @@ def _read_layers_csv(path: str, channels: tuple[str, ...], single: bool):
                 raise InputError(f"{p} line {i}: {ccol} or {ecol} is not a number") from None
         if not c:
             raise InputError(f"{p} line {i}: no contrast value")
+        if known:
+            text = row.get("layers", "")
+            try:
+                n = int(text)
+            except ValueError:
+                n = 0
+            if not 1 <= n <= 100 or str(n) != text.strip():
+                raise InputError(
+                    f"{p} line {i}: layers {text!r}; accepted: the flake's known layer number, "
+                    "a whole number from 1 to 100"
+                )
+            rows.append((row.get("id") or None, c, e, n))
+            continue
         rows.append((row.get("id") or None, c, e))
     if not rows:
         raise InputError(f"{p}: no measurement rows")
     return rows
 
 
+def _read_calibration(path: str):
+    import json
+
+    from flakebook.optics.calibration import LayerCalibration
+
+    p = Path(path)
+    try:
+        data = json.loads(p.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError) as exc:
+        raise InputError(
+            f"{p}: cannot read the calibration ({exc}); accepted: the JSON of 'flakebook calibrate'"
+        ) from None
+    return LayerCalibration.from_dict(data, source=str(p))
+
+
+def _light_text(mic) -> str:
+    from flakebook.optics.calibration import _light
+
+    return _light(mic)
+
+
+def _check_against_calibration(args, cal, material, mic) -> None:
+    """Refuse options that contradict the calibration (INTERFACE.md)."""
+    model = cal.optical_model
+    problems = []
+    if material.name != cal.material:
+        problems.append(f"--material {args.material} (calibrated: {cal.material})")
+    if args.oxide_err_nm is not None:
+        problems.append("--oxide-err-nm (the calibration sets the oxide error)")
+    if args.oxide_nm is not None or args.substrate is not None:
+        given = _substrate(args).spec
+        if given != model.get("substrate_nominal"):
+            problems.append(f"substrate {given} (calibrated: {model.get('substrate_nominal')})")
+    if _light_text(mic) != model.get("light"):
+        problems.append(f"light {_light_text(mic)} (calibrated: {model.get('light')})")
+    if abs(mic.na_illumination - float(model.get("na_illumination", -1))) > 1e-9:
+        problems.append(
+            f"--na-illumination {mic.na_illumination:g} (calibrated: {model.get('na_illumination')})"
+        )
+    if model.get("illumination") and mic.wavelength_nm is None:
+        if mic.illumination.label != model["illumination"]:
+            problems.append(f"--illumination (calibrated: {model['illumination']})")
+    if problems:
+        raise InputError(
+            f"{args.calibration}: options contradict the calibration: "
+            + "; ".join(problems)
+            + ". Accepted: leave them out or give the calibrated values"
+        )
+
+
 def _cmd_layers(args) -> int:
-    from flakebook.optics.layers import layer_likelihood
+    from flakebook.optics.layers import layer_likelihoods
+    from flakebook.optics.substrate import parse_substrate
 
     material = _material(args)
-    substrate = _substrate(args)
     hole = _hole(args)
     if args.wavelength_nm is None and args.channels is None:
         raise InputError("give --wavelength-nm L or --channels srgb|mono|FILE.csv")
     mic = _microscope(args)
+    cal = None
+    if args.calibration is not None:
+        cal = _read_calibration(args.calibration)
+        _check_against_calibration(args, cal, material, mic)
+        substrate = parse_substrate(cal.optical_model["substrate_nominal"])
+    elif args.oxide_nm is None and args.substrate is None:
+        raise InputError("the substrate is missing; accepted: --oxide-nm D or --substrate SPEC")
+    else:
+        substrate = _substrate(args)
     channels = mic.channel_names
     single = args.wavelength_nm is not None
     if args.oxide_err_nm is not None:
@@ -235,24 +316,23 @@ def _cmd_layers(args) -> int:
         measurements = [(None, c, e)]
     progress = _common.Progress()
     cancel = _common.cancel_event()
+    # Every row at once (vectorised over the rows).
+    likes = layer_likelihoods(
+        [m[1] for m in measurements],
+        [m[2] for m in measurements],
+        material=material,
+        substrate=substrate,
+        microscope=mic,
+        max_layers=args.max_layers,
+        oxide_err_nm=args.oxide_err_nm or 0.0,
+        geometry=args.geometry,
+        hole=hole,
+        calibration=cal,
+        progress=progress,
+        cancel=cancel,
+    )
     results = []
-    for k, (ident, c, e) in enumerate(measurements):
-        from flakebook.errors import check_cancel
-
-        check_cancel(cancel)
-        like = layer_likelihood(
-            c,
-            e,
-            material=material,
-            substrate=substrate,
-            microscope=mic,
-            max_layers=args.max_layers,
-            oxide_err_nm=args.oxide_err_nm or 0.0,
-            geometry=args.geometry,
-            hole=hole,
-            progress=progress if k == 0 else None,
-            cancel=cancel,
-        )
+    for (ident, _, _), like in zip(measurements, likes):
         post = like.posterior()
         for w in like.warnings:
             _common.message(f"{ident or 'measurement'}: {w}")
@@ -268,8 +348,6 @@ def _cmd_layers(args) -> int:
                 "warnings": list(like.warnings),
             }
         )
-        if len(measurements) > 1:
-            progress((k + 1) / len(measurements), "layer likelihoods")
     fmt = _common.output_format(args)
     more = f">{args.max_layers}"
     rows = [
@@ -289,6 +367,51 @@ def _cmd_layers(args) -> int:
     if fmt == "csv":
         rows = [{**row, "posterior": r["posterior"]} for row, r in zip(rows, results)]
     _common.emit(args, {"results": results}, rows=rows)
+    return 0
+
+
+# ---- calibrate --------------------------------------------------------------------------------
+
+
+def _cmd_calibrate(args) -> int:
+    from flakebook.optics.calibration import KnownFlake, calibrate_layers
+
+    material = _material(args)
+    substrate = _substrate(args)
+    mic = _microscope(args)
+    if args.oxide_err_nm is not None:
+        _common.positive_float("--oxide-err-nm", args.oxide_err_nm, allow_zero=True)
+    rows = _read_layers_csv(args.csv, mic.channel_names, args.wavelength_nm is not None, known=True)
+    flakes = [KnownFlake(n, c, e, ident) for ident, c, e, n in rows]
+    cal = calibrate_layers(
+        flakes,
+        material=material,
+        substrate=substrate,
+        microscope=mic,
+        oxide_err_nm=args.oxide_err_nm or 0.0,
+    )
+    for w in cal.warnings:
+        _common.message(f"warning: {w}")
+    payload = cal.to_dict()
+    if args.out is not None:
+        out = Path(args.out)
+        tmp = out.with_name(out.name + ".part")
+        try:
+            tmp.write_text(_common.dumps(payload) + "\n", encoding="utf-8")
+            tmp.replace(out)
+        except OSError as exc:
+            tmp.unlink(missing_ok=True)
+            raise InputError(f"{out}: cannot write the calibration ({exc})") from None
+        _common.message(f"calibration written to {out}")
+    if _common.output_format(args) == "table":
+        text = (
+            f"oxide {cal.oxide_nm:.1f} +- {cal.oxide_err_nm:.1f} nm; contrast scale "
+            f"{cal.contrast_scale:.3f} +- {cal.contrast_scale_err:.3f}; "
+            f"{len(cal.flakes_used)} known flakes\n{cal.optical_model.get('description', '')}"
+        )
+        _common.emit(args, payload, text=text)
+    else:
+        _common.emit(args, payload)
     return 0
 
 
@@ -351,7 +474,10 @@ def register(sub: argparse._SubParsersAction) -> None:
         "layers", help="layer number from measured contrast", description=CONTRAST_NOTE
     )
     p.add_argument("--material", required=True)
-    _add_substrate(p)
+    _add_substrate(p, required=False)
+    p.add_argument(
+        "--calibration", default=None, metavar="CAL.json", help="a calibration from 'calibrate'"
+    )
     p.add_argument("--oxide-err-nm", type=float, default=None)
     _add_light(p, required=False)
     p.add_argument("--contrast", default=None, help="C, or r=C1,g=C2,b=C3 for channels")
@@ -361,6 +487,25 @@ def register(sub: argparse._SubParsersAction) -> None:
     _add_geometry(p)
     _common.add_format_option(p, csv_ok=True)
     p.set_defaults(func=_cmd_layers)
+
+    p = sub.add_parser(
+        "calibrate",
+        help="fit oxide, contrast scale and n,k model to flakes of known layer number",
+        description=CONTRAST_NOTE,
+    )
+    p.add_argument("--material", required=True)
+    _add_substrate(p)
+    p.add_argument("--oxide-err-nm", type=float, default=None)
+    _add_light(p)
+    p.add_argument(
+        "--csv",
+        required=True,
+        metavar="KNOWN.csv",
+        help="a layers --csv table plus a layers column",
+    )
+    p.add_argument("--out", default=None, metavar="CAL.json")
+    _common.add_format_option(p)
+    p.set_defaults(func=_cmd_calibrate)
 
     p = sub.add_parser(
         "absorptance",

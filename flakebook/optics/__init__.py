@@ -13,8 +13,15 @@ Public API (names kept stable for the other packages):
 - ``microscope``: ``Illumination``, ``Channels``, ``Microscope(na_illumination, illumination,
   channels)``, ``channel_contrast(material, layers, substrate, microscope, geometry, hole) ->
   ContrastTable``, ``cone_reflectance``.
-- ``layers``: ``layer_likelihood(contrast, contrast_err, *, material, substrate, microscope, ...)
-  -> LayerLikelihood``, ``contrast_err_from_pixels``.
+- ``layers``: ``layer_likelihood(contrast, contrast_err, *, material, substrate, microscope, ...,
+  oxide_grid=None, calibration=None) -> LayerLikelihood`` (``.grid``: a GridLikelihood on a
+  shared oxide grid), ``layer_likelihoods(contrasts, contrast_errs, ...)`` (many rows at once),
+  ``contrast_err_from_pixels``, ``model_contrast_curve``.
+- ``nkmodel``: ``nk_uncertainty(material) -> NkUncertainty`` (the n,k uncertainty around the
+  layer-resolved centre: ``perturbed``, ``narrowed``, ``description``).
+- ``calibration``: ``KnownFlake``, ``calibrate_layers(flakes, *, material, substrate,
+  microscope, oxide_err_nm, ...) -> LayerCalibration`` (``to_dict``/``from_dict``,
+  ``nk_model``).
 - ``camera``: ``saturation_mask``, ``CalibrationObservation``, ``calibrate(...) ->
   CameraCalibration`` (``to_dict``/``from_dict``, ``contrast``, ``likelihood_options``).
 - ``absorptance``: ``absorptance(...) -> Absorptance``, ``absorptance_spread(...)``,

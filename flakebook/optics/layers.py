@@ -3,16 +3,18 @@
 One joint likelihood over N = 1..N_max and a "more" bin (the likelihood averaged over
 N_max+1..100), from all channels together. The measured contrast in channel c is modelled as
 
-    C_c = s * M_c(N; t_ox, NA) + e_c,
+    C_c = s * M_c(N; t_ox, NA, a) + e_c,
 
 with M the thin-film model (flakebook.optics.microscope), s the contrast scale (stray light and
-flare compress contrast; 1 for an ideal camera), and e_c Gaussian noise with the measured error
-of the region's contrast (see :func:`contrast_err_from_pixels` for spatially correlated pixel
-noise) plus a model error (absolute and relative to the contrast) for the uncertainty of published
-n,k data. The shared systematic parameters are marginalised jointly for all channels, never per
-channel: the oxide thickness and the illumination NA by Gauss-Hermite quadrature over their
-Gaussian uncertainties, the contrast scale analytically (it adds the rank-one covariance
-sigma_s^2 M M^T, so channels move together).
+flare compress contrast; 1 for an ideal camera), a the coefficients of the n,k uncertainty
+(flakebook.optics.nkmodel: the spread of published n,k around the layer-resolved centre), and
+e_c Gaussian noise with the measured error plus a small model error for what the n,k
+uncertainty does not cover (camera sensitivities, lamp spectrum). The shared systematic
+parameters are marginalised jointly for all channels, never per channel: the oxide thickness on
+a grid (a shared :class:`flakebook.evidence.ParameterGrid` when given, so that other oxide-
+dependent evidence marginalises it once with this), the NA by Gauss-Hermite quadrature, and the
+n,k coefficients and the contrast scale analytically: the model is linear in a to second order
+(central differences at +-1 sigma), so both add low-rank covariance shared by the channels.
 
 When the result is ambiguous, ``decider`` says what would settle it: another camera channel, a
 narrow bandpass filter at a named wavelength, a calibrated oxide, or another kind of evidence.
@@ -26,18 +28,34 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy.interpolate import CubicSpline
-from scipy.special import logsumexp
 from scipy.stats import chi2 as chi2_dist
 
 from flakebook import __version__, evidence
 from flakebook.errors import InputError, check_cancel
+from flakebook.optics.layers_explain import (
+    ContrastCurve,
+    decider,
+    model_contrast_curve,
+    oxide_sensitivity,
+    separation_needed,
+)
 from flakebook.optics.materials import Material
-from flakebook.optics.microscope import Microscope, channel_contrast, cone_reflectance
+from flakebook.optics.microscope import Microscope, channel_contrast
+from flakebook.optics.nkmodel import NkUncertainty, nk_uncertainty
 from flakebook.optics.substrate import Hole, Substrate
 
+__all__ = [
+    "ContrastCurve",
+    "LayerLikelihood",
+    "contrast_err_from_pixels",
+    "layer_likelihood",
+    "layer_likelihoods",
+    "model_contrast_curve",
+]
+
 N_MORE_MAX = 100  # the "more" bin averages N_max+1..N_MORE_MAX
-DEFAULT_MODEL_ERR = 0.01
-DEFAULT_MODEL_REL_ERR = 0.05
+DEFAULT_MODEL_ERR = 0.005
+DEFAULT_MODEL_REL_ERR = 0.02
 DEFAULT_THICKNESS_SCALE_ERR = 0.0
 _VAR_FLOOR = 1e-8  # (1e-4)^2: keeps an exact measurement with no model error finite
 
@@ -48,7 +66,8 @@ class LayerLikelihood:
 
     ``model_contrast`` and ``residuals`` have shape (max_layers, len(channels)): the model
     contrast (times the contrast scale) at the nominal oxide and NA, and the normalised residual
-    (measured - model) / total error. ``decider`` says what would settle an ambiguity (empty when
+    (measured - model) / total error. ``grid`` (when an oxide grid was given) holds
+    log L(N | oxide node) on that grid, every other nuisance marginalised. ``decider`` says what would settle an ambiguity (empty when
     there is none).
     """
 
@@ -63,10 +82,14 @@ class LayerLikelihood:
     decider: str
     warnings: tuple[str, ...]
     provenance: dict = field(compare=False)
+    grid: evidence.GridLikelihood | None = field(default=None, compare=False)
+    _posterior: evidence.Posterior | None = field(default=None, compare=False, repr=False)
 
     def posterior(self) -> evidence.Posterior:
         """The posterior with a flat prior (flakebook.evidence.combine)."""
-        return evidence.combine([self.likelihood])
+        if self._posterior is not None:
+            return self._posterior
+        return evidence.combine([self])
 
     def to_dict(self) -> dict:
         post = self.posterior()
@@ -125,7 +148,7 @@ def _oxide_grid(center: float, sigma: float, spacing_nm: float = 2.0, max_nodes:
 
 def _oxide_model_nodes(center: float, sigma: float) -> tuple[np.ndarray, np.ndarray]:
     """Where the model is computed (coarse, <= 3 nm apart, one node beyond +-3 sigma on each
-    side) and where the likelihood is evaluated (fine, <= 0.25 nm apart): model contrast is a
+    side) and where the likelihood is evaluated (fine, <= 0.75 nm and sigma/4 apart): model contrast is a
     smooth function of the oxide thickness (fringes ~100-200 nm apart), so a cubic spline
     through the coarse nodes is exact to far below the model error, while the likelihood in
     oxide can be narrower than 1 nm for thick flakes."""
@@ -133,35 +156,29 @@ def _oxide_model_nodes(center: float, sigma: float) -> tuple[np.ndarray, np.ndar
     n_half = int(np.ceil(3.0 * sigma / h)) + 1
     coarse = center + h * np.arange(-n_half, n_half + 1)
     coarse = coarse[coarse >= 0]
-    fine, w = _oxide_grid(center, sigma, spacing_nm=min(0.25, sigma / 8.0), max_nodes=1201)
+    fine, w = _oxide_grid(center, sigma, spacing_nm=min(0.75, sigma / 4.0), max_nodes=1201)
     return coarse, np.stack([fine, w])
+
+
+def _coarse_nodes(lo: float, hi: float) -> np.ndarray:
+    """Model nodes <= 3 nm apart covering [lo, hi] with one node beyond each end."""
+    n = max(int(np.ceil((hi - lo) / 3.0)), 1)
+    h = (hi - lo) / n if hi > lo else 3.0
+    out = lo + h * np.arange(-1, n + 2)
+    return out[out >= 0]
 
 
 def _model_layers(max_layers: int) -> tuple[np.ndarray, np.ndarray]:
     """Layer numbers the model is evaluated at, and each one's weight in the "more" bin.
 
-    Every N up to max(30, max_layers + 15), then every 5th up to 100; the "more" bin is the
+    Every N up to max(20, max_layers + 5), then every 5th up to 100; the "more" bin is the
     average over N_max+1..100, each sampled N standing for the integers up to the next one.
     """
-    top = min(max(30, max_layers + 15), N_MORE_MAX)
+    top = min(max(20, max_layers + 5), N_MORE_MAX)
     layers = np.concatenate([np.arange(1, top + 1), np.arange(top + 5, N_MORE_MAX + 1, 5)])
     nxt = np.append(layers[1:], N_MORE_MAX + 1)
     w = np.where(layers > max_layers, nxt - layers, 0).astype(float)
     return layers, w / w.sum()
-
-
-def _gauss_loglike(meas, model, var_diag, s0, sigma_s):
-    """log N(meas | s0*model, diag(var) + sigma_s^2 model model^T), over leading axes of model."""
-    d = meas - s0 * model  # (..., C)
-    u = sigma_s * model
-    dinv = 1.0 / var_diag
-    a = np.sum(d * d * dinv, axis=-1)
-    b = np.sum(u * d * dinv, axis=-1)
-    g = 1.0 + np.sum(u * u * dinv, axis=-1)
-    chi2 = a - b * b / g
-    logdet = np.sum(np.log(var_diag), axis=-1) + np.log(g)
-    k = meas.shape[-1]
-    return -0.5 * (chi2 + logdet + k * math.log(2.0 * math.pi))
 
 
 def _check_inputs(contrast, contrast_err, microscope, saturated):
@@ -206,92 +223,136 @@ def _check_inputs(contrast, contrast_err, microscope, saturated):
     return tuple(use), np.array(vals), np.array(errs)
 
 
-def _model_stack(
-    material,
+@functools.lru_cache(maxsize=256)
+def _table(material, substrate, microscope, geometry, hole, t, na, f, layers) -> np.ndarray:
+    sub = substrate if t is None else substrate.with_oxide(t)
+    mic = replace(microscope, na_illumination=float(na))
+    mat = (
+        material if f == 1.0 else replace(material, layer_spacing_nm=material.layer_spacing_nm * f)
+    )
+    return channel_contrast(mat, layers, sub, mic, geometry, hole).contrast
+
+
+def _model_tables(
+    materials,
     substrate,
     microscope,
     geometry,
     hole,
     oxide_nodes,
     na_nodes,
-    scale_nodes=(1.0,),
-    variants=None,
-    layers=None,
+    f_nodes,
+    layers,
     progress=None,
     cancel=None,
-):
-    """Cached :func:`_model_stack_uncached` (all inputs are immutable; result read-only).
-
-    With ``progress`` or ``cancel``, the tables are first filled one by one, reporting progress
-    and honouring the cancel event (flakebook.errors.Cancelled)."""
-    key_layers = None if layers is None else tuple(int(n) for n in layers)
-    if progress is not None or cancel is not None:
-        vs = [material] if variants is None else list(variants)
-        lay = np.arange(1, N_MORE_MAX + 1) if layers is None else np.asarray(layers)
-        jobs = [
-            (t, na, v, f) for t in oxide_nodes for na in na_nodes for v in vs for f in scale_nodes
-        ]
-        for k, (t, na, v, f) in enumerate(jobs):
-            check_cancel(cancel)
-            sub = substrate if t is None else substrate.with_oxide(t)
-            mat = v if f == 1.0 else replace(v, layer_spacing_nm=v.layer_spacing_nm * float(f))
-            mic = replace(microscope, na_illumination=float(na))
-            channel_contrast(mat, lay, sub, mic, geometry, hole)
-            if progress is not None:
-                progress((k + 1) / len(jobs), "contrast model tables")
-    return _model_stack_cached(
-        material,
-        substrate,
-        microscope,
-        geometry,
-        hole,
-        tuple(None if t is None else float(t) for t in oxide_nodes),
-        tuple(float(x) for x in na_nodes),
-        tuple(float(x) for x in scale_nodes),
-        None if variants is None else tuple(variants),
-        key_layers,
+) -> np.ndarray:
+    """Model contrast, shape (len(materials), K_ox, K_na * K_f, N, C_all); cached per node."""
+    lay = tuple(int(n) for n in layers)
+    jobs = [
+        (m, t, na, f) for m in materials for t in oxide_nodes for na in na_nodes for f in f_nodes
+    ]
+    out = []
+    for k, (m, t, na, f) in enumerate(jobs):
+        check_cancel(cancel)
+        out.append(
+            _table(
+                m,
+                substrate,
+                microscope,
+                geometry,
+                hole,
+                None if t is None else float(t),
+                float(na),
+                float(f),
+                lay,
+            )
+        )
+        if progress is not None:
+            progress((k + 1) / len(jobs), "contrast model tables")
+    arr = np.array(out)
+    return arr.reshape(
+        len(materials), len(oxide_nodes), len(na_nodes) * len(f_nodes), *arr.shape[1:]
     )
 
 
-@functools.lru_cache(maxsize=64)
-def _model_stack_cached(*args):
-    out = _model_stack_uncached(*args[:9], None if args[9] is None else np.array(args[9]))
-    out.setflags(write=False)
-    return out
+def _moments(material, unc: NkUncertainty | None, tables_args: dict):
+    """Mean model and low-rank covariance factor of the n,k uncertainty.
+
+    Returns mean (K_ox, K_v, N, C_all) and factor U (K_ox, K_v, N, C_all, R) with
+    cov = U U^T: the model to second order in the coefficients (central differences at
+    +-1 sigma along each column of chol(cov_a)), mean = M(mu) + sum_k h_k / 2,
+    cov = sum_k g_k g_k^T + h_k h_k^T / 2."""
+    if unc is None:
+        t = _model_tables([material], **tables_args)
+        return t[0], np.zeros((*t.shape[1:], 0))
+    pts, _ = unc.nodes()
+    mats = [unc.perturbed(material, a) for a in pts]
+    t = _model_tables(mats, **tables_args)
+    m0, plus, minus = t[0], t[1::2], t[2::2]
+    g = 0.5 * (plus - minus)
+    h = plus + minus - 2.0 * m0
+    mean = m0 + 0.5 * np.sum(h, axis=0)
+    u = np.concatenate([g, h / math.sqrt(2.0)], axis=0)
+    return mean, np.moveaxis(u, 0, -1)
 
 
-def _model_stack_uncached(
-    material,
-    substrate,
-    microscope,
-    geometry,
-    hole,
-    oxide_nodes,
-    na_nodes,
-    scale_nodes=(1.0,),
-    variants=None,
-    layers=None,
-):
-    """Model contrast of N = 1..N_MORE_MAX at every (oxide, NA, n,k variant, thickness-scale)
-    node: shape (K_ox, K_na * K_v * K_f, N, C_all)."""
-    variants = [material] if variants is None else variants
-    layers = np.arange(1, N_MORE_MAX + 1) if layers is None else layers
-    out = []
-    for t in oxide_nodes:
-        sub = substrate if t is None else substrate.with_oxide(t)
-        row = []
-        for na in na_nodes:
-            mic = replace(microscope, na_illumination=float(na))
-            for variant in variants:
-                for f in scale_nodes:
-                    mat = (
-                        variant
-                        if f == 1.0
-                        else replace(variant, layer_spacing_nm=variant.layer_spacing_nm * float(f))
-                    )
-                    row.append(channel_contrast(mat, layers, sub, mic, geometry, hole).contrast)
-        out.append(row)
-    return np.array(out)
+def _mvn_loglike(d: np.ndarray, cov: np.ndarray, extra_diag=None) -> tuple[np.ndarray, np.ndarray]:
+    """log N(d | 0, cov + diag(extra_diag)) and chi-square over leading axes (C small).
+
+    ``cov`` (..., C, C) and ``extra_diag`` (..., C) broadcast against ``d`` (..., C); the sum is
+    never formed as one array (a Cholesky factorisation written out per element)."""
+    c = d.shape[-1]
+    lmat = [[None] * c for _ in range(c)]
+    logdet = 0.0
+    for i in range(c):
+        for j in range(i + 1):
+            s = cov[..., i, j]
+            if i == j and extra_diag is not None:
+                s = s + extra_diag[..., i]
+            for k in range(j):
+                s = s - lmat[i][k] * lmat[j][k]
+            if i == j:
+                lmat[i][i] = np.sqrt(np.maximum(s, 1e-300))
+                logdet = logdet + 2.0 * np.log(lmat[i][i])
+            else:
+                lmat[i][j] = s / lmat[j][j]
+    y = []
+    chi2 = 0.0
+    for i in range(c):
+        v = d[..., i]
+        for k in range(i):
+            v = v - lmat[i][k] * y[k]
+        v = v / lmat[i][i]
+        y.append(v)
+        chi2 = chi2 + v * v
+    return -0.5 * (chi2 + logdet + c * math.log(2.0 * math.pi)), chi2
+
+
+def _calibration_options(calibration, substrate, oxide_err_nm, contrast_scale, contrast_scale_err):
+    from flakebook.optics.calibration import LayerCalibration
+
+    if not isinstance(calibration, LayerCalibration):
+        raise InputError("calibration= takes a LayerCalibration (flakebook.optics.calibration)")
+    if substrate.oxide_nm is None:
+        raise InputError(f"a calibration sets the oxide, but substrate {substrate.spec} has none")
+    clash = []
+    if oxide_err_nm not in (0.0, calibration.oxide_err_nm):
+        clash.append("the oxide error")
+    if contrast_scale != 1.0 and contrast_scale != calibration.contrast_scale:
+        clash.append("the contrast scale")
+    if contrast_scale_err not in (0.0, calibration.contrast_scale_err):
+        clash.append("the contrast-scale error")
+    if clash:
+        raise InputError(
+            f"{' and '.join(clash)} given beside a calibration that sets them; accepted: leave "
+            "them out (the calibration's values are used)"
+        )
+    return (
+        substrate.with_oxide(calibration.oxide_nm),
+        calibration.oxide_err_nm,
+        calibration.contrast_scale,
+        calibration.contrast_scale_err,
+    )
 
 
 def layer_likelihood(
@@ -313,6 +374,8 @@ def layer_likelihood(
     hole: Hole | None = None,
     saturated: tuple[str, ...] = (),
     nk_ensemble: bool = True,
+    oxide_grid: evidence.ParameterGrid | None = None,
+    calibration=None,
     explain: bool = True,
     progress=None,
     cancel=None,
@@ -328,14 +391,21 @@ def layer_likelihood(
         The sample and microscope (``flakebook.optics.microscope.channel_contrast``).
     oxide_err_nm, na_err, contrast_scale, contrast_scale_err:
         Shared systematic parameters and their standard deviations, marginalised jointly.
+    oxide_grid:
+        A shared :class:`flakebook.evidence.ParameterGrid` of ``oxide_nm``: the oxide prior is
+        its nodes and weights (instead of oxide_err_nm), and the result's ``grid`` holds
+        log L(N | node) for :func:`flakebook.evidence.combine`.
+    calibration:
+        A :class:`flakebook.optics.calibration.LayerCalibration`: its oxide, oxide error,
+        contrast scale and narrowed n,k uncertainty replace the defaults (options given beside it
+        that contradict it are refused).
     model_err, model_rel_err:
-        Model error per channel: absolute, and relative to the model contrast.
+        Model error per channel beyond the n,k uncertainty: absolute, and relative to the model.
     thickness_scale_err:
         Relative uncertainty of the flake's optical thickness, marginalised (Gauss-Hermite).
     nk_ensemble:
-        Marginalise over the material's published bulk data sets (``Material.variants``) with
-        equal weights: published n,k of the same crystal disagree by more than their stated
-        errors, and that spread is the model's n,k uncertainty.
+        Marginalise over the material's n,k uncertainty (flakebook.optics.nkmodel); False uses
+        the centre data alone.
     saturated:
         Channels to leave out (saturated pixels); each gives a warning.
     explain:
@@ -344,6 +414,60 @@ def layer_likelihood(
         ``progress(fraction, text)`` and a ``threading.Event``; the first call for a sample and
         microscope builds the model tables (a second or two), later calls reuse them.
     """
+    return layer_likelihoods(
+        [contrast],
+        [contrast_err],
+        material=material,
+        substrate=substrate,
+        microscope=microscope,
+        max_layers=max_layers,
+        oxide_err_nm=oxide_err_nm,
+        na_err=na_err,
+        contrast_scale=contrast_scale,
+        contrast_scale_err=contrast_scale_err,
+        thickness_scale_err=thickness_scale_err,
+        model_err=model_err,
+        model_rel_err=model_rel_err,
+        geometry=geometry,
+        hole=hole,
+        saturated=saturated,
+        nk_ensemble=nk_ensemble,
+        oxide_grid=oxide_grid,
+        calibration=calibration,
+        explain=explain,
+        progress=progress,
+        cancel=cancel,
+    )[0]
+
+
+def layer_likelihoods(
+    contrasts,
+    contrast_errs=None,
+    *,
+    material: Material,
+    substrate: Substrate,
+    microscope: Microscope,
+    max_layers: int = 15,
+    oxide_err_nm: float = 0.0,
+    na_err: float = 0.0,
+    contrast_scale: float = 1.0,
+    contrast_scale_err: float = 0.0,
+    thickness_scale_err: float = DEFAULT_THICKNESS_SCALE_ERR,
+    model_err: float = DEFAULT_MODEL_ERR,
+    model_rel_err: float = DEFAULT_MODEL_REL_ERR,
+    geometry: str = "supported",
+    hole: Hole | None = None,
+    saturated: tuple[str, ...] = (),
+    nk_ensemble: bool = True,
+    oxide_grid: evidence.ParameterGrid | None = None,
+    calibration=None,
+    explain: bool = True,
+    progress=None,
+    cancel=None,
+) -> list[LayerLikelihood]:
+    """:func:`layer_likelihood` of many measurements at once (same options), vectorised over
+    the measurements: ``contrasts`` a sequence of per-channel dicts, ``contrast_errs`` a
+    sequence of dicts or None. Returns one LayerLikelihood per measurement, in order."""
     if not isinstance(max_layers, int | np.integer) or not 1 <= int(max_layers) < N_MORE_MAX:
         raise InputError(f"--max-layers {max_layers!r}: accepted a whole number from 1 to 99")
     max_layers = int(max_layers)
@@ -359,20 +483,47 @@ def layer_likelihood(
             raise InputError(f"{name} {v!r}: accepted a number >= 0")
     if not (math.isfinite(contrast_scale) and contrast_scale > 0):
         raise InputError(f"contrast scale {contrast_scale!r}: accepted a positive number")
-    use, meas, err = _check_inputs(contrast, contrast_err, microscope, saturated)
-    warnings = [f"channel {c} left out: saturated" for c in saturated if c in contrast]
-    idx = [microscope.channel_names.index(c) for c in use]
-
-    t0 = substrate.oxide_nm
-    if oxide_err_nm > 0 and t0 is None:
-        raise InputError(
-            f"--oxide-err-nm given but substrate {substrate.spec} has no SiO2 film to vary"
+    contrasts = list(contrasts)
+    errs_in = [None] * len(contrasts) if contrast_errs is None else list(contrast_errs)
+    if len(errs_in) != len(contrasts):
+        raise InputError("one contrast-error entry per measurement is needed (or none at all)")
+    unc = nk_uncertainty(material) if nk_ensemble else None
+    if calibration is not None:
+        substrate, oxide_err_nm, contrast_scale, contrast_scale_err = _calibration_options(
+            calibration, substrate, oxide_err_nm, contrast_scale, contrast_scale_err
         )
-    if oxide_err_nm > 0:
-        ox_nodes, fine = _oxide_model_nodes(t0, oxide_err_nm)
-        ox_fine, ox_w = fine
+        if nk_ensemble:
+            unc = calibration.nk_model(material)
+    t0 = substrate.oxide_nm
+    if oxide_grid is not None:
+        if not isinstance(oxide_grid, evidence.ParameterGrid) or oxide_grid.parameter != "oxide_nm":
+            raise InputError(
+                "oxide_grid must be a ParameterGrid of 'oxide_nm' (evidence.parameter_grid)"
+            )
+        if t0 is None:
+            raise InputError(f"an oxide grid was given but substrate {substrate.spec} has no SiO2")
+        nodes = np.asarray(oxide_grid.nodes, float)
+        sd = float(
+            np.sqrt(np.sum(oxide_grid.weights * (nodes - np.sum(oxide_grid.weights * nodes)) ** 2))
+        )
+        if oxide_err_nm > 0 and abs(sd - oxide_err_nm) > 0.1 * oxide_err_nm + 0.05:
+            raise InputError(
+                f"--oxide-err-nm {oxide_err_nm:g} contradicts the shared oxide grid (spread "
+                f"{sd:.2g} nm); accepted: the grid alone, or an error that matches it"
+            )
+        oxide_err_nm = sd
+        ox_nodes = (
+            _coarse_nodes(float(nodes.min()), float(nodes.max())) if nodes.size > 1 else nodes
+        )
+        ox_fine, ox_w = nodes, np.asarray(oxide_grid.weights, float)
+    elif oxide_err_nm > 0:
+        if t0 is None:
+            raise InputError(
+                f"--oxide-err-nm given but substrate {substrate.spec} has no SiO2 film to vary"
+            )
+        ox_nodes, (ox_fine, ox_w) = _oxide_model_nodes(t0, oxide_err_nm)
     else:
-        ox_nodes, ox_fine, ox_w = np.array([None]), None, np.array([1.0])
+        ox_nodes, ox_fine, ox_w = np.array([t0]), None, np.array([1.0])
     na0 = microscope.na_illumination
     na_nodes, na_w = _gh_nodes(na0, na_err, 5, lower=0.0) if na_err > 0 else ([na0], [1.0])
     na_cap = 0.95 if microscope.na_objective is None else microscope.na_objective
@@ -382,331 +533,257 @@ def layer_likelihood(
         if thickness_scale_err > 0
         else (np.array([1.0]), np.array([1.0]))
     )
-    variants = material.variants() if nk_ensemble else [material]
     layers, more_w = _model_layers(max_layers)
-    model_all = _model_stack(
-        material,
-        substrate,
-        microscope,
-        geometry,
-        hole,
-        ox_nodes,
-        na_nodes,
-        f_nodes,
-        variants,
-        layers,
-        progress,
-        cancel,
+    targs = dict(
+        substrate=substrate,
+        microscope=microscope,
+        geometry=geometry,
+        hole=hole,
+        oxide_nodes=list(ox_nodes),
+        na_nodes=list(na_nodes),
+        f_nodes=list(f_nodes),
+        layers=layers,
+        progress=progress,
+        cancel=cancel,
     )
-    if ox_fine is not None:
-        model_all = CubicSpline(ox_nodes.astype(float), model_all, axis=0)(ox_fine)
-    model = model_all[..., idx]  # (Kox, Kna*Kf, N, C)
-
-    var = err**2 + model_err**2 + (model_rel_err * contrast_scale * model) ** 2 + _VAR_FLOOR
-    ll = _gauss_loglike(meas, model, var, contrast_scale, contrast_scale_err)  # (Kox, Kna, N)
-    wts = (
-        np.asarray(ox_w)[:, None, None]
-        * np.einsum(
-            "i,j,k->ijk", np.asarray(na_w), np.full(len(variants), 1.0 / len(variants)), f_w
-        ).reshape(-1)[None, :, None]
-    )
-    with np.errstate(divide="ignore"):
-        log_n = logsumexp(ll + np.log(wts), axis=(0, 1))  # (N,)
-        log_more = logsumexp(log_n + np.log(more_w))
-    log_like = np.concatenate([log_n[:max_layers], [log_more]])
-    if not np.any(np.isfinite(log_like)):
-        raise InputError("no layer number is compatible with the measured contrast")
-    like = np.exp(log_like - log_like.max())
-    scaled = like
-
-    # Nominal model and residuals.
-    nominal = (
-        _model_stack(
-            material, substrate, microscope, geometry, hole, [None], [na0], [1.0], None, layers
-        )[0, 0][:max_layers][:, idx]
-        if oxide_err_nm > 0 or na_err > 0 or thickness_scale_err > 0
-        else model[0, 0, :max_layers]
-    )
-    tot_err = np.sqrt(
-        err**2
-        + model_err**2
-        + (model_rel_err * contrast_scale * nominal) ** 2
-        + (contrast_scale_err * nominal) ** 2
-        + _VAR_FLOOR
-    )
-    model_c = contrast_scale * nominal
-    resid = (meas[None, :] - model_c) / tot_err
-    # Goodness of fit over every systematic node (any oxide, n,k set, NA), not the nominal only.
-    node_var = var + (contrast_scale_err * model) ** 2
-    node_chi2 = np.sum((meas - contrast_scale * model) ** 2 / node_var, axis=-1)
-    best_chi2 = float(np.min(node_chi2[..., :max_layers]))
-    if best_chi2 > float(chi2_dist.isf(1e-3, len(use))):
-        warnings.append(
-            f"no layer number explains the measured contrast within its errors "
-            f"(best chi-square {best_chi2:.1f} over {len(use)} channel(s)): check the substrate, "
-            "material, dark offset and reference region"
+    mean_all, u_all = _moments(material, unc, targs)
+    if ox_fine is not None and len(ox_nodes) > 1:
+        spline_x = np.asarray(ox_nodes, float)
+        mean_all = CubicSpline(spline_x, mean_all, axis=0)(ox_fine)
+        u_all = (
+            CubicSpline(spline_x, u_all, axis=0)(ox_fine)
+            if u_all.shape[-1]
+            else np.zeros((len(ox_fine), *u_all.shape[1:]))
         )
-
-    post = evidence.combine([scaled])
-    if oxide_err_nm == 0 and t0 is not None and not post.is_more:
-        sens = _oxide_sensitivity(
-            material, substrate, microscope, geometry, hole, post.layers, idx, t0
-        )
-        worst = int(np.argmax(np.abs(sens) / np.sqrt(var[0, 0, post.layers - 1])))
-        shift = float(sens[worst])
-        if abs(shift) > 3.0 * float(np.sqrt(var[0, 0, post.layers - 1, worst])):
-            warnings.append(
-                f"the oxide thickness is taken as exactly {t0:g} nm, but here a 3 nm change moves "
-                f"the {use[worst]} contrast of {post.layers}L by {shift:+.3f}, more than the "
-                "errors allow: give the oxide's uncertainty (--oxide-err-nm) or calibrate it, or "
-                "the layer number may be confidently wrong"
-            )
-
-    decider = ""
-    if explain and post.ambiguous_with:
-        decider = _decider(
-            post,
-            use=use,
-            meas_err=err,
-            model_err=model_err,
-            material=material,
-            substrate=substrate,
-            microscope=microscope,
-            geometry=geometry,
-            hole=hole,
-            oxide_err_nm=oxide_err_nm,
-            model_all=_model_stack(
-                material,
-                substrate,
-                microscope,
-                geometry,
-                hole,
-                ox_nodes,
-                [na0],
-                [1.0],
-                None,
-                layers,
-            ),
-            nominal=_model_stack(
-                material, substrate, microscope, geometry, hole, [None], [na0], [1.0], None, layers
-            )[0, 0],
-            max_layers=max_layers,
-            saturated=tuple(saturated),
-        )
-    scaled = scaled.copy()
-    scaled.setflags(write=False)
-    return LayerLikelihood(
-        likelihood=scaled,
-        log_likelihood=log_like,
+    v_w = np.einsum("i,j->ij", np.asarray(na_w, float), np.asarray(f_w, float)).reshape(-1)
+    ctx = dict(
+        material=material,
+        substrate=substrate,
+        microscope=microscope,
+        geometry=geometry,
+        hole=hole,
+        oxide_err_nm=oxide_err_nm,
         max_layers=max_layers,
-        channels=use,
-        contrast=meas,
-        contrast_err=err,
-        model_contrast=model_c,
-        residuals=resid,
-        decider=decider,
-        warnings=tuple(warnings),
-        provenance={
-            "flakebook_version": __version__,
-            "method": "thin-film transfer-matrix contrast, joint Gaussian likelihood over "
-            "channels with oxide, NA and contrast scale marginalised",
-            "material": material.name,
-            "data_sets": material.data_set_text,
-            "reference": material.reference,
-            "substrate": substrate.spec,
-            "substrate_data_sets": [f.material.data_set_text for f in substrate.films]
-            + [substrate.base.data_set_text],
-            "geometry": geometry,
-            "hole": None if hole is None else {"bottom": hole.bottom, "depth_nm": hole.depth_nm},
-            "na_illumination": microscope.na_illumination,
-            "na_err": na_err,
-            "illumination": microscope.illumination.label,
-            "channels": list(microscope.channel_names),
-            "oxide_err_nm": oxide_err_nm,
-            "contrast_scale": contrast_scale,
-            "contrast_scale_err": contrast_scale_err,
-            "model_err": model_err,
-            "model_rel_err": model_rel_err,
-            "thickness_scale_err": thickness_scale_err,
-            "nk_data_sets": [v.data_set_text for v in variants],
-        },
+        layers=layers,
+        more_w=more_w,
+        log_wv=np.log(v_w),
+        log_wox=np.log(np.asarray(ox_w, float)),
+        contrast_scale=contrast_scale,
+        contrast_scale_err=contrast_scale_err,
+        model_err=model_err,
+        model_rel_err=model_rel_err,
+        explain=explain,
+        saturated=tuple(saturated),
+        oxide_grid=oxide_grid,
+        grid_nodes=ox_fine if ox_fine is not None else ox_nodes,
+        unc=unc,
+        na_err=na_err,
+        thickness_scale_err=thickness_scale_err,
     )
-
-
-def _oxide_sensitivity(material, substrate, microscope, geometry, hole, n, idx, t0):
-    """Change of the model contrast of N layers per channel for a 3 nm thicker oxide."""
-    from flakebook.optics.microscope import channel_contrast
-
-    lo = channel_contrast(material, [n], substrate, microscope, geometry, hole).contrast[0]
-    hi = channel_contrast(
-        material, [n], substrate.with_oxide(t0 + 3.0), microscope, geometry, hole
-    ).contrast[0]
-    return (hi - lo)[idx]
-
-
-def _name(n: int, max_layers: int) -> str:
-    return f">{max_layers}L" if n > max_layers else f"{n}L"
-
-
-def _decider(
-    post,
-    *,
-    use,
-    meas_err,
-    model_err,
-    material,
-    substrate,
-    microscope,
-    geometry,
-    hole,
-    oxide_err_nm,
-    model_all,
-    nominal,
-    max_layers,
-    saturated=(),
-) -> str:
-    """Say what would settle between the most likely N and its rivals."""
-    cands = [post.layers, *post.ambiguous_with][:3]
-    cands_n = [min(n, max_layers + 1) for n in cands]
-    a, b = cands_n[0], cands_n[1]
-    sep_need = 3.0 * math.sqrt(float(np.mean(meas_err**2)) + model_err**2)
-    tips: list[str] = []
-    names = microscope.channel_names
-    # 1. A channel of this camera that was not measured.
-    for j, ch in enumerate(names):
-        if ch in use:
-            continue
-        # Robust separation over the oxide nodes.
-        sep = np.min(np.abs(model_all[:, 0, a - 1, j] - model_all[:, 0, b - 1, j]))
-        if sep > sep_need:
-            how = (
-                f"lower the exposure until the {ch} channel is not saturated"
-                if ch in saturated
-                else f"measure the {ch} channel too"
-            )
-            tips.append(
-                f"{how} (model {nominal[a - 1, j]:.3f} for "
-                f"{_name(a, max_layers)}, {nominal[b - 1, j]:.3f} for {_name(b, max_layers)})"
-            )
-    # 2. The oxide: if the candidates differ at every fixed oxide but the oxide spread mixes them.
-    if oxide_err_nm > 2.0:
-        j_use = [names.index(c) for c in use]
-        fixed = np.abs(nominal[a - 1, j_use] - nominal[b - 1, j_use])
-        if np.max(fixed) > sep_need:
-            tips.append(
-                f"calibrate the oxide thickness (to about 1 nm instead of {oxide_err_nm:g} nm, "
-                "with flakes of known N or a reflectance spectrum)"
-            )
-    # 3. A narrow bandpass filter at the wavelength that separates them best, whatever the oxide.
-    try:
-        lam = np.arange(420.0, 781.0, 10.0)
-        t0 = substrate.oxide_nm
-        oxides = (
-            [None]
-            if (t0 is None or oxide_err_nm <= 0)
-            else [
-                t0 - oxide_err_nm,
-                t0,
-                t0 + oxide_err_nm,
-            ]
-        )
-        seps = []
-        vals = None
-        for t in oxides:
-            sub = substrate if t is None else substrate.with_oxide(max(t, 0.0))
-            common = {"na": microscope.na_illumination, "n_angles": min(microscope.n_angles, 8)}
-            r_ref = cone_reflectance(None, (), sub, lam, **common)[0]
-            r_fl = cone_reflectance(
-                material, [a, b], sub, lam, geometry=geometry, hole=hole, **common
-            )
-            c = 1.0 - r_fl / r_ref[None, :]
-            seps.append(np.abs(c[0] - c[1]))
-            if t is None or t == t0:
-                vals = c
-        sep = np.min(seps, axis=0)
-        k = int(np.argmax(sep))
-        if sep[k] > sep_need and vals is not None:
-            tips.append(
-                f"measure through a narrow bandpass filter at {lam[k]:.0f} nm "
-                f"(model {vals[0, k]:.3f} for {_name(a, max_layers)}, "
-                f"{vals[1, k]:.3f} for {_name(b, max_layers)})"
-            )
-    except InputError:
-        pass  # data sets not covering the scan: skip this suggestion
-    tips.append("add other evidence (the Raman shear and breathing modes, or PL)")
-    return f"to decide between {_name(a, max_layers)} and {_name(b, max_layers)}: " + "; or ".join(
-        tips
-    )
-
-
-@dataclass(frozen=True)
-class ContrastCurve:
-    """Model contrast versus N per channel with its 16-84% band from the systematics.
-
-    ``contrast`` is the nominal model (shape (len(layers), len(channels))); ``low`` and ``high``
-    are the weighted 16th and 84th percentiles over the oxide uncertainty and the published n,k
-    sets (see :func:`layer_likelihood`).
-    """
-
-    layers: np.ndarray
-    channels: tuple[str, ...]
-    contrast: np.ndarray
-    low: np.ndarray
-    high: np.ndarray
-
-
-def _weighted_quantile(values: np.ndarray, weights: np.ndarray, q: float) -> np.ndarray:
-    """Weighted quantile along axis 0."""
-    if values.shape[0] == 1:
-        return values[0].copy()
-    order = np.argsort(values, axis=0)
-    v = np.take_along_axis(values, order, axis=0)
-    w = np.take_along_axis(weights, order, axis=0)
-    cw = np.cumsum(w, axis=0) - 0.5 * w
-    cw /= np.sum(w, axis=0, keepdims=True)
-    out = np.empty(values.shape[1:])
-    for idx in np.ndindex(*values.shape[1:]):
-        sel = (slice(None), *idx)
-        out[idx] = np.interp(q, cw[sel], v[sel])
+    # Rows grouped by the channels they measured; each group is computed at once.
+    checked = [_check_inputs(c, e, microscope, saturated) for c, e in zip(contrasts, errs_in)]
+    out: list[LayerLikelihood | None] = [None] * len(contrasts)
+    groups: dict[tuple[str, ...], list[int]] = {}
+    for i, (use, _, _) in enumerate(checked):
+        groups.setdefault(use, []).append(i)
+    for use, rows in groups.items():
+        idx = [microscope.channel_names.index(c) for c in use]
+        meas = np.array([checked[i][1] for i in rows])
+        err = np.array([checked[i][2] for i in rows])
+        res = _rows(meas, err, use, mean_all[..., idx], u_all[..., idx, :], ctx, cancel)
+        for i, r in zip(rows, res):
+            sat = [f"channel {c} left out: saturated" for c in saturated if c in contrasts[i]]
+            out[i] = replace(r, warnings=tuple(sat) + r.warnings)
     return out
 
 
-def model_contrast_curve(
-    material: Material,
-    layers,
-    substrate: Substrate,
-    microscope: Microscope,
-    *,
-    oxide_err_nm: float = 0.0,
-    nk_ensemble: bool = True,
-    geometry: str = "supported",
-    hole: Hole | None = None,
-) -> ContrastCurve:
-    """The contrast-versus-N curve of every channel with a band for the oxide uncertainty and the
-    spread of published n,k data (for plots next to measured contrast)."""
-    lay = np.atleast_1d(np.asarray(layers, int))
-    nominal = channel_contrast(material, lay, substrate, microscope, geometry, hole).contrast
-    t0 = substrate.oxide_nm
-    if oxide_err_nm > 0 and t0 is None:
-        raise InputError(f"substrate {substrate.spec} has no SiO2 film to vary")
-    ox, ow = (
-        _oxide_grid(t0, oxide_err_nm, spacing_nm=3.0)
-        if oxide_err_nm > 0
-        else ([None], np.array([1.0]))
+def _lse(x: np.ndarray, axis: int) -> np.ndarray:
+    """log-sum-exp along one axis (a single entry is returned as it is)."""
+    if x.shape[axis] == 1:
+        return x[(slice(None),) * axis + (0,)]
+    top = np.max(x, axis=axis, keepdims=True)
+    top = np.where(np.isfinite(top), top, 0.0)
+    with np.errstate(divide="ignore"):
+        return np.log(np.sum(np.exp(x - top), axis=axis)) + np.squeeze(top, axis=axis)
+
+
+_CHUNK = 400_000  # (rows x nodes x layers) per vectorised block
+
+
+def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
+    """Likelihoods of measurement rows ``meas`` (R, C) with errors ``err`` on one channel set."""
+    s0, ss = ctx["contrast_scale"], ctx["contrast_scale_err"]
+    max_layers, more_w = ctx["max_layers"], ctx["more_w"]
+    n_c = len(use)
+    # Row-independent part of the covariance: n,k (scaled), contrast scale, model error.
+    base = s0**2 * np.einsum("...ir,...jr->...ij", u, u) + ss**2 * np.einsum(
+        "...i,...j->...ij", mean, mean
     )
-    variants = material.variants() if nk_ensemble else [material]
-    vals, wts = [], []
-    for t, w in zip(ox, ow):
-        sub = substrate if t is None else substrate.with_oxide(t)
-        for v in variants:
-            vals.append(channel_contrast(v, lay, sub, microscope, geometry, hole).contrast)
-            wts.append(w / len(variants))
-    vals = np.array(vals)
-    wts = np.array(wts)[:, None, None] * np.ones(vals.shape)
-    return ContrastCurve(
-        layers=lay,
-        channels=microscope.channel_names,
-        contrast=nominal,
-        low=_weighted_quantile(vals, wts, 0.16),
-        high=_weighted_quantile(vals, wts, 0.84),
+    diag_base = ctx["model_err"] ** 2 + (ctx["model_rel_err"] * s0 * mean) ** 2 + _VAR_FLOOR
+    base = base + diag_base[..., None] * np.eye(n_c)
+    per_row = int(np.prod(mean.shape[:-1]))
+    step = max(1, _CHUNK // max(per_row, 1))
+    log_wv, log_wox = ctx["log_wv"], ctx["log_wox"]
+    beyond = more_w > 0
+    log_more_w = np.log(more_w[beyond])
+    model_s = s0 * mean[None]
+    grid_rows, like_rows, chi_rows = [], [], []
+    for a in range(0, meas.shape[0], step):
+        check_cancel(cancel)
+        m, e = meas[a : a + step], err[a : a + step]
+        d = m[:, None, None, None, :] - model_s
+        ll, chi2 = _mvn_loglike(d, base[None], (e**2)[:, None, None, None, :])  # (r, Kox, Kv, N)
+        chi_rows.append(np.min(chi2[..., :max_layers], axis=(1, 2, 3)))
+        with np.errstate(divide="ignore"):
+            ll_node = _lse(ll + log_wv[None, None, :, None], axis=2)  # (r, Kox, N)
+            node_more = _lse(ll_node[..., beyond] + log_more_w[None, None, :], axis=2)
+            g = np.concatenate([ll_node[..., :max_layers], node_more[..., None]], axis=2)
+            like_rows.append(_lse(g + log_wox[None, :, None], axis=1))  # (r, max_layers + 1)
+        grid_rows.append(g)
+    best_chi2 = np.concatenate(chi_rows)
+    grid_ll = np.concatenate(grid_rows)
+    log_like = np.concatenate(like_rows)
+    # Nominal model (the oxide node nearest the nominal value) and residuals.
+    nodes = np.asarray(ctx["grid_nodes"], dtype=float) if ctx["grid_nodes"][0] is not None else None
+    t0 = ctx["substrate"].oxide_nm
+    k0 = 0 if nodes is None or t0 is None else int(np.argmin(np.abs(nodes - t0)))
+    model_c = s0 * mean[k0, 0, :max_layers]
+    var0 = np.diagonal(base[k0, 0, :max_layers], axis1=-2, axis2=-1)  # (N, C)
+    thresh = float(chi2_dist.isf(1e-3, n_c))
+    sens = None
+    if ctx["oxide_err_nm"] == 0 and ctx["oxide_grid"] is None and t0 is not None:
+        sens = oxide_sensitivity(
+            ctx["material"],
+            ctx["substrate"],
+            ctx["microscope"],
+            ctx["geometry"],
+            ctx["hole"],
+            list(range(1, max_layers + 1)),
+            t0,
+        )[:, [ctx["microscope"].channel_names.index(c) for c in use]]
+    prov = _provenance(ctx)
+    # Everything per row that is arithmetic, for all rows at once.
+    if not np.all(np.any(np.isfinite(log_like), axis=1)):
+        raise InputError("no layer number is compatible with the measured contrast")
+    likes = np.exp(log_like - np.max(log_like, axis=1, keepdims=True))
+    posts = likes / likes.sum(axis=1, keepdims=True)
+    tots = np.sqrt(var0[None] + (err**2)[:, None, :])  # (R, N, C)
+    resids = (meas[:, None, :] - model_c[None]) / tots
+    results = []
+    said: dict[tuple, str] = {}
+    for r in range(meas.shape[0]):
+        if r % 1000 == 0:
+            check_cancel(cancel)
+        lr, like = log_like[r], likes[r]
+        like.setflags(write=False)
+        grid = None
+        if ctx["oxide_grid"] is not None:
+            grid = evidence.GridLikelihood(ctx["oxide_grid"], grid_ll[r], method=prov["method"])
+        post = _flat_posterior(posts[r])
+        warnings = []
+        if best_chi2[r] > thresh:
+            warnings.append(
+                f"no layer number explains the measured contrast within its errors "
+                f"(best chi-square {best_chi2[r]:.1f} over {n_c} channel(s)): check the "
+                "substrate, material, dark offset and reference region"
+            )
+        if sens is not None and not post.is_more:
+            n = post.layers - 1
+            # Against the measurement and model error alone: the n,k uncertainty is shared by
+            # the flakes of a chip and narrowed by calibration, the oxide error is not.
+            z = np.abs(sens[n]) / np.sqrt(diag_base[k0, 0, n] + err[r] ** 2)
+            worst = int(np.argmax(z))
+            if z[worst] > 3.0:
+                warnings.append(
+                    f"the oxide thickness is taken as exactly {t0:g} nm, but here a 3 nm change "
+                    f"moves the {use[worst]} contrast of {post.layers}L by {sens[n, worst]:+.3f}, "
+                    "more than the errors allow: give the oxide's uncertainty (--oxide-err-nm) or "
+                    "calibrate it, or the layer number may be confidently wrong"
+                )
+        text = ""
+        if ctx["explain"] and post.ambiguous_with:
+            cands = [min(n, max_layers + 1) for n in [post.layers, *post.ambiguous_with]]
+            key = (cands[0], cands[1], separation_needed(err[r], ctx["model_err"]))
+            if key in said:
+                text = said[key]
+            else:
+                text = said[key] = decider(
+                    key[0],
+                    key[1],
+                    use=use,
+                    sep_need=key[2],
+                    material=ctx["material"],
+                    substrate=ctx["substrate"],
+                    microscope=ctx["microscope"],
+                    geometry=ctx["geometry"],
+                    hole=ctx["hole"],
+                    oxide_err_nm=float(ctx["oxide_err_nm"]),
+                    max_layers=max_layers,
+                    saturated=ctx["saturated"],
+                )
+        results.append(
+            LayerLikelihood(
+                likelihood=like,
+                log_likelihood=lr,
+                max_layers=max_layers,
+                channels=use,
+                contrast=meas[r],
+                contrast_err=err[r],
+                model_contrast=model_c,
+                residuals=resids[r],
+                decider=text,
+                warnings=tuple(warnings),
+                provenance=prov,
+                grid=grid,
+                _posterior=post,
+            )
+        )
+    return results
+
+
+def _flat_posterior(post: np.ndarray) -> evidence.Posterior:
+    """evidence.combine of one likelihood with a flat prior, from its normalised values (the
+    same rule: most likely bin, its probability, others at >= evidence.AMBIGUITY_THRESHOLD)."""
+    post = post.copy()
+    post.setflags(write=False)
+    best = int(np.argmax(post))
+    order = np.argsort(-post, kind="stable")
+    amb = tuple(int(i) + 1 for i in order if i != best and post[i] >= evidence.AMBIGUITY_THRESHOLD)
+    return evidence.Posterior(
+        posterior=post,
+        layers=best + 1,
+        probability=float(post[best]),
+        ambiguous_with=amb,
+        max_layers=post.size - 1,
     )
+
+
+def _provenance(ctx) -> dict:
+    material, substrate, microscope = ctx["material"], ctx["substrate"], ctx["microscope"]
+    unc, hole = ctx["unc"], ctx["hole"]
+    return {
+        "flakebook_version": __version__,
+        "method": "thin-film transfer-matrix contrast, joint Gaussian likelihood over channels "
+        "with the oxide, NA, contrast scale and n,k uncertainty marginalised",
+        "material": material.name,
+        "data_sets": material.data_set_text,
+        "reference": material.reference,
+        "nk_model": "centre data only (no n,k uncertainty)" if unc is None else unc.description(),
+        "nk_uncertainty": None if unc is None else unc.to_dict(),
+        "substrate": substrate.spec,
+        "substrate_data_sets": [f.material.data_set_text for f in substrate.films]
+        + [substrate.base.data_set_text],
+        "geometry": ctx["geometry"],
+        "hole": None if hole is None else {"bottom": hole.bottom, "depth_nm": hole.depth_nm},
+        "na_illumination": microscope.na_illumination,
+        "na_err": ctx["na_err"],
+        "illumination": microscope.illumination.label,
+        "channels": list(microscope.channel_names),
+        "oxide_err_nm": ctx["oxide_err_nm"],
+        "oxide_grid": ctx["oxide_grid"] is not None,
+        "contrast_scale": ctx["contrast_scale"],
+        "contrast_scale_err": ctx["contrast_scale_err"],
+        "model_err": ctx["model_err"],
+        "model_rel_err": ctx["model_rel_err"],
+        "thickness_scale_err": ctx["thickness_scale_err"],
+    }

@@ -215,6 +215,8 @@ class Material:
     layer_spacing_nm: float | None = None
     note: str = ""
     bulk_alternatives: tuple[tuple[DataSet, DataSet | None], ...] = ()
+    by_layers_extraordinary: tuple[tuple[int, DataSet], ...] = ()
+    handover_layers: tuple[int, int] | None = None
 
     def variants(self) -> list[Material]:
         """This material and one variant per other published bulk data set (ordinary,
@@ -255,6 +257,9 @@ class Material:
 
     def nk_extraordinary(self, wavelength_nm, layers: int | None = None) -> np.ndarray:
         """Out-of-plane index; equals :meth:`nk` where only an in-plane set is known."""
+        for n, ds in self.by_layers_extraordinary:
+            if layers is not None and n == int(layers):
+                return ds.nk(wavelength_nm)
         if self.extraordinary is None or any(n == layers for n, _ in self.by_layers):
             return self.nk(wavelength_nm, layers)
         return self.extraordinary.nk(wavelength_nm)
@@ -277,6 +282,7 @@ class Material:
     @property
     def data_sets(self) -> tuple[DataSet, ...]:
         out = [ds for _, ds in self.by_layers] + [self.ordinary]
+        out += [ds for _, ds in self.by_layers_extraordinary]
         if self.extraordinary is not None:
             out.append(self.extraordinary)
         return tuple(out)
@@ -284,9 +290,20 @@ class Material:
     @property
     def data_set_text(self) -> str:
         """Short description of which data sets are used for which films."""
-        parts = [f"{n}L: {ds.ident}" for n, ds in self.by_layers]
-        label = "thicker" if self.by_layers else "all"
-        parts.append(f"{label}: {self.ordinary.ident}")
+        blended = set()
+        if self.handover_layers is not None:
+            a, b = self.handover_layers
+            blended = set(range(a + 1, b))
+        parts = [f"{n}L: {ds.ident}" for n, ds in self.by_layers if n not in blended]
+        if blended:
+            a, b = self.handover_layers
+            last = dict(self.by_layers).get(a)
+            parts.append(
+                f"{a + 1}L-{b - 1}L: blend of {last.ident if last else a} and "
+                f"{self.ordinary.ident}, linear in N from {a}L to {b}L"
+            )
+        label = f"{max(blended) + 1}L and thicker" if blended else "thicker"
+        parts.append(f"{label if self.by_layers else 'all'}: {self.ordinary.ident}")
         if self.extraordinary is not None:
             parts.append(f"out-of-plane: {self.extraordinary.ident}")
         return "; ".join(parts)
@@ -340,21 +357,63 @@ _BULK_ALTERNATIVES = {
 }
 
 
+# The hand-over from layer-resolved to bulk data: the last layer-resolved set (3L) is used at 3
+# layers, bulk data from 6 layers on, and in between the index is blended linearly in N, so the
+# model contrast never jumps where the data sets change.
+HANDOVER_LAYERS = (3, 6)
+_BLEND_STEP_NM = 1.0
+
+
+def _blend(a: DataSet, b: DataSet, weight_a: float, ident: str) -> DataSet:
+    """A tabulated set weight_a * a + (1 - weight_a) * b (complex index), on their common range."""
+    lo = max(a.wavelength_range_nm[0], b.wavelength_range_nm[0])
+    hi = min(a.wavelength_range_nm[1], b.wavelength_range_nm[1])
+    lam = np.linspace(lo, hi, int(round((hi - lo) / _BLEND_STEP_NM)) + 1)
+    nk = weight_a * a.nk(lam) + (1.0 - weight_a) * b.nk(lam)
+    return DataSet(
+        ident=ident,
+        reference="",
+        wavelength_range_nm=(float(lo), float(hi)),
+        comment=f"{weight_a:.3f} x {a.ident} + {1 - weight_a:.3f} x {b.ident}",
+        k_is_zero=a.k_is_zero and b.k_is_zero,
+        _n=(lam, nk.real.copy()),
+        _k=(lam, nk.imag.copy()),
+    )
+
+
+def handover_weight(layers: int, handover: tuple[int, int] = HANDOVER_LAYERS) -> float:
+    """Weight of the last layer-resolved set at ``layers`` (1 up to a, 0 from b on)."""
+    a, b = handover
+    return float(np.clip((b - layers) / (b - a), 0.0, 1.0))
+
+
 def _tmd(name: str) -> Material:
-    by_layers = tuple((n, _ds(name, f"Hsu-{n}L")) for n in (1, 2, 3))
+    a, b = HANDOVER_LAYERS
+    resolved = {n: _ds(name, f"Hsu-{n}L") for n in range(1, a + 1)}
+    bulk_o, bulk_e = _ds(name, "Munkhbat-o"), _ds(name, "Munkhbat-e")
+    last = resolved[a]
+    by_layers = list(resolved.items())
+    by_layers_e = []
+    for n in range(a + 1, b):
+        w = handover_weight(n)
+        by_layers.append((n, _blend(last, bulk_o, w, f"blend:{last.ident}+{bulk_o.ident}@{n}L")))
+        by_layers_e.append((n, _blend(last, bulk_e, w, f"blend:{last.ident}+{bulk_e.ident}@{n}L")))
     alternatives = tuple(
         (_ds(name, o), None if e is None else _ds(name, e)) for o, e in _BULK_ALTERNATIVES[name]
     )
     return Material(
         bulk_alternatives=alternatives,
         name=name,
-        ordinary=_ds(name, "Munkhbat-o"),
-        by_layers=by_layers,
-        extraordinary=_ds(name, "Munkhbat-e"),
+        ordinary=bulk_o,
+        by_layers=tuple(by_layers),
+        by_layers_extraordinary=tuple(by_layers_e),
+        handover_layers=HANDOVER_LAYERS,
+        extraordinary=bulk_e,
         layer_spacing_nm=LAYER_SPACING_NM[name],
-        note="1-3 layers: Hsu et al. 2019 (in-plane, used for both directions); "
-        "4 layers and more: Munkhbat et al. 2022 ordinary and extraordinary, extraordinary k "
-        "taken as 0; layer spacing value from memory",
+        note=f"1-{a} layers: Hsu et al. 2019 layer-resolved n,k (in-plane, used for both "
+        f"directions); {a + 1}-{b - 1} layers: blended linearly in N from Hsu et al. 2019 ({a}L) "
+        f"to Munkhbat et al. 2022; {b} layers and more: Munkhbat et al. 2022 ordinary and "
+        "extraordinary, extraordinary k taken as 0; layer spacing value from memory",
     )
 
 

@@ -94,5 +94,62 @@ def main() -> None:
     print(f"  contrast range: {table.contrast.min():.3f} .. {table.contrast.max():.3f}")
 
 
+def bench_layers_csv(n_rows: int = 10_000) -> None:
+    """``flakebook layers --csv``: 10,000 rows against one row, through the command itself
+    (sRGB, oxide 285 +- 3 nm). Every row is computed at once, so the extra cost of 10,000 rows
+    must stay below 3 s; printed with the ratio of the two runs (same machine, same run)."""
+    import contextlib
+    import io
+    import tempfile
+    from pathlib import Path
+
+    from flakebook.cli import main as cli_main
+
+    rng = np.random.default_rng(3)
+    with tempfile.TemporaryDirectory() as tmp:
+        paths = {}
+        for n in (1, n_rows):
+            lines = [
+                "id,contrast_r,contrast_err_r,contrast_g,contrast_err_g,contrast_b,contrast_err_b"
+            ]
+            for i in range(n):
+                r, g, b = rng.uniform([0.3, -0.4, -0.3], [1.0, 0.6, -0.05])
+                lines.append(f"F{i},{r:.4f},0.01,{g:.4f},0.015,{b:.4f},0.02")
+            paths[n] = Path(tmp) / f"rows{n}.csv"
+            paths[n].write_text("\n".join(lines) + "\n")
+        argv = [
+            "layers",
+            "--material",
+            "MoSe2",
+            "--oxide-nm",
+            "285",
+            "--oxide-err-nm",
+            "3",
+            "--channels",
+            "srgb",
+            "--format",
+            "json",
+            "--csv",
+        ]
+
+        def run(n: int) -> float:
+            t0 = time.perf_counter()
+            with (
+                contextlib.redirect_stdout(io.StringIO()),
+                contextlib.redirect_stderr(io.StringIO()),
+            ):
+                assert cli_main([*argv, str(paths[n])]) == 0
+            return time.perf_counter() - t0
+
+        run(1)  # model tables built once (cached), as in a session
+        one = float(np.median([run(1) for _ in range(3)]))
+        many = run(n_rows)
+        again = run(n_rows)
+    print(f"layers --csv: 1 row {one:.3f} s, {n_rows} rows {many:.2f} s (again: {again:.2f} s)")
+    print(f"  extra cost of {n_rows} rows: {many - one:.2f} s (target <= 3 s)")
+    print(f"  ratio {n_rows} rows / 1 row: {many / one:.0f}x")
+
+
 if __name__ == "__main__":
     main()
+    bench_layers_csv()

