@@ -382,6 +382,13 @@ def survey_image(
             "the oxide thickness, material or dark offset may be off; give --oxide-err-nm or "
             "calibrate the sample before trusting these layer numbers"
         )
+    exact_oxide = sum(any("taken as exactly" in w for w in r.warnings) for r in out_regions)
+    if exact_oxide and not any("fit no layer number" in w for w in warnings):
+        warnings.append(
+            f"the oxide thickness is taken as exact, and {exact_oxide} of {len(out_regions)} "
+            "regions' layer numbers hang on it more than their errors allow: give --oxide-err-nm "
+            "or calibrate the sample before trusting these layer numbers"
+        )
     report(1.0, "done")
     from flakebook import __version__
 
