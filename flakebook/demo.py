@@ -557,7 +557,13 @@ def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptan
         n = demo.layers
         t_m = n * spacing * 1e-9
         a = absorptance(
-            mat, n, LASER_NM, _substrate(), geometry="suspended", hole=_hole(), na_objective=RAMAN_NA
+            mat,
+            n,
+            LASER_NM,
+            _substrate(),
+            geometry="suspended",
+            hole=_hole(),
+            na_objective=RAMAN_NA,
         ).absorptance_flake
         geom = geometry_factor_closed_form(radius_um, BEAM_RADIUS_UM)
         r_m = geom / (2 * math.pi * kappa_true * t_m)

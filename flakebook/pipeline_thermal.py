@@ -435,9 +435,7 @@ def import_series(
             )
         if progress is not None:
             progress(0.7, "fitting the series")
-        result = analyse_series(
-            project, flake, mode=mode, max_power_mw=max_power_mw, cancel=cancel
-        )
+        result = analyse_series(project, flake, mode=mode, max_power_mw=max_power_mw, cancel=cancel)
     return series, result
 
 
@@ -455,7 +453,6 @@ def check_signs(chi_t_cm1_per_k: float, chi_p_cm1_per_mw: float) -> None:
                 f"{name} {v:+.4g} cm^-1/{unit} is not negative, but the A1g (and E2g) modes "
                 "soften on heating; accepted: a negative coefficient (check the sign and the series)"
             )
-
 
 
 @dataclass(frozen=True)
@@ -627,9 +624,7 @@ def kappa_inputs(
     spectra_ids = [
         p["spectrum_id"] for s in coeff.details.get("series", {}).values() for p in s["points"]
     ]
-    powers = [
-        p["x"] for p in coeff.details.get("series", {}).get("power", {}).get("points", [])
-    ]
+    powers = [p["x"] for p in coeff.details.get("series", {}).get("power", {}).get("points", [])]
     cov = coeff.details.get("covariance")
     corr = 0.0
     if cov and coeff.chi_t_err_cm1_per_k and coeff.chi_p_err_cm1_per_mw:

@@ -13,18 +13,38 @@ from flakebook.errors import InputError
 
 
 def _add_model_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--weighting", choices=("intensity", "confocal"), default="intensity",
-                   help="how the Raman signal weights the temperature (default intensity)")
-    p.add_argument("--interface-conductance-w-m2k", type=float, default=None,
-                   help="the flake goes on over the supported region with this conductance")
+    p.add_argument(
+        "--weighting",
+        choices=("intensity", "confocal"),
+        default="intensity",
+        help="how the Raman signal weights the temperature (default intensity)",
+    )
+    p.add_argument(
+        "--interface-conductance-w-m2k",
+        type=float,
+        default=None,
+        help="the flake goes on over the supported region with this conductance",
+    )
     p.add_argument("--interface-conductance-err-w-m2k", type=float, default=0.0)
-    p.add_argument("--kappa-alpha", type=float, default=0.0,
-                   help="kappa(T) = kappa_0 (T_0/T)^alpha (default 0: constant)")
-    p.add_argument("--beam-offset-um", type=float, default=0.0,
-                   help="distance of the beam from the hole centre, um")
+    p.add_argument(
+        "--kappa-alpha",
+        type=float,
+        default=0.0,
+        help="kappa(T) = kappa_0 (T_0/T)^alpha (default 0: constant)",
+    )
+    p.add_argument(
+        "--beam-offset-um",
+        type=float,
+        default=0.0,
+        help="distance of the beam from the hole centre, um",
+    )
     p.add_argument("--draws", type=int, default=10_000, help="Monte Carlo draws (default 10000)")
-    p.add_argument("--na-objective", type=float, default=None,
-                   help="the Raman objective's NA (absorptance over its cone)")
+    p.add_argument(
+        "--na-objective",
+        type=float,
+        default=None,
+        help="the Raman objective's NA (absorptance over its cone)",
+    )
     p.add_argument("--hole-depth-err-nm", type=float, default=None)
     _common.add_format_option(p)  # fmt: skip
 
