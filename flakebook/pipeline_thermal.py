@@ -652,6 +652,7 @@ def kappa_inputs(
         "laser_nm": float(laser),
         "na_objective": na_abs,
         "layers": layers,
+        "layers_given": layers if layers_given else None,
         "layer_posterior": None if posterior is None else posterior.tolist(),
         "layer_spacing_nm": float(material.layer_spacing_nm),
         "powers_mw": powers,
@@ -738,7 +739,7 @@ def kappa_fields(inputs: dict, result) -> dict:
         "source": HEAT_MODEL_SOURCE,
         "parameters": {
             "options": inputs["options"],
-            "layers_given": inputs.get("layers") if inputs.get("layer_posterior") is None else None,
+            "layers_given": inputs.get("layers_given"),
         },
         "inputs": refs,
         "details": {
