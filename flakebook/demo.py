@@ -70,9 +70,10 @@ FLAKES: tuple[DemoFlake, ...] = (
 
 # Flakes that go through thermometry (suspended over a hole), with an invented "true" kappa
 # used to draw their power series.
-THERMOMETRY = {"K7S-01": 42.0, "K7S-03": 31.0, "K7S-06": 36.0}
+THERMOMETRY = {"K7S-01": 33.0, "K7S-03": 24.0, "K7S-06": 28.0}
 CHI_T_CM1_PER_K = -0.0108  # invented A1g temperature coefficient for the drawn series
 BEAM_RADIUS_UM = 0.42
+RAMAN_NA = 0.8  # the 50x objective the Raman spot is focused with (that of the hole images)
 
 
 def _clock() -> Callable[[], _dt.datetime]:
@@ -331,31 +332,6 @@ def _write_spectrum(path: Path, x: np.ndarray, y: np.ndarray, unit: str) -> None
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
 
 
-def _fit_peak_centre(x: np.ndarray, y: np.ndarray, lo: float, hi: float) -> tuple[float, float]:
-    """Centre and its standard error of one Lorentzian on a linear background in [lo, hi]."""
-    from scipy.optimize import curve_fit
-
-    sel = (x >= lo) & (x <= hi)
-    xs, ys = x[sel], y[sel]
-
-    def model(x, x0, fwhm, h, a, b):
-        return _lorentz(x, x0, fwhm, h) + a + b * (x - lo)
-
-    p0 = [xs[np.argmax(ys)], 4.0, ys.max() - ys.min(), ys.min(), 0.0]
-    sigma = np.sqrt(np.maximum(ys, 1.0))
-    p, cov = curve_fit(model, xs, ys, p0=p0, sigma=sigma, absolute_sigma=True, maxfev=20000)
-    return float(p[0]), float(math.sqrt(cov[0, 0]))
-
-
-def _slope(x: np.ndarray, y: np.ndarray, yerr: np.ndarray) -> tuple[float, float]:
-    """Weighted straight-line slope and its standard error."""
-    w = 1.0 / yerr**2
-    a = np.column_stack([np.ones_like(x), x])
-    cov = np.linalg.inv(a.T @ (a * w[:, None]))
-    coef = cov @ (a.T @ (w * y))
-    return float(coef[1]), float(math.sqrt(cov[1, 1]))
-
-
 # ---- the project ---------------------------------------------------------------------------
 
 
@@ -474,9 +450,9 @@ def build_demo(
         _add_thermometry(project, folder, flakes, rng, mat, spacing, absorptance)
         project.add_external_result(
             flakes["K7S-03"],
-            kappa_w_mk=29.5,
-            kappa_p16_w_mk=24.0,
-            kappa_p84_w_mk=35.5,
+            kappa_w_mk=25.5,
+            kappa_p16_w_mk=21.0,
+            kappa_p84_w_mk=30.5,
             method="finite-element heat model with interface conductance (colleague's analysis)",
             note="sent back after the hand-off; includes the supported region",
             source_file="handoff-results.csv",
@@ -541,21 +517,10 @@ def _add_spectra(project, folder: Path, flakes, rng) -> None:
         )  # fmt: skip
 
 
-EULER_GAMMA = 0.5772156649015329
-
-
-def disk_geometry_factor(hole_radius_um: float, beam_radius_um: float) -> float:
-    """2 pi kappa t R_m for a suspended disk of radius R with its edge at the sink, heated by
-    a Gaussian beam of 1/e^2 radius W, the temperature read as the intensity-weighted mean:
-    ln(R/W) + gamma/2 (REFERENCES.md; better than 1e-6 for R/W >= 5)."""
-    return math.log(hole_radius_um / beam_radius_um) + EULER_GAMMA / 2
-
-
 def _draw_series(project, folder: Path, flake, series, n, rng, steps, *, shift, name, power_mw,
-                 temperature_k) -> tuple[float, float]:  # fmt: skip
+                 temperature_k) -> None:  # fmt: skip
     """Draw, write and store one Raman spectrum per step of a series (the A1g shifted by
-    ``shift(step)``); returns the weighted slope of the fitted A1g centre against the steps."""
-    centres, errs = [], []
+    ``shift(step)``); the program analyses them afterwards (flakebook.pipeline_thermal)."""
     for k, step in enumerate(steps):
         x, y = raman_spectrum(n, rng, a1g_shift_cm1=shift(step))
         file = name(k, step)
@@ -565,22 +530,22 @@ def _draw_series(project, folder: Path, flake, series, n, rng, steps, *, shift, 
             power_mw=power_mw(step), stage_temperature_k=temperature_k(step), integration_s=60.0,
             series_id=series.id, source_path=f"spectra/{file}", metadata={"step": k},
         )  # fmt: skip
-        c, e = _fit_peak_centre(x, y, 225.0, 262.0)
-        centres.append(c)
-        errs.append(e)
-    return _slope(steps, np.array(centres), np.array(errs))
 
 
 def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptance) -> None:
-    """Temperature and power series of the suspended flakes, and a first kappa estimate.
+    """Temperature and power series of the suspended flakes, analysed by the program.
 
-    The power series are drawn from the Gaussian-beam disk result (:func:`disk_geometry_factor`:
-    the intensity-weighted temperature rise R_m = [ln(R/W) + gamma/2] / (2 pi kappa t) per
-    absorbed watt) with an invented kappa; the estimate inverts the same formula from fitted A1g
-    centres.
+    The power series are drawn from the Gaussian-beam disk result (the intensity-weighted
+    temperature rise R_m = G / (2 pi kappa t) per absorbed watt, G from
+    :func:`flakebook.thermal.model.geometry_factor_closed_form`) with an invented kappa; the
+    analysis (mode fits, chi_T and chi_P, absorptance for the hole, Monte Carlo kappa) is the
+    program's own, through :mod:`flakebook.pipeline_thermal`.
     """
+    from flakebook.pipeline_thermal import ModelOptions, analyse_series, flake_kappa
+    from flakebook.thermal.model import geometry_factor_closed_form
+
     beam = project.add_beam_profile(
-        "100x", LASER_NM, BEAM_RADIUS_UM, radius_err_um=0.03, method="knife-edge scan",
+        "50x", LASER_NM, BEAM_RADIUS_UM, radius_err_um=0.03, method="knife-edge scan",
         notes="demo: invented spot",
     )  # fmt: skip
     radius_um = HOLE_DIAMETER_UM / 2
@@ -592,22 +557,28 @@ def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptan
         n = demo.layers
         t_m = n * spacing * 1e-9
         a = absorptance(
-            mat, n, LASER_NM, _substrate(), geometry="suspended", hole=_hole(), na_objective=0.5
+            mat,
+            n,
+            LASER_NM,
+            _substrate(),
+            geometry="suspended",
+            hole=_hole(),
+            na_objective=RAMAN_NA,
         ).absorptance_flake
-        geom = disk_geometry_factor(radius_um, BEAM_RADIUS_UM)
+        geom = geometry_factor_closed_form(radius_um, BEAM_RADIUS_UM)
         r_m = geom / (2 * math.pi * kappa_true * t_m)
         chi_p_true = CHI_T_CM1_PER_K * a * r_m * 1e-3  # cm^-1 per mW incident
 
         ts = project.add_thermometry_series(
             flake, "temperature", laser_nm=LASER_NM, mode="A1g", beam_profile_id=beam.id,
-            hole_id=hole_id, notes="stage heated in a nitrogen-flushed cell; 0.05 mW probe",
+            hole_id=hole_id, notes="stage heated in a nitrogen-flushed cell; 0.01 mW probe",
         )  # fmt: skip
         temps = np.array([295.0, 315.0, 335.0, 355.0, 375.0])
-        chi_t, chi_t_err = _draw_series(
+        _draw_series(
             project, folder, flake, ts, n, rng, temps,
             shift=lambda temp: CHI_T_CM1_PER_K * (temp - 295.0),
             name=lambda k, temp, label=label: f"{label}_T{int(temp)}K.csv",
-            power_mw=lambda temp: 0.05,
+            power_mw=lambda temp: 0.01,
             temperature_k=float,
         )  # fmt: skip
 
@@ -615,37 +586,13 @@ def _add_thermometry(project, folder: Path, flakes, rng, mat, spacing, absorptan
             flake, "power", laser_nm=LASER_NM, mode="A1g", beam_profile_id=beam.id,
             hole_id=hole_id, notes="power ramped up then down at 295 K",
         )  # fmt: skip
-        powers = np.array([0.1, 0.2, 0.3, 0.4, 0.5, 0.4, 0.2])
-        chi_p, chi_p_err = _draw_series(
+        powers = np.array([0.01, 0.02, 0.03, 0.04, 0.05, 0.04, 0.02])
+        _draw_series(
             project, folder, flake, ps, n, rng, powers,
             shift=lambda p, chi=chi_p_true: chi * p,
-            name=lambda k, p, label=label: f"{label}_P{k:02d}_{int(round(p * 1000))}uW.csv",
+            name=lambda k, p, label=label: f"{label}_P{k:02d}_{round(p * 1000)}uW.csv",
             power_mw=float,
             temperature_k=lambda p: 295.0,
         )  # fmt: skip
-
-        kappa = chi_t * a * geom / (2 * math.pi * t_m * chi_p * 1e3)
-        rel = math.hypot(chi_t_err / chi_t, chi_p_err / chi_p)
-        project.add_thermometry_result(
-            flake,
-            layers=n,
-            thickness_nm=n * spacing,
-            layer_spacing_nm=spacing,
-            kappa_w_mk=kappa,
-            kappa_median_w_mk=kappa,
-            kappa_p16_w_mk=kappa * math.exp(-rel),
-            kappa_p84_w_mk=kappa * math.exp(rel),
-            chi_t_cm1_per_k=chi_t,
-            chi_t_err_cm1_per_k=chi_t_err,
-            chi_p_cm1_per_mw=chi_p,
-            chi_p_err_cm1_per_mw=chi_p_err,
-            absorptance=a,
-            method="gaussian-disk closed form (first estimate; chi_T and chi_P errors only)",
-            inputs=[ts, ps, beam],
-            details={
-                "hole_radius_um": radius_um,
-                "beam_radius_um": BEAM_RADIUS_UM,
-                "weighting": "intensity",
-                "source": "Gaussian-beam disk conduction, intensity-weighted mean temperature",
-            },
-        )
+        analyse_series(project, flake)
+        flake_kappa(project, flake, ModelOptions(draws=4000))

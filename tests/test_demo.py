@@ -89,10 +89,3 @@ def test_demo_has_every_kind_of_record(fresh):
         counts = p.info()["counts"]
     for kind, n in counts.items():
         assert n > 0, f"the demo has no {kind} records"
-
-
-def test_disk_geometry_factor_against_the_published_check_value():
-    """Radial conduction in a disk with a Gaussian source, intensity-weighted temperature:
-    2 pi kappa t R_m = ln(R/W) + gamma/2; check value 1.89805 for R = 2.5 um, W = 0.5 um
-    (REFERENCES.md, standard result; cf. Cai et al., Nano Lett. 10, 1645 (2010))."""
-    assert demo.disk_geometry_factor(2.5, 0.5) == pytest.approx(1.89805, abs=1e-5)

@@ -35,16 +35,16 @@ def parse_show(text: str | None) -> tuple[str, str | None]:
     """A registered view's name (``image``, ``catalogue``, ...) | ``flake:ID`` -> (view, argument)."""
     from flakebook.gui.views import NAMES
 
-    accepted = ", ".join(sorted([*NAMES, "flake:ID"]))
+    accepted = ", ".join(sorted([*(n for n in NAMES if n != "thermal"), "flake:ID", "thermal:ID"]))
     if not text:
         return "image", None
     view, _, arg = text.partition(":")
     view = view.strip().lower()
-    if view == "flake" and arg.strip():
-        return "flake", arg.strip()
+    if view in ("flake", "thermal") and arg.strip():
+        return view, arg.strip()
     if view in NAMES and not arg:
         return view, None
-    if view in ("spectra", "thermal"):
+    if view == "spectra":
         raise InputError(
             f"--show {text}: the {view} view is not in this version; accepted: {accepted}"
         )
@@ -122,11 +122,11 @@ def run(
 
 def show_view(window, view: str, arg: str | None) -> None:
     """Put the window in the state ``--show`` names: a view in front, or a flake selected."""
-    if view == "flake":
+    if view in ("flake", "thermal") and arg:
         if window.session is None:
-            raise InputError("--show flake:ID needs a project")
+            raise InputError(f"--show {view}:ID needs a project")
         flake = window.session.project.find_flake(arg)
-        window.select_flake(flake.id, centre=True)
-        window.show_view("image")
+        window.select_flake(flake.id, centre=view == "flake")
+        window.show_view("image" if view == "flake" else "thermal")
     else:
         window.show_view(view)

@@ -98,8 +98,8 @@ class CatalogueQueries:
             r[0]: r[1:]
             for r in self._db.execute(
                 "SELECT flake_id, kappa_w_mk, kappa_p16_w_mk, kappa_p84_w_mk, thickness_nm "
-                "FROM thermometry_results WHERE id IN "
-                "(SELECT MAX(id) FROM thermometry_results GROUP BY flake_id)"
+                "FROM thermometry_results WHERE id IN (SELECT MAX(id) FROM "
+                "thermometry_results WHERE kappa_w_mk IS NOT NULL GROUP BY flake_id)"
             )
         }
         external = {

@@ -8,6 +8,7 @@ The CSV's columns are ``flake_id, kappa_w_mk, kappa_p16_w_mk, kappa_p84_w_mk, me
 from __future__ import annotations
 
 import csv
+import math
 import os
 from collections.abc import Iterable
 from pathlib import Path
@@ -60,12 +61,18 @@ class Handoff:
                         }
                         for link, hole in self.holes_covered_by(flake)
                     ],
+                    "thickness_nm": None
+                    if asg is None or layer_spacing_nm(sample.material) is None
+                    else round(asg.layers * layer_spacing_nm(sample.material), 6),
+                    "thermometry": _thermometry_summary(self, series, results),
                     "spectra": [record_to_dict(s) for s in self.spectra_of(flake)],
                     "thermometry_series": [record_to_dict(s) for s in series],
                     "thermometry_results": [record_to_dict(r) for r in results],
                 }
             )
         return {
+            "format": "flakebook-handoff",
+            "format_version": 1,
             "flakebook_version": flakebook.__version__,
             "project": self._path.name,
             "flakes": out,
@@ -101,13 +108,91 @@ class Handoff:
             if k is not None and ((lo is not None and lo > k) or (hi is not None and hi < k)):
                 raise InputError(
                     f"{csv_file} line {lineno}: kappa_p16_w_mk <= kappa_w_mk <= kappa_p84_w_mk "
-                    "does not hold; nothing was imported"
+                    f"does not hold ({lo}, {k}, {hi}); accepted: an ordered interval; nothing "
+                    "was imported"
                 )
             pending.append(rec)
         with self.transaction():
             return [self.add(rec) for rec in pending]
 
 
+def _thermometry_summary(project, series, results) -> dict[str, Any]:
+    """What an outside heat-transport analysis needs, from the stored records: the absorptance
+    at the laser line (with its error), the beam radius W, and each series' fitted mode centres
+    with their stage temperatures or powers and acquisition metadata."""
+    kappa = [r for r in results if r.kappa_w_mk is not None]
+    coeff = [r for r in results if r.kappa_w_mk is None and r.details.get("series")]
+    out: dict[str, Any] = {
+        "laser_nm": None,
+        "absorptance": None,
+        "absorptance_err": None,
+        "beam_radius_um": None,
+        "beam_radius_err_um": None,
+        "beam_method": None,
+        "chi_t_cm1_per_k": None,
+        "chi_t_err_cm1_per_k": None,
+        "chi_p_cm1_per_mw": None,
+        "chi_p_err_cm1_per_mw": None,
+        "chi_covariance": None,
+        "series": [],
+    }
+    if kappa:
+        k = kappa[-1]
+        inp = k.details.get("inputs", {})
+        out.update(
+            laser_nm=inp.get("laser_nm"),
+            absorptance=k.absorptance,
+            absorptance_err=k.absorptance_err,
+            beam_radius_um=inp.get("beam_radius_um"),
+            beam_radius_err_um=inp.get("beam_radius_err_um"),
+            beam_method=inp.get("beam_method"),
+        )
+    if coeff:
+        c = coeff[-1]
+        out.update(
+            chi_t_cm1_per_k=c.chi_t_cm1_per_k,
+            chi_t_err_cm1_per_k=c.chi_t_err_cm1_per_k,
+            chi_p_cm1_per_mw=c.chi_p_cm1_per_mw,
+            chi_p_err_cm1_per_mw=c.chi_p_err_cm1_per_mw,
+            chi_covariance=c.details.get("covariance"),
+        )
+        fitted = c.details["series"]
+    else:
+        fitted = {}
+    for s in series:
+        spectra = project.spectra_of_series(s)
+        by_id = {}
+        f = fitted.get(s.kind)
+        if f is not None and f.get("series_id") == s.id:
+            by_id = {p["spectrum_id"]: p for p in f["points"]}
+        out["series"].append(
+            {
+                "series_id": s.id,
+                "kind": s.kind,
+                "mode": (f or {}).get("mode") or s.mode,
+                "laser_nm": s.laser_nm,
+                "notes": s.notes,
+                "points": [
+                    {
+                        "spectrum_id": sp.id,
+                        "stage_temperature_k": sp.stage_temperature_k,
+                        "power_mw": sp.power_mw,
+                        "integration_s": sp.integration_s,
+                        "source_path": sp.source_path,
+                        "metadata": dict(sp.metadata),
+                        "center_cm1": by_id.get(sp.id, {}).get("center_cm1"),
+                        "center_err_cm1": by_id.get(sp.id, {}).get("center_err_cm1"),
+                        "fwhm_cm1": by_id.get(sp.id, {}).get("fwhm_cm1"),
+                    }
+                    for sp in spectra
+                ],
+            }
+        )
+    return out
+
+
+#: Above this a "thermal conductivity" is a mistake (diamond is about 2e3 W/mK).
+KAPPA_LIMIT_W_MK = 1e4
 _HANDOFF_COLUMNS = ("flake_id", "kappa_w_mk", "kappa_p16_w_mk", "kappa_p84_w_mk", "method", "note")
 
 
@@ -144,12 +229,19 @@ def _read_handoff_csv(path: Path) -> list[tuple[int, dict[str, Any]]]:
                 parsed[col] = None
                 continue
             try:
-                parsed[col] = float(cell)
+                value = float(cell)
             except ValueError:
                 raise InputError(
                     f"{path} line {lineno}: {col} {cell!r} is not a number (W/mK); "
                     "nothing was imported"
                 ) from None
+            if not (math.isfinite(value) and 0 < value < KAPPA_LIMIT_W_MK):
+                raise InputError(
+                    f"{path} line {lineno}: {col} {cell} is not a thermal conductivity; accepted: "
+                    f"a finite number above 0 and below {KAPPA_LIMIT_W_MK:g} W/mK; nothing was "
+                    "imported"
+                )
+            parsed[col] = value
         out.append((lineno, parsed))
     if not out:
         raise InputError(f"{path} has no result rows; {accepted}")

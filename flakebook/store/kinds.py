@@ -114,6 +114,13 @@ class RecordKinds:
                     stale=rec.stale or outdated(self._db, rec.inputs),
                 )
         if isinstance(rec, Assignment) and old is None:
+            # a new layer number makes the flake's results computed from an assignment stale
+            self._db.execute(
+                "UPDATE thermometry_results SET stale = 1 WHERE flake_id = ? AND stale = 0 AND "
+                "id IN (SELECT derived_id FROM dependencies WHERE derived_kind = ? AND "
+                "input_kind = ?)",
+                (rec.flake_id, "thermometry_result", "assignment"),
+            )
             rec = dataclasses.replace(
                 rec, who=rec.who or self._user, assigned_at=rec.assigned_at or self.now()
             )

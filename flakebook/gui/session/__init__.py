@@ -28,11 +28,12 @@ from flakebook.gui.session.images import (
 )
 from flakebook.gui.session.reads import Reads
 from flakebook.gui.session.records import Records
+from flakebook.gui.session.thermal import Thermal
 from flakebook.gui.tools import SESSION_PARTS
 from flakebook.pipeline import COMBINED_METHOD, CONTRAST_METHOD
 
 
-class Session(*SESSION_PARTS, Reads, Images, Records, Analysis, SessionBase):
+class Session(*SESSION_PARTS, Reads, Images, Records, Thermal, Analysis, SessionBase):
     """One open project as the window sees it (the concerns above in one object)."""
 
 

@@ -10,7 +10,9 @@ A view module defines:
   ``window.catalogue``), the View-menu action and the widget's class (made with the window as
   its parent);
 - ``connect(window, widget) -> None``: its signals to the window's commands (after every view and
-  dock is made).
+  dock is made);
+- optionally ``follow(window, widget) -> None``: redraw for the window's project and selected
+  flake (called after every refresh and selection).
 """
 
 from __future__ import annotations
@@ -36,7 +38,7 @@ class View:
 
 
 #: Every view, in the order of the tabs.
-NAMES = ("image", "catalogue")
+NAMES = ("image", "catalogue", "thermal", "kappa")
 
 
 def module(name: str) -> ModuleType:

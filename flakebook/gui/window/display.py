@@ -39,6 +39,7 @@ class Display:
         self.browser.select_flake(self.current_flake)
         self.candidates.set_candidates(s.candidates(self.candidates.target_layers()), s.thumbnail)
         self._start_thumbnails()
+        self.follow_views()
 
     def refresh_holes(self) -> None:
         """After a hole edit: the holes drawn, the catalogue (coverage) and the inspector."""
@@ -144,6 +145,16 @@ class Display:
         self.browser.select_flake(flake_id)
         self.catalogue.select_flake(flake_id)
         self._show_inspector()
+        self.follow_views()
+
+    def follow_views(self) -> None:
+        """Let the views that follow the project and the selection redraw (``follow``)."""
+        from flakebook.gui import views
+
+        for name in views.NAMES:
+            follow = getattr(views.module(name), "follow", None)
+            if follow is not None:
+                self._guard(lambda f=follow, n=name: f(self, self.views[n]), "Show")
 
     def open_candidate(self, flake_id: int) -> None:
         self.select_flake(flake_id, centre=True)

@@ -1,0 +1,317 @@
+"""The thermometry view of one membrane: omega(T) and omega(P) with their fits and residuals, the
+absorptance for its hole, kappa with its interval and variance shares, and the heat-model
+settings (recomputed in a worker, undoable). The laser-safety caution stays visible.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6.QtCore import Signal
+from PySide6.QtWidgets import (
+    QComboBox,
+    QDoubleSpinBox,
+    QFileDialog,
+    QFormLayout,
+    QGridLayout,
+    QHBoxLayout,
+    QLabel,
+    QMessageBox,
+    QPushButton,
+    QVBoxLayout,
+    QWidget,
+)
+
+from flakebook.gui.views import View
+from flakebook.gui.worker import Job
+from flakebook.pipeline_thermal import DEFAULT_MAX_POWER_MW, LASER_SAFETY, ModelOptions
+
+_AXES = {"temperature": ("stage temperature", "K"), "power": ("power at the sample", "mW")}
+
+
+class ThermalView(QWidget):
+    """One membrane's thermometry; ``show_flake(details)`` with the session's thermal details."""
+
+    importRequested = Signal(str)  # kind
+    recomputeRequested = Signal()
+
+    def __init__(self, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.setObjectName("thermalView")
+        self.details: dict | None = None
+        self.caution = QLabel(LASER_SAFETY, self)
+        self.caution.setObjectName("laserCaution")
+        self.caution.setWordWrap(True)
+        self.caution.setStyleSheet("font-weight: bold; padding: 4px;")
+        self.title = QLabel("No flake selected", self)
+        self.plots, self.residuals = {}, {}
+        grid = QGridLayout()
+        for col, kind in enumerate(("temperature", "power")):
+            name, unit = _AXES[kind]
+            plot = pg.PlotWidget(self)
+            plot.setLabel("left", "mode centre (cm⁻¹)")
+            plot.setLabel("bottom", f"{name} ({unit})")
+            res = pg.PlotWidget(self)
+            res.setMaximumHeight(130)
+            res.setLabel("left", "residual (cm⁻¹)")
+            res.setXLink(plot)
+            self.plots[kind], self.residuals[kind] = plot, res
+            grid.addWidget(plot, 0, col)
+            grid.addWidget(res, 1, col)
+        self.chi = QLabel(self)
+        self.chi.setObjectName("chiLabel")
+        self.absorptance = QLabel(self)
+        self.absorptance.setObjectName("absorptanceLabel")
+        self.kappa = QLabel(self)
+        self.kappa.setObjectName("kappaLabel")
+        self.warnings = QLabel(self)
+        self.warnings.setWordWrap(True)
+        self.shares = pg.PlotWidget(self)
+        self.shares.setMaximumHeight(110)
+        self.shares.setLabel("bottom", "share of var(ln κ)")
+        self.shares.hideAxis("left")
+
+        self.weighting = QComboBox(self)
+        self.weighting.setObjectName("weighting")
+        self.weighting.addItems(["intensity", "confocal"])
+        self.conductance = QDoubleSpinBox(self)
+        self.conductance.setObjectName("interfaceConductance")
+        self.conductance.setRange(0.0, 1e9)
+        self.conductance.setDecimals(0)
+        self.conductance.setSpecialValueText("none (edge at the sink)")
+        self.conductance.setSuffix(" W/m²K")
+        self.alpha = QDoubleSpinBox(self)
+        self.alpha.setObjectName("kappaAlpha")
+        self.alpha.setRange(0.0, 3.0)
+        self.alpha.setSingleStep(0.1)
+        self.max_power = QDoubleSpinBox(self)
+        self.max_power.setObjectName("maxPower")
+        self.max_power.setRange(0.001, 100.0)
+        self.max_power.setDecimals(3)
+        self.max_power.setValue(DEFAULT_MAX_POWER_MW)
+        self.max_power.setSuffix(" mW")
+        self.max_power.setToolTip("A power step above this asks for confirmation: it can "
+                                  "destroy a membrane")  # fmt: skip
+        self.recompute = QPushButton("Recompute κ", self)
+        self.recompute.setObjectName("recomputeKappa")
+        self.recompute.clicked.connect(self.recomputeRequested)
+        self.import_t = QPushButton("Import temperature series…", self)
+        self.import_t.clicked.connect(lambda: self.importRequested.emit("temperature"))
+        self.import_p = QPushButton("Import power series…", self)
+        self.import_p.clicked.connect(lambda: self.importRequested.emit("power"))
+        form = QFormLayout()
+        form.addRow("Weighting", self.weighting)
+        form.addRow("Supported region, g", self.conductance)
+        form.addRow("κ(T) exponent α", self.alpha)
+        form.addRow("Power limit", self.max_power)
+        side = QVBoxLayout()
+        side.addLayout(form)
+        side.addWidget(self.recompute)
+        side.addWidget(self.import_t)
+        side.addWidget(self.import_p)
+        side.addWidget(self.chi)
+        side.addWidget(self.absorptance)
+        side.addWidget(self.kappa)
+        side.addWidget(self.shares)
+        side.addStretch(1)
+        body = QHBoxLayout()
+        body.addLayout(grid, 3)
+        body.addLayout(side, 1)
+        lay = QVBoxLayout(self)
+        lay.addWidget(self.caution)
+        lay.addWidget(self.title)
+        lay.addLayout(body, 1)
+        lay.addWidget(self.warnings)
+
+    def options(self) -> ModelOptions:
+        """The heat-model settings as chosen."""
+        g = self.conductance.value()
+        return ModelOptions(
+            weighting=self.weighting.currentText(),
+            interface_conductance_w_m2k=g if g > 0 else None,
+            kappa_alpha=self.alpha.value(),
+            draws=4000,
+        )
+
+    def show_flake(self, details: dict | None) -> None:
+        self.details = details
+        for kind in self.plots:
+            self.plots[kind].clear()
+            self.residuals[kind].clear()
+        self.shares.clear()
+        if details is None:
+            self.title.setText("No flake selected")
+            for w in (self.chi, self.absorptance, self.kappa, self.warnings):
+                w.setText("")
+            return
+        self.title.setText(f"<b>{details['label']}</b> ({details['material']}): Raman thermometry")
+        for kind, s in details["series"].items():
+            self._plot_series(kind, s)
+        c = details.get("coefficients")
+        if c is None:
+            self.chi.setText("No series yet: import a temperature and a power series.")
+        else:
+            parts = []
+            if c["chi_t_cm1_per_k"] is not None:
+                parts.append(f"χ_T = {c['chi_t_cm1_per_k']:.4f} ± {c['chi_t_err_cm1_per_k']:.4f} "
+                             "cm⁻¹/K")  # fmt: skip
+            if c["chi_p_cm1_per_mw"] is not None:
+                parts.append(f"χ_P = {c['chi_p_cm1_per_mw']:.3g} ± {c['chi_p_err_cm1_per_mw']:.2g}"
+                             " cm⁻¹/mW")  # fmt: skip
+            self.chi.setText("\n".join(parts))
+        k = details.get("kappa")
+        warns = list(c["warnings"]) if c else []
+        if k is None:
+            self.kappa.setText("κ: not computed yet")
+            self.absorptance.setText("")
+        else:
+            stale = " (stale)" if k["stale"] else ""
+            self.kappa.setText(
+                f"<b>κ = {k['kappa_w_mk']:.3g} W/mK</b> (16–84%: {k['kappa_p16_w_mk']:.3g}–"
+                f"{k['kappa_p84_w_mk']:.3g}){stale}"
+            )
+            where = k.get("hole_bottom") or "?"
+            depth = f", {k['hole_depth_nm']:g} nm deep" if k.get("hole_depth_nm") else ""
+            self.absorptance.setText(
+                f"Absorptance at {k.get('laser_nm') or 0:g} nm over its hole ({where} bottom"
+                f"{depth}): {k['absorptance']:.3f} ± {k['absorptance_err'] or 0:.3f}"
+                " (thin-film model)"
+            )
+            shares = k["variance_share"]
+            names = [n for n, v in shares.items() if v > 0]
+            left = 0.0
+            for i, n in enumerate(names):
+                v = shares[n]
+                color = pg.intColor(i, hues=max(len(names), 1))
+                self.shares.addItem(pg.BarGraphItem(x0=[left], y=[0], width=[v], height=0.8,
+                                                    brush=color))  # fmt: skip
+                if v > 0.06:
+                    t = pg.TextItem(n, anchor=(0.5, 0.5))
+                    t.setPos(left + v / 2, 0)
+                    self.shares.addItem(t)
+                left += v
+            self.shares.setToolTip(", ".join(f"{n} {shares[n]:.0%}" for n in names))
+            warns = list(k["warnings"])
+            opts = k.get("options") or {}
+            self._set_options(opts)
+        self.warnings.setText("\n".join(f"• {w}" for w in warns[:6]))
+
+    def _set_options(self, opts: dict) -> None:
+        for w in (self.weighting, self.conductance, self.alpha):
+            w.blockSignals(True)
+        self.weighting.setCurrentText(opts.get("weighting", "intensity"))
+        self.conductance.setValue(opts.get("interface_conductance_w_m2k") or 0.0)
+        self.alpha.setValue(opts.get("kappa_alpha", 0.0))
+        for w in (self.weighting, self.conductance, self.alpha):
+            w.blockSignals(False)
+
+    def _plot_series(self, kind: str, s: dict) -> None:
+        pts = s["points"]
+        x = np.array([p["x"] for p in pts])
+        y = np.array([p["center_cm1"] for p in pts])
+        e = np.array([p["center_err_cm1"] for p in pts])
+        fit = s["fit"]
+        plot, res = self.plots[kind], self.residuals[kind]
+        top = int(np.argmax(x))
+        down = np.arange(x.size) > top  # taken on the way back down (hysteresis check)
+        plot.addItem(pg.ErrorBarItem(x=x, y=y, top=e, bottom=e))
+        plot.plot(x[~down], y[~down], pen=None, symbol="o", symbolBrush="w")
+        if down.any():
+            plot.plot(x[down], y[down], pen=None, symbol="t", symbolBrush="r",
+                      name="on the way down")  # fmt: skip
+        xs = np.linspace(x.min(), x.max(), 50)
+        plot.plot(xs, fit["intercept"] + fit["slope"] * xs, pen=pg.mkPen("y", width=2))
+        if any("does not come back" in w for w in fit["warnings"]):
+            t = pg.TextItem("does not come back on the way down", color="r", anchor=(0, 1))
+            t.setPos(float(x.min()), float(y.min()))
+            plot.addItem(t)
+        r = y - (fit["intercept"] + fit["slope"] * x)
+        res.addItem(pg.ErrorBarItem(x=x, y=r, top=e, bottom=e))
+        res.plot(x, r, pen=None, symbol="o", symbolSize=6)
+        res.addLine(y=0)
+
+    def confirm_power(self, powers: list[float]) -> bool:
+        """Ask before importing a power series with a step above the limit."""
+        limit = self.max_power.value()
+        high = [p for p in powers if p > limit]
+        if not high:
+            return True
+        answer = QMessageBox.question(
+            self,
+            "Power above the limit",
+            f"{len(high)} step(s) of this power series exceed {limit:g} mW at the sample "
+            f"(highest {max(high):g} mW). Such a power can destroy a membrane. Import anyway?\n\n"
+            + LASER_SAFETY,
+        )
+        return answer == QMessageBox.StandardButton.Yes
+
+
+VIEW = View(
+    "Thermometry",
+    "thermal",
+    "Ctrl+3",
+    "&Thermometry",
+    "showThermal",
+    "Show the thermometry of the selected membrane",
+    ThermalView,
+)
+
+
+def follow(window, view: ThermalView) -> None:
+    """Show the window's selected flake."""
+    s = window.session
+    if s is None or window.current_flake is None or not s.has_flake(window.current_flake):
+        view.show_flake(None)
+        return
+    view.show_flake(s.thermal_details(window.current_flake))
+
+
+def import_series(window, view: ThermalView, kind: str, path: str | None = None) -> None:
+    """Import a series onto the selected flake (undoable); a power above the limit asks first."""
+    from flakebook.errors import InputError
+
+    s = window._need_session(write=True)
+    fid = window.current_flake
+    if fid is None:
+        raise InputError("No flake is selected; select a membrane first.")
+    if path is None:
+        path, _ = QFileDialog.getOpenFileName(view, f"{kind} series table", "", "CSV (*.csv)")
+        if not path:
+            return
+    if kind == "power" and not view.confirm_power(s.series_powers(path)):
+        return
+    limit = view.max_power.value()
+    window.edit(f"Import {kind} series",
+                lambda: s.import_series(fid, kind, path, max_power_mw=limit))  # fmt: skip
+
+
+def recompute_kappa(window, view: ThermalView) -> Job | None:
+    """Recompute kappa of the selected flake with the view's settings in a worker; storing it
+    is an undoable edit."""
+    from flakebook.errors import InputError
+
+    s = window._need_session(write=True)
+    fid = window.current_flake
+    if fid is None:
+        raise InputError("No flake is selected; select a membrane first.")
+    run = s.kappa_job(fid, view.options())
+
+    def done(out):
+        inputs, result = out
+        window._guard(lambda: window.edit("Recompute κ", lambda: s.store_kappa(inputs, result)),
+                      "Recompute κ")  # fmt: skip
+
+    return window.jobs.start(
+        Job("κ", run), done, lambda exc: window.report_error(exc, "Recompute κ")
+    )
+
+
+def connect(window, view: ThermalView) -> None:
+    """Imports and recomputes from the view; the model settings recompute when changed."""
+    guard = window._guard
+    view.importRequested.connect(lambda k: guard(lambda: import_series(window, view, k), "Import"))
+    view.recomputeRequested.connect(lambda: guard(lambda: recompute_kappa(window, view), "κ"))
+    for sig in (view.weighting.currentTextChanged, view.conductance.editingFinished,
+                view.alpha.editingFinished):  # fmt: skip
+        sig.connect(lambda *_: view.details and view.details.get("kappa") and guard(
+            lambda: recompute_kappa(window, view), "κ"))  # fmt: skip

@@ -1,0 +1,140 @@
+"""Series import, kappa from a flake's records, hand-off checks and the command line's refusals.
+
+The series are invented (drawn Lorentzians with Poisson noise); the checks compare with the
+drawing parameters and with the published disk result 2 pi kappa t R_m = ln(R/W) + gamma/2
+(REFERENCES.md, radial conduction with a Gaussian source; Cai et al., Nano Lett. 10, 1645 (2010)).
+"""
+
+from __future__ import annotations
+
+import math
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from flakebook import pipeline_thermal as pt
+from flakebook.errors import InputError
+from flakebook.store import Project
+
+CHI_T, CHI_P = -0.011, -4.0  # drawn coefficients (invented)
+
+
+def _write(path, x, y):
+    path.write_text("\n".join(f"{a:.4f},{b:.0f}" for a, b in zip(x, y)) + "\n", encoding="utf-8")
+
+
+def _series(folder, kind, values, shift, seed):
+    rng = np.random.default_rng(seed)
+    folder.mkdir()
+    rows = ["file," + ("stage_temperature_k" if kind == "temperature" else "power_mw")]
+    for k, v in enumerate(values):
+        x = np.linspace(200.0, 300.0, 500)
+        y = 60 + 2000 / (1 + ((x - 241.5 - shift(v)) / 2.1) ** 2)
+        name = f"s{k:02d}.csv"
+        _write(folder / name, x, rng.poisson(y).astype(float))
+        rows.append(f"{name},{v}")
+    (folder / "series.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    return folder
+
+
+@pytest.fixture
+def project(tmp_path):
+    p = Project.create(tmp_path / "t.flakebook")
+    s = p.add_sample("Z1", "MoSe2", oxide_nm=285.0, hole_pattern={
+        "bottom": "au", "diameter_um": 5.0, "depth_nm": 250.0})  # fmt: skip
+    import cv2
+
+    cv2.imwrite(str(tmp_path / "m.png"), np.full((100, 100, 3), 128, np.uint8))
+    img = p.add_image(s, tmp_path / "m.png", pixel_size_um=0.1, na_objective=0.8)
+    f = p.add_flake(s, "Z1-001")
+    h = p.add_hole(img, (50.0, 50.0), 25.0, radius_um=2.5, radius_err_um=0.02)
+    p.link_flake_hole(f, h, covered_fraction=1.0, fully_covered=True, margin_um=2.0)
+    p.assign(f, 3, reason="known from the shear mode")
+    p.add_beam_profile("50x", 532.0, 0.5, radius_err_um=0.02, method="edge scan")
+    yield p, tmp_path
+    p.close()
+
+
+def test_series_import_recovers_coefficients_and_kappa_matches_disk_formula(project):
+    p, tmp = project
+    temps = [295.0, 315.0, 335.0, 355.0, 375.0]
+    pt.import_series(p, "Z1-001", "temperature",
+                     _series(tmp / "t", "temperature", temps, lambda v: CHI_T * (v - 295), 1))  # fmt: skip
+    powers = [0.05, 0.1, 0.15, 0.2, 0.25, 0.2, 0.1]
+    _, coeff = pt.import_series(p, "Z1-001", "power",
+                                _series(tmp / "p", "power", powers, lambda v: CHI_P * v, 2),
+                                max_power_mw=0.2)  # fmt: skip
+    assert coeff.chi_t_cm1_per_k == pytest.approx(CHI_T, abs=3 * coeff.chi_t_err_cm1_per_k + 1e-4)
+    assert coeff.chi_p_cm1_per_mw == pytest.approx(CHI_P, abs=3 * coeff.chi_p_err_cm1_per_mw + 0.05)
+    assert any("above the power limit" in w for w in coeff.details["warnings"])
+    result, rec = pt.flake_kappa(p, "Z1-001", pt.ModelOptions(draws=500))
+    t_m = 3 * 0.646e-9
+    r_meas = coeff.chi_p_cm1_per_mw * 1e3 / (rec.absorptance * coeff.chi_t_cm1_per_k)
+    g = math.log(2.5 / 0.5) + 0.5772156649015329 / 2
+    assert rec.kappa_w_mk == pytest.approx(g / (2 * math.pi * t_m * r_meas), rel=1e-3)
+    assert rec.kappa_p16_w_mk <= rec.kappa_median_w_mk <= rec.kappa_p84_w_mk
+    assert not rec.stale
+    # a new layer number makes the result stale; recompute brings it back with the new N
+    p.assign(p.find_flake("Z1-001"), 2, reason="second look")
+    assert p.get("thermometry_result", rec.id).stale
+    p.recompute_stale()
+    again = p.get("thermometry_result", rec.id)
+    assert not again.stale and again.layers == 2
+
+
+def test_one_point_series_and_missing_column_are_refused(project, tmp_path):
+    p, tmp = project
+    one = _series(tmp / "one", "temperature", [295.0], lambda v: 0.0, 3)
+    with pytest.raises(InputError, match="gives no slope"):
+        pt.import_series(p, "Z1-001", "temperature", one)
+    with pytest.raises(InputError, match="power_mw"):
+        pt.import_series(p, "Z1-001", "power", one / "series.csv")
+    assert p.thermometry_of(p.find_flake("Z1-001")) == ([], [])
+
+
+def test_handoff_rows_checked_with_their_line(project):
+    p, tmp = project
+    head = "flake_id,kappa_w_mk,kappa_p16_w_mk,kappa_p84_w_mk,method,note\n"
+    for body, what in (("Z1-001,2e4,,,x,\n", "below 10000"), ("Z1-001,-3,,,x,\n", "above 0"),
+                       ("Z1-001,30,35,40,x,\n", "ordered"), ("Z1-001,nan,,,x,\n", "finite")):  # fmt: skip
+        f = tmp / "r.csv"
+        f.write_text(head + "Z1-001,30,25,35,m,\n" + body, encoding="utf-8")
+        with pytest.raises(InputError, match="line 3") as exc:
+            p.import_external_results(f)
+        assert what in str(exc.value)
+    assert p.external_results_of(p.find_flake("Z1-001")) == []
+
+
+@pytest.mark.parametrize(
+    "extra, says",
+    [
+        (["--chi-t-cm1-per-k", "0.0056"], "chi_T"),
+        (["--chi-p-cm1-per-mw", "2.9"], "chi_P"),
+        (["--absorptance", "1.5"], "(0, 1)"),
+        (["--beam-radius-um", "3"], "W < R"),
+    ],
+)
+def test_cli_refuses_bad_inputs_in_three_lines(extra, says):
+    """Exit 2 with a short message (INTERFACE.md exit codes)."""
+    args = {"--chi-t-cm1-per-k": "-0.0056", "--chi-p-cm1-per-mw": "-2.9", "--absorptance": "0.1",
+            "--hole-radius-um": "2.5", "--beam-radius-um": "0.5"}  # fmt: skip
+    args.update(dict(zip(extra[::2], extra[1::2])))
+    cmd = [sys.executable, "-m", "flakebook", "kappa", "--material", "MoSe2", "--layers", "3"]
+    cmd += [x for kv in args.items() for x in kv]
+    run = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    assert run.returncode == 2
+    lines = [ln for ln in run.stderr.splitlines() if not ln.startswith("warning")]
+    assert 1 <= len(lines) <= 3 and says in run.stderr
+
+
+def test_cli_worked_example():
+    """REFERENCES.md worked example: kappa = 30.1 W/m/K."""
+    cmd = [sys.executable, "-m", "flakebook", "kappa", "--material", "MoSe2", "--layers", "3",
+           "--chi-t-cm1-per-k", "-0.0056", "--chi-p-cm1-per-mw", "-2.9", "--absorptance", "0.10",
+           "--hole-radius-um", "2.5", "--beam-radius-um", "0.5", "--format", "json"]  # fmt: skip
+    run = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    import json
+
+    assert json.loads(run.stdout)["kappa_w_mk"] == pytest.approx(30.1, abs=0.05)
