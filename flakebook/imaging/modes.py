@@ -1,0 +1,66 @@
+"""Terrace classes within a flake: mean-shift modes of its contrast vectors.
+
+The contrast vectors of a flake's interior are binned, the bins' weighted points shifted to the
+modes of their density (flat kernel of radius one bandwidth), and modes closer than half a
+bandwidth merged; each mode is a candidate terrace class.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def mean_shift_modes(points: np.ndarray, weights: np.ndarray, iters: int = 40) -> np.ndarray:
+    """Flat-kernel (radius 1) mean shift of weighted points; returns (mode per point, modes)."""
+    pts = points.astype(np.float64)
+    p2 = (pts**2).sum(1)
+    wp = weights[:, None] * pts
+    x = pts.copy()
+    active = np.ones(len(x), bool)
+    for _ in range(iters):
+        xa = x[active]
+        d2 = (xa**2).sum(1)[:, None] + p2[None, :] - 2.0 * xa @ pts.T
+        k = (d2 <= 1.0).astype(np.float64)
+        new = (k @ wp) / np.maximum(k @ weights, 1e-12)[:, None]
+        moved = np.abs(new - xa).max(axis=1)
+        x[active] = new
+        idx = np.nonzero(active)[0]
+        active[idx[moved < 1e-3]] = False
+        if not active.any():
+            break
+    # Merge converged positions closer than half the bandwidth, densest first.
+    d2 = (x**2).sum(1)[:, None] + p2[None, :] - 2.0 * x @ pts.T
+    dens = (d2 <= 1.0) @ weights
+    order = np.argsort(-dens)
+    centres = np.zeros((0, pts.shape[1]))
+    label = np.empty(len(x), int)
+    for i in order:
+        if len(centres):
+            dd = ((centres - x[i]) ** 2).sum(1)
+            j = int(np.argmin(dd))
+            if dd[j] <= 0.25:
+                label[i] = j
+                continue
+        centres = np.vstack([centres, x[i]])
+        label[i] = len(centres) - 1
+    return label, centres
+
+
+def terrace_labels(
+    cvec: np.ndarray, bandwidth: np.ndarray, max_points: int = 1200
+) -> tuple[np.ndarray, np.ndarray]:
+    """Cluster contrast vectors ([n, ch]) by mean shift; returns (label per vector, centres)."""
+    z = cvec / bandwidth
+    q = 2.5
+    for _ in range(6):
+        key = np.floor(z * q).astype(np.int64)
+        uniq, inv, counts = np.unique(key, axis=0, return_inverse=True, return_counts=True)
+        if len(uniq) <= max_points:
+            break
+        q /= 1.6
+    inv = inv.ravel()
+    pts = np.zeros((len(uniq), z.shape[1]))
+    np.add.at(pts, inv, z)
+    pts /= counts[:, None]
+    lab, centres = mean_shift_modes(pts, counts.astype(np.float64))
+    return lab[inv], centres * bandwidth
