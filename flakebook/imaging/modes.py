@@ -64,3 +64,34 @@ def terrace_labels(
     pts /= counts[:, None]
     lab, centres = mean_shift_modes(pts, counts.astype(np.float64))
     return lab[inv], centres * bandwidth
+
+
+def nearest_class(z: np.ndarray, table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The nearest row of ``table`` ([k, ch]) to each vector of ``z`` ([n, ch]) in squared
+    Euclidean distance (the first on a tie), and that distance; (int32 [n], [n]).
+
+    Channel by channel on contiguous rows, in place: no [n, k, ch] array is made.
+    """
+    zt = np.ascontiguousarray(np.asarray(z).T)
+    n = zt.shape[1]
+    lab = np.zeros(n, np.int32)
+    d = np.empty(n, zt.dtype)
+    t = np.empty(n, zt.dtype)
+    best = None
+    for k in range(len(table)):
+        c = table[k]
+        np.subtract(zt[0], c[0], out=d)
+        np.multiply(d, d, out=d)
+        for j in range(1, zt.shape[0]):
+            np.subtract(zt[j], c[j], out=t)
+            np.multiply(t, t, out=t)
+            d += t
+        if best is None:
+            best = d.copy()
+            continue
+        closer = d < best
+        np.copyto(best, d, where=closer)
+        lab[closer] = k
+    if best is None:
+        best = np.full(n, np.inf, zt.dtype)
+    return lab, best

@@ -16,6 +16,7 @@ from flakebook.imaging._grid import outline
 from flakebook.imaging.background import Background
 from flakebook.imaging.contrast import contrast_image
 from flakebook.imaging.io import Micrograph
+from flakebook.imaging.modes import nearest_class
 
 
 def flake_outline(
@@ -74,19 +75,17 @@ def flake_outline(
         y0, y1 = max(by0, int(y - r - win)), min(by1, int(y + r + win) + 1)
         if x1 - x0 < 4 or y1 - y0 < 4:
             continue
+        ok = allowed[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] > 0
+        if not ok.any():
+            continue  # no part of the flake here: the window keeps the coarse mask's zeros
         c = contrast_image(bg.correct(image, slice(y0, y1), slice(x0, x1)), level)
         c = cv2.GaussianBlur(c, (0, 0), 1.0)
         if c.ndim == 2:
             c = c[:, :, None]
-        z = c * inv_bw
-        best = np.full(z.shape[:2], np.inf, np.float32)
-        lab = np.zeros(z.shape[:2], np.int16)
-        for k in range(len(cz)):
-            d2 = ((z - cz[k]) ** 2).sum(-1)
-            closer = d2 < best
-            best[closer] = d2[closer]
-            lab[closer] = k
-        sub = (lab >= n_off) & (allowed[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] > 0)
+        # Only pixels the flake may reach are classed (the others are not flake anyway).
+        lab, _ = nearest_class(c[ok] * inv_bw, cz)
+        sub = np.zeros(ok.shape, bool)
+        sub[ok] = lab >= n_off
         yy, xx = np.ogrid[y0:y1, x0:x1]
         sub = bridge_rims(sub, np.abs(np.hypot(xx - x, yy - y) - r) <= 4.0, 4)
         big[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] = sub

@@ -37,7 +37,7 @@ from flakebook.imaging.contrast import (
     work_gain,
 )
 from flakebook.imaging.io import Micrograph
-from flakebook.imaging.modes import terrace_labels
+from flakebook.imaging.modes import nearest_class, terrace_labels
 from flakebook.imaging.records import Flake, Region, Segmentation
 from flakebook.imaging.rims import bare_hole_pixels, bridge_rims, flake_outline, over_hole
 
@@ -282,16 +282,17 @@ def segment(
         near = cv2.dilate((flab[py0:py1, px0:px1] == comp).astype(np.uint8), grow) > 0
         near &= usable[py0:py1, px0:px1]
         near &= flake_labels[py0:py1, px0:px1] == 0
-        z = cs[py0:py1, px0:px1] / bw
-        cz = np.vstack([np.zeros((1, z.shape[2])), centres / bw])
-        d2 = ((z[:, :, None, :] - cz[None, None, :, :]) ** 2).sum(-1)
-        tl = np.argmin(d2, axis=2).astype(np.int32)
-        tl[~near] = 0
+        # Only the pixels near the component are classed (the rest of its box stays 0).
+        zn = cs[py0:py1, px0:px1][near] / bw
+        cz = np.vstack([np.zeros((1, zn.shape[1])), centres / bw])
+        cls, dmin = nearest_class(zn, cz)
         if bare_c is not None and hole_disks is not None:
             # Over a hole, a pixel nearer to the bare hole's contrast than to every class is
             # bare hole (a flake edge across the hole then lies half-way, as on substrate).
-            db = ((z - (bare_c / bw)) ** 2).sum(-1)
-            tl[(db < d2.min(axis=2)) & (hole_zone[py0:py1, px0:px1] > 0)] = 0
+            db = ((zn - (bare_c / bw)) ** 2).sum(-1)
+            cls[(db < dmin) & (hole_zone[py0:py1, px0:px1][near] > 0)] = 0
+        tl = np.zeros(near.shape, np.int32)
+        tl[near] = cls
         fmask = tl > 0
         if hole_disks is not None:
             fmask = bridge_rims(fmask, hole_zone[py0:py1, px0:px1] > 0, 3)
