@@ -46,6 +46,22 @@ def mean_shift_modes(points: np.ndarray, weights: np.ndarray, iters: int = 40) -
     return label, centres
 
 
+def _unique_rows(key: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``np.unique(key, axis=0, return_inverse=True, return_counts=True)`` for int64 rows, by
+    one packed int64 per row (same order: the first column most significant) when it fits."""
+    lo = key.min(axis=0)
+    span = key.max(axis=0) - lo + 1
+    if len(key) == 0 or float(np.prod(span.astype(np.float64))) >= 2.0**62:
+        return np.unique(key, axis=0, return_inverse=True, return_counts=True)
+    packed = np.zeros(len(key), np.int64)
+    for c in range(key.shape[1]):
+        packed = packed * span[c] + (key[:, c] - lo[c])
+    _, first, inv, counts = np.unique(
+        packed, return_index=True, return_inverse=True, return_counts=True
+    )
+    return key[first], inv, counts
+
+
 def terrace_labels(
     cvec: np.ndarray, bandwidth: np.ndarray, max_points: int = 1200
 ) -> tuple[np.ndarray, np.ndarray]:
@@ -53,14 +69,14 @@ def terrace_labels(
     z = cvec / bandwidth
     q = 2.5
     for _ in range(6):
-        key = np.floor(z * q).astype(np.int64)
-        uniq, inv, counts = np.unique(key, axis=0, return_inverse=True, return_counts=True)
+        uniq, inv, counts = _unique_rows(np.floor(z * q).astype(np.int64))
         if len(uniq) <= max_points:
             break
         q /= 1.6
     inv = inv.ravel()
     pts = np.zeros((len(uniq), z.shape[1]))
-    np.add.at(pts, inv, z)
+    for c in range(z.shape[1]):
+        pts[:, c] = np.bincount(inv, weights=z[:, c], minlength=len(uniq))
     pts /= counts[:, None]
     lab, centres = mean_shift_modes(pts, counts.astype(np.float64))
     return lab[inv], centres * bandwidth
