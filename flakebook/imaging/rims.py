@@ -87,7 +87,10 @@ def flake_outline(
         sub = np.zeros(ok.shape, bool)
         sub[ok] = lab >= n_off
         yy, xx = np.ogrid[y0:y1, x0:x1]
-        sub = bridge_rims(sub, np.abs(np.hypot(xx - x, yy - y) - r) <= 4.0, 4)
+        d = np.hypot(xx - x, yy - y)
+        sub = bridge_rims(sub, np.abs(d - r) <= 4.0, 4)
+        if np.count_nonzero(sub & (d < r - RIM_DEPTH_PX)) < RIM_MIN_PX:
+            sub &= d >= r + 0.5  # the flake only meets the rim (see rim_contacts)
         big[y0 - by0 : y1 - by0, x0 - bx0 : x1 - bx0] = sub
     big = cv2.morphologyEx(big, cv2.MORPH_OPEN, np.ones((3, 3), np.uint8))
     contours, _ = cv2.findContours(big, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
@@ -99,6 +102,41 @@ def flake_outline(
     cmax[:, 0] += bx0
     cmax[:, 1] += by0
     return cmax
+
+
+RIM_DEPTH_PX = 3.0  # full-resolution pixels: a flake reaching no deeper into a hole meets its rim
+RIM_MIN_PX = 3  # pixels that must lie that deep for a flake to count as over a hole
+
+
+def rim_contacts(mask: np.ndarray, x0: int, y0: int, holes: list, f: int = 1) -> np.ndarray:
+    """Pixels of a flake mask that only touch a hole's rim: bool, same shape as ``mask``.
+
+    ``mask`` is a crop whose top-left pixel is (x0, y0) on a grid of factor ``f``; ``holes``
+    are disks (x, y, r) on that grid. A hole's blurred rim mixes the substrate's, the bare
+    hole's and a nearby flake's contrasts, so a flake whose edge runs along the rim seems to
+    reach a pixel or two into the hole. Unless at least ``RIM_MIN_PX`` of its pixels lie more
+    than ``RIM_DEPTH_PX`` full-resolution pixels inside the hole's edge (the flake truly covers
+    part of it), its pixels inside the edge are rim, not flake: a flake edge within that depth
+    of a rim cannot be told from the rim's blur.
+    """
+    out = np.zeros(mask.shape, bool)
+    h, w = mask.shape
+    depth = max(1.0, RIM_DEPTH_PX / f)
+    for x, y, r in holes:
+        cx, cy = x - x0, y - y0
+        i0, i1 = max(0, int(cy - r - 2)), min(h, int(cy + r + 3))
+        j0, j1 = max(0, int(cx - r - 2)), min(w, int(cx + r + 3))
+        if i1 <= i0 or j1 <= j0:
+            continue
+        m = mask[i0:i1, j0:j1]
+        if not m.any():
+            continue
+        yy, xx = np.ogrid[i0:i1, j0:j1]
+        d = np.hypot(xx - cx, yy - cy)
+        if np.count_nonzero(m & (d < r - depth)) >= RIM_MIN_PX:
+            continue
+        out[i0:i1, j0:j1] |= m & (d < r + 0.5)
+    return out
 
 
 def bridge_rims(mask: np.ndarray, rim: np.ndarray, half: int) -> np.ndarray:

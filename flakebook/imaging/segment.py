@@ -39,7 +39,13 @@ from flakebook.imaging.contrast import (
 from flakebook.imaging.io import Micrograph
 from flakebook.imaging.modes import nearest_class, terrace_labels
 from flakebook.imaging.records import Flake, Region, Segmentation
-from flakebook.imaging.rims import bare_hole_pixels, bridge_rims, flake_outline, over_hole
+from flakebook.imaging.rims import (
+    bare_hole_pixels,
+    bridge_rims,
+    flake_outline,
+    over_hole,
+    rim_contacts,
+)
 
 __all__ = [
     "MAX_PIXELS",
@@ -296,6 +302,9 @@ def segment(
         fmask = tl > 0
         if hole_disks is not None:
             fmask = bridge_rims(fmask, hole_zone[py0:py1, px0:px1] > 0, 3)
+            rim_only = rim_contacts(fmask, px0, py0, hole_w, f)
+            fmask &= ~rim_only
+            tl[rim_only] = 0
         if np.count_nonzero(fmask) < min_px_work:
             continue
         fid = len(flakes) + 1
