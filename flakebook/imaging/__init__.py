@@ -9,11 +9,16 @@ Pure numpy/scipy/OpenCV (no Qt, no SQL, no printing). Modules:
   line of known length.
 - ``background``: dark offset (once) and flat field (robust polynomial surface fitted to the bare
   substrate, or a blank reference image).
-- ``segment``: bare substrate (dominant colour), flakes, terraces (mean shift on the contrast
-  vectors), outlines, per-terrace contrast C = 1 - I / I_substrate with a standard error that
-  allows for correlated pixel noise.
-- ``holes``: Hough detection and sub-pixel circle fits, the hole lattice, hidden holes, coverage
-  of holes by flake outlines, editing by hand.
+- ``segment``: bare substrate, flakes and terraces (:func:`~flakebook.imaging.segment.segment`),
+  built from ``contrast`` (dominant-colour substrate, C = 1 - I / I_substrate, correlated-noise
+  errors, region measurement), ``modes`` (terrace classes by mean shift) and ``rims`` (bare
+  holes, suspended parts, hole rims, outlines traced near holes at full resolution).
+- ``holes``: detection by the Hough transform and small round spots, and the entry point for
+  ``hole_fit`` (sub-pixel circle fits), ``lattice`` (the hole lattice, hidden holes) and
+  ``coverage`` (coverage of holes by flake outlines, editing by hand).
+- ``records``: the frozen results (Region, Flake, Segmentation, Hole, Lattice, Coverage).
+- ``terraces``: suspended and supported regions joined into terraces; ``linking``: which known
+  flake a region in another image of the chip is.
 - ``survey``: all of the above plus the layer likelihood of each terrace from
   ``flakebook.optics`` (:func:`~flakebook.imaging.survey.survey_image`).
 

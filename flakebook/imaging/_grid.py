@@ -51,3 +51,22 @@ def to_full(x: np.ndarray | float, f: int) -> np.ndarray | float:
 def to_work(x: np.ndarray | float, f: int) -> np.ndarray | float:
     """Full-resolution coordinate to working-pixel coordinate."""
     return (np.asarray(x, dtype=np.float64) - (f - 1) / 2.0) / f if f != 1 else x
+
+
+def outline(mask: np.ndarray, x0: int, y0: int, f: int) -> np.ndarray:
+    """Largest external contour of a working-resolution crop mask, in full-res pixel coords."""
+    m = np.pad(mask.astype(np.uint8), 1)
+    contours, _ = cv2.findContours(m, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_SIMPLE)
+    if not contours:
+        return np.zeros((0, 2))
+    c = max(contours, key=cv2.contourArea).reshape(-1, 2).astype(np.float64)
+    c -= 1
+    c[:, 0] += x0
+    c[:, 1] += y0
+    return np.column_stack([to_full(c[:, 0], f), to_full(c[:, 1], f)])
+
+
+def full_crop_mask(mask_work: np.ndarray, f: int) -> np.ndarray:
+    if f == 1:
+        return mask_work
+    return np.repeat(np.repeat(mask_work, f, axis=0), f, axis=1)

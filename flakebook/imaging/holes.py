@@ -1,13 +1,10 @@
-"""Holes in the chip: detection, sub-pixel radius, lattice, and coverage by flakes.
+"""Holes in the chip: detection (Hough transform and small round spots) and the entry point
+for everything about holes.
 
-Circular holes are found by the Hough transform on a downsampled image, then each edge is fitted
-at full resolution: intensity profiles along rays from the rough centre, the half-way crossing
-between the inside and outside levels on each ray, and a least-squares (geometric) circle
-through those edge points. The radius's standard error comes from the scatter of the edge points
-about the circle. The hole lattice (square or hexagonal: pitch and angle) is fitted to the
-centres and predicts holes hidden under a flake. Coverage of a hole by a flake outline is the
-exact area of the disk inside the polygon (circle-polygon intersection), whether it is fully
-covered, and the smallest margin from the hole's edge to the flake's edge.
+Circular holes are found by the Hough transform on a downsampled image (small ones as round spots
+on a finer grid), then each edge is fitted at full resolution (``hole_fit``). The lattice
+(``lattice``) and coverage by flake outlines and editing by hand (``coverage``) are re-exported
+here, as are the records (``records``: Hole, Lattice, Coverage).
 
 Coordinates: full-resolution pixels, origin at the top-left pixel's centre (INTERFACE.md).
 """
@@ -15,226 +12,52 @@ Coordinates: full-resolution pixels, origin at the top-left pixel's centre (INTE
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import cv2
 import numpy as np
 
 from flakebook.errors import InputError, check_cancel
 from flakebook.imaging import _grid
+from flakebook.imaging.coverage import (
+    circle_polygon_area,
+    coverage_pairs,
+    edit_holes,
+    hole_coverage,
+    manual_hole,
+    signed_distance,
+)
+from flakebook.imaging.hole_fit import fit_circle, refine_hole
+from flakebook.imaging.lattice import (
+    MAX_LATTICE_RESIDUAL,
+    MIN_LATTICE_HOLES,
+    fit_lattice,
+    lattice_refusal,
+    lattice_sites,
+    predict_hidden_holes,
+)
+from flakebook.imaging.records import Coverage, Hole, Lattice
 
-
-@dataclass(frozen=True)
-class Hole:
-    """One hole.
-
-    Attributes:
-        center_px: (x, y).
-        radius_px: radius in pixels.
-        radius_err_px, center_err_px: standard errors from the edge fit (predicted holes: the
-            lattice residual and the detected holes' radius spread).
-        um_per_px, um_per_px_err: the scale used for the micrometre values.
-        detected: True if seen in the image, False if predicted from the lattice.
-        n_edge_points: edge points used in the fit.
-    """
-
-    center_px: tuple[float, float]
-    radius_px: float
-    radius_err_px: float
-    center_err_px: float
-    um_per_px: float
-    um_per_px_err: float = 0.0
-    detected: bool = True
-    n_edge_points: int = 0
-
-    @property
-    def radius_um(self) -> float:
-        return self.radius_px * self.um_per_px
-
-    @property
-    def radius_err_um(self) -> float:
-        return math.hypot(self.radius_err_px * self.um_per_px, self.radius_px * self.um_per_px_err)
-
-    def to_dict(self) -> dict:
-        return {
-            "center_px": list(self.center_px),
-            "radius_px": self.radius_px,
-            "radius_um": self.radius_um,
-            "radius_err_um": self.radius_err_um,
-            "center_err_px": self.center_err_px,
-            "detected": self.detected,
-        }
-
-
-@dataclass(frozen=True)
-class Lattice:
-    """A hole lattice: positions origin + i a1 + j a2 (pixels)."""
-
-    kind: str  # "square" or "hexagonal"
-    pitch_px: float
-    pitch_err_px: float
-    angle_deg: float  # direction of a1, in [0, 90) (square) or [0, 60) (hexagonal)
-    origin_px: tuple[float, float]
-    a1_px: tuple[float, float]
-    a2_px: tuple[float, float]
-    residual_px: float
-    n_holes: int
-
-    def to_dict(self) -> dict:
-        return {
-            "kind": self.kind,
-            "pitch_px": self.pitch_px,
-            "pitch_err_px": self.pitch_err_px,
-            "angle_deg": self.angle_deg,
-            "origin_px": list(self.origin_px),
-            "residual_px": self.residual_px,
-            "n_holes": self.n_holes,
-        }
-
-
-@dataclass(frozen=True)
-class Coverage:
-    """How a flake outline covers a hole."""
-
-    covered_fraction: float
-    fully_covered: bool
-    margin_px: float  # hole edge to flake edge; negative when the flake edge crosses the hole
-    margin_um: float
-
-    def to_dict(self) -> dict:
-        return {
-            "covered_fraction": self.covered_fraction,
-            "fully_covered": self.fully_covered,
-            "margin_px": self.margin_px,
-            "margin_um": self.margin_um,
-        }
-
-
-# ---- sub-pixel edge fit ----------------------------------------------------------------------
-
-
-def fit_circle(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, np.ndarray]:
-    """Geometric least-squares circle through points; returns (cx, cy, r, residuals)."""
-    x = np.asarray(x, np.float64)
-    y = np.asarray(y, np.float64)
-    # Algebraic (Kasa) start, then Gauss-Newton on the geometric distances.
-    a = np.column_stack([x, y, np.ones_like(x)])
-    b = x**2 + y**2
-    sol = np.linalg.lstsq(a, b, rcond=None)[0]
-    cx, cy = sol[0] / 2, sol[1] / 2
-    r = math.sqrt(max(sol[2] + cx**2 + cy**2, 1e-12))
-    for _ in range(12):
-        dx, dy = x - cx, y - cy
-        d = np.hypot(dx, dy)
-        d = np.maximum(d, 1e-12)
-        res = d - r
-        j = np.column_stack([-dx / d, -dy / d, -np.ones_like(d)])
-        step = np.linalg.lstsq(j, -res, rcond=None)[0]
-        cx, cy, r = cx + step[0], cy + step[1], r + step[2]
-        if np.abs(step).max() < 1e-7:
-            break
-    res = np.hypot(x - cx, y - cy) - r
-    return float(cx), float(cy), float(r), res
-
-
-def refine_hole(
-    gray: np.ndarray,
-    cx: float,
-    cy: float,
-    r: float,
-    *,
-    offset: tuple[int, int] = (0, 0),
-    n_angles: int | None = None,
-    iterations: int = 2,
-    max_rms_px: float = 0.3,
-    max_rms_rel: float = 0.03,
-    min_step: float | None = None,
-    sampler=None,
-) -> tuple[float, float, float, float, float, int] | None:
-    """Sub-pixel centre and radius of a hole from radial intensity profiles.
-
-    Args:
-        gray: 2-D float image (full resolution, or a crop whose top-left pixel is ``offset``
-            (x, y) in the full image).
-        cx, cy, r: rough centre and radius in full-image pixels.
-        n_angles: rays (default: about one per pixel of circumference, 24 to 360).
-        max_rms_px, max_rms_rel: the largest rms scatter of edge points about the circle
-            accepted (pixels, plus a fraction of the radius); rounder shapes only.
-        min_step: the smallest inside-outside level difference accepted.
-        sampler: instead of ``gray``, a function ``(x, y) -> values`` giving the bilinearly
-            interpolated gray level at full-image coordinates (NaN outside the image).
-
-    Returns:
-        (cx, cy, r, center_err, radius_err, n_points) or None when no clear edge is found.
-    """
-    g = None if sampler is not None else np.ascontiguousarray(gray, np.float32)
-    ox, oy = offset
-    zone = 8.0
-    for _ in range(iterations):
-        k = n_angles or int(np.clip(2 * math.pi * r, 24, 96))
-        th = np.linspace(0, 2 * math.pi, k, endpoint=False)
-        step = 0.25 if r < 20 else 0.5
-        # Levels from a few radii well inside and outside; the edge zone finely sampled.
-        rr = np.concatenate(
-            [
-                np.linspace(0.3 * r, 0.55 * r, 4),
-                np.arange(max(0.65 * r, r - zone), min(1.35 * r + 1.0, r + zone + 1.0), step),
-                np.linspace(1.45 * r + 1.0, 1.7 * r + 2.0, 4),
-            ]
-        )
-        if sampler is not None:
-            prof = sampler(cx + np.outer(np.cos(th), rr), cy + np.outer(np.sin(th), rr))
-        else:
-            mx = (cx - ox + np.outer(np.cos(th), rr)).astype(np.float32)
-            my = (cy - oy + np.outer(np.sin(th), rr)).astype(np.float32)
-            prof = cv2.remap(
-                g, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan
-            )
-        inside = np.nanmedian(prof[:, :4])
-        outside = np.nanmedian(prof[:, -4:])
-        if not (np.isfinite(inside) and np.isfinite(outside)):
-            return None
-        mid = 0.5 * (inside + outside)
-        s = np.sign(prof - mid)
-        # Crossing nearest to the rough radius on each ray.
-        cross = (s[:, :-1] * s[:, 1:]) < 0
-        cross &= np.isfinite(prof[:, :-1]) & np.isfinite(prof[:, 1:])
-        if not cross.any():
-            return None
-        dist = np.where(cross, np.abs(rr[:-1] - r), np.inf)
-        j = np.argmin(dist, axis=1)
-        ok = np.isfinite(dist[np.arange(k), j])
-        p0 = prof[np.arange(k), j]
-        p1 = prof[np.arange(k), j + 1]
-        t = (mid - p0) / np.where(p1 != p0, p1 - p0, 1.0)
-        redge = rr[j] + (rr[j + 1] - rr[j]) * np.clip(t, 0, 1)
-        ex = cx + np.cos(th) * redge
-        ey = cy + np.sin(th) * redge
-        ex, ey = ex[ok], ey[ok]
-        if len(ex) < 8:
-            return None
-        ncx, ncy, nr, res = fit_circle(ex, ey)
-        # Leave out rays that a flake edge or dust disturbs.
-        mad = 1.4826 * np.median(np.abs(res - np.median(res)))
-        good = np.abs(res) <= max(3 * mad, 0.15)
-        if np.count_nonzero(good) < 0.7 * k:
-            return None  # too many rays off the circle: not a round hole
-        if not good.all():
-            ncx, ncy, nr, res = fit_circle(ex[good], ey[good])
-        if not (np.isfinite(nr) and nr > 0.5 and math.hypot(ncx - cx, ncy - cy) < 0.5 * r + 2):
-            return None
-        cx, cy, r = ncx, ncy, nr
-        zone = 4.0  # the edge is now known to about a pixel
-    n = len(res)
-    sd = float(np.sqrt(np.sum(res**2) / max(n - 3, 1)))
-    if sd > max_rms_px + max_rms_rel * r:
-        return None  # the edge is not a circle (a flake corner, dust)
-    if min_step is not None and abs(float(inside) - float(outside)) < min_step:
-        return None  # too faint a step between inside and outside
-    return cx, cy, r, sd * math.sqrt(2.0 / n), sd / math.sqrt(n), n
-
-
-# ---- detection -----------------------------------------------------------------------------
+__all__ = [
+    "MAX_LATTICE_RESIDUAL",
+    "MIN_HOLE_RADIUS_PX",
+    "MIN_LATTICE_HOLES",
+    "Coverage",
+    "Hole",
+    "Lattice",
+    "circle_polygon_area",
+    "coverage_pairs",
+    "detect_holes",
+    "edit_holes",
+    "fit_circle",
+    "fit_lattice",
+    "hole_coverage",
+    "lattice_refusal",
+    "lattice_sites",
+    "manual_hole",
+    "predict_hidden_holes",
+    "refine_hole",
+    "signed_distance",
+]
 
 MIN_HOLE_RADIUS_PX = 6.0  # smallest hole radius (full-resolution pixels) the default search finds
 
@@ -527,345 +350,3 @@ def _gray(a: np.ndarray) -> np.ndarray:
     if n > 4:
         return src.mean(axis=2)
     return cv2.transform(src, np.full((1, n), 1.0 / n, np.float32))
-
-
-# ---- lattice -----------------------------------------------------------------------------
-
-
-MIN_LATTICE_HOLES = 6  # fewer holes do not fix a lattice (4 points fit some lattice nearly always)
-MAX_LATTICE_RESIDUAL = 0.05  # largest rms residual accepted, as a fraction of the pitch
-
-
-def fit_lattice(
-    centers_px: np.ndarray,
-    kind: str = "auto",
-    *,
-    min_holes: int = MIN_LATTICE_HOLES,
-    max_residual_rel: float = MAX_LATTICE_RESIDUAL,
-) -> Lattice | None:
-    """Fit a square or hexagonal lattice to hole centres ([n, 2], pixels).
-
-    A lattice predicts holes that nobody has seen, so it is accepted only from at least
-    ``min_holes`` centres whose rms residual (per coordinate) is under ``max_residual_rel`` of
-    the pitch. Returns None otherwise (:func:`lattice_refusal` says why).
-    """
-    lat = _fit_lattice(centers_px, kind)
-    if lat is None or lat.n_holes < min_holes:
-        return None
-    if lat.residual_px > max_residual_rel * lat.pitch_px:
-        return None
-    return lat
-
-
-def lattice_refusal(
-    centers_px: np.ndarray,
-    kind: str = "auto",
-    *,
-    min_holes: int = MIN_LATTICE_HOLES,
-    max_residual_rel: float = MAX_LATTICE_RESIDUAL,
-) -> str | None:
-    """Why :func:`fit_lattice` gives no lattice for these centres (None when it gives one)."""
-    p = np.asarray(centers_px, np.float64).reshape(-1, 2)
-    if len(p) < min_holes:
-        return (
-            f"no hole lattice fitted: {len(p)} holes found, at least {min_holes} are needed, so "
-            "no hidden holes are predicted"
-        )
-    lat = _fit_lattice(p, kind)
-    if lat is None:
-        return "no hole lattice fitted: the holes form no regular pattern"
-    if lat.residual_px > max_residual_rel * lat.pitch_px:
-        return (
-            f"no hole lattice fitted: the holes lie {100 * lat.residual_px / lat.pitch_px:.0f}% "
-            f"of the pitch off the best {lat.kind} lattice (at most "
-            f"{100 * max_residual_rel:.0f}% accepted), so no hidden holes are predicted"
-        )
-    return None
-
-
-def _fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
-    """The best square or hexagonal lattice through the centres, however poor (None with fewer
-    than 4 centres or no neighbour pairs)."""
-    if kind not in ("auto", "square", "hexagonal"):
-        raise InputError(f"lattice kind {kind!r}; accepted: auto, square, hexagonal")
-    p = np.asarray(centers_px, np.float64).reshape(-1, 2)
-    n = len(p)
-    if n < 4:
-        return None
-    from scipy.spatial import cKDTree
-
-    tree = cKDTree(p)
-    d, _ = tree.query(p, k=2)
-    pitch0 = float(np.median(d[:, 1]))
-    if not pitch0 > 0:
-        return None
-    pairs = tree.query_pairs(1.25 * pitch0, output_type="ndarray")
-    if len(pairs) < 3:
-        return None
-    v = p[pairs[:, 1]] - p[pairs[:, 0]]
-    th = np.arctan2(v[:, 1], v[:, 0])
-    r4 = np.abs(np.mean(np.exp(4j * th)))
-    r6 = np.abs(np.mean(np.exp(6j * th)))
-    if kind == "auto":
-        kind = "square" if r4 >= r6 else "hexagonal"
-    k = 4 if kind == "square" else 6
-    ang = float(np.angle(np.mean(np.exp(1j * k * th))) / k) % (2 * math.pi / k)
-    second = ang + (math.pi / 2 if kind == "square" else math.pi / 3)
-    a1 = pitch0 * np.array([math.cos(ang), math.sin(ang)])
-    a2 = pitch0 * np.array([math.cos(second), math.sin(second)])
-    ref = p[np.argmin(((p - p.mean(0)) ** 2).sum(1))]
-    basis = np.column_stack([a1, a2])
-    for _ in range(3):
-        ij = np.linalg.solve(basis, (p - ref).T).T
-        idx = np.round(ij)
-        a = np.column_stack([np.ones(n), idx[:, 0], idx[:, 1]])
-        if np.linalg.matrix_rank(a) < 3:
-            return None  # the holes lie on one line: the second lattice vector is unknown
-        sol, *_ = np.linalg.lstsq(a, p, rcond=None)
-        ref, a1, a2 = sol[0], sol[1], sol[2]
-        basis = np.column_stack([a1, a2])
-    res = p - a @ sol
-    rms = float(np.sqrt(np.sum(res**2) / max(2 * n - 6, 1)))
-    cov = np.linalg.pinv(a.T @ a) * rms**2
-    l1, l2 = float(np.hypot(*a1)), float(np.hypot(*a2))
-    pitch = 0.5 * (l1 + l2)
-    pitch_err = 0.5 * math.sqrt(cov[1, 1] + cov[2, 2])
-    angle = math.degrees(math.atan2(a1[1], a1[0])) % (360.0 / k)
-    return Lattice(
-        kind,
-        pitch,
-        pitch_err,
-        angle,
-        (float(ref[0]), float(ref[1])),
-        (float(a1[0]), float(a1[1])),
-        (float(a2[0]), float(a2[1])),
-        rms,
-        n,
-    )
-
-
-def lattice_sites(lattice: Lattice, shape: tuple[int, int], margin_px: float = 0.0) -> np.ndarray:
-    """Every lattice position inside the image (at least ``margin_px`` from its edges)."""
-    rows, cols = shape
-    o = np.array(lattice.origin_px)
-    basis = np.column_stack([lattice.a1_px, lattice.a2_px])
-    corners = np.array([[0, 0], [cols - 1, 0], [0, rows - 1], [cols - 1, rows - 1]], float)
-    ij = np.linalg.solve(basis, (corners - o).T).T
-    lo = np.floor(ij.min(0)) - 1
-    hi = np.ceil(ij.max(0)) + 1
-    ii, jj = np.meshgrid(np.arange(lo[0], hi[0] + 1), np.arange(lo[1], hi[1] + 1), indexing="ij")
-    pts = o + np.outer(ii.ravel(), lattice.a1_px) + np.outer(jj.ravel(), lattice.a2_px)
-    keep = (
-        (pts[:, 0] >= margin_px)
-        & (pts[:, 0] <= cols - 1 - margin_px)
-        & (pts[:, 1] >= margin_px)
-        & (pts[:, 1] <= rows - 1 - margin_px)
-    )
-    return pts[keep]
-
-
-def predict_hidden_holes(
-    holes: tuple[Hole, ...],
-    lattice: Lattice,
-    shape: tuple[int, int],
-    outlines_px: list[np.ndarray],
-) -> tuple[Hole, ...]:
-    """Lattice sites with no detected hole whose disk lies under one of the outlines."""
-    det = [h for h in holes if h.detected]
-    if not det or not outlines_px:
-        return ()
-    radii = np.array([h.radius_px for h in det])
-    r = float(np.median(radii))
-    r_err = float(1.4826 * np.median(np.abs(radii - r))) if len(radii) > 2 else float(radii.std())
-    sites = lattice_sites(lattice, shape, margin_px=r)
-    dc = np.array([h.center_px for h in det])
-    out = []
-    for s in sites:
-        if np.min(np.hypot(*(dc - s).T)) < 0.5 * lattice.pitch_px:
-            continue
-        for poly in outlines_px:
-            if len(poly) >= 3 and signed_distance(poly, (s[0], s[1])) > -r:
-                out.append(
-                    Hole(
-                        (float(s[0]), float(s[1])),
-                        r,
-                        r_err,
-                        lattice.residual_px,
-                        det[0].um_per_px,
-                        det[0].um_per_px_err,
-                        False,
-                        0,
-                    )
-                )
-                break
-    return tuple(out)
-
-
-# ---- coverage ------------------------------------------------------------------------------
-
-
-def signed_distance(polygon_px: np.ndarray, point: tuple[float, float]) -> float:
-    """Distance from a point to a polygon's boundary, positive inside, negative outside."""
-    p = np.asarray(polygon_px, np.float64).reshape(-1, 2)
-    a = p
-    b = np.roll(p, -1, axis=0)
-    q = np.asarray(point, np.float64)
-    d = b - a
-    L2 = np.maximum((d**2).sum(1), 1e-300)
-    t = np.clip(((q - a) * d).sum(1) / L2, 0, 1)
-    near = a + t[:, None] * d
-    dist = float(np.sqrt(((near - q) ** 2).sum(1)).min())
-    # Even-odd rule.
-    y = q[1]
-    cond = (a[:, 1] > y) != (b[:, 1] > y)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        xc = a[:, 0] + (y - a[:, 1]) * d[:, 0] / d[:, 1]
-    inside = bool(np.count_nonzero(cond & (xc > q[0])) % 2)
-    return dist if inside else -dist
-
-
-def circle_polygon_area(
-    polygon_px: np.ndarray, center: tuple[float, float], radius: float
-) -> float:
-    """Exact area of the intersection of a disk with a simple polygon (either orientation)."""
-    p = np.asarray(polygon_px, np.float64).reshape(-1, 2) - np.asarray(center, np.float64)
-    if len(p) < 3 or radius <= 0:
-        return 0.0
-    a = p
-    b = np.roll(p, -1, axis=0)
-    d = b - a
-    r2 = radius * radius
-    # Intersections of each edge a + t d with the circle.
-    qa = (d**2).sum(1)
-    qb = 2 * (a * d).sum(1)
-    qc = (a**2).sum(1) - r2
-    disc = qb**2 - 4 * qa * qc
-    sq = np.sqrt(np.maximum(disc, 0))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t1 = np.where(disc > 0, (-qb - sq) / (2 * qa), 1.0)
-        t2 = np.where(disc > 0, (-qb + sq) / (2 * qa), 1.0)
-    t1 = np.clip(np.nan_to_num(t1, nan=1.0), 0, 1)
-    t2 = np.clip(np.nan_to_num(t2, nan=1.0), 0, 1)
-    ts = [np.zeros_like(t1), t1, t2, np.ones_like(t1)]
-    total = 0.0
-    for k in range(3):
-        ta, tb = ts[k], ts[k + 1]
-        pa = a + ta[:, None] * d
-        pb = a + tb[:, None] * d
-        mid = a + (0.5 * (ta + tb))[:, None] * d
-        inside = (mid**2).sum(1) <= r2
-        cross = pa[:, 0] * pb[:, 1] - pa[:, 1] * pb[:, 0]
-        dot = (pa * pb).sum(1)
-        tri = 0.5 * cross
-        sector = 0.5 * r2 * np.arctan2(cross, dot)
-        total += float(np.sum(np.where(tb > ta, np.where(inside, tri, sector), 0.0)))
-    return abs(total)
-
-
-def hole_coverage(
-    outline_px: np.ndarray, hole: Hole | tuple[tuple[float, float], float], um_per_px: float
-) -> Coverage:
-    """Covered fraction, full coverage and margin of a hole under a flake outline.
-
-    The margin is the distance from the hole's edge to the nearest point of the flake's edge
-    (pixels and um): positive when the hole lies wholly inside the outline, negative when the
-    flake edge crosses the hole (a straight edge through the centre gives -radius and covers
-    exactly half).
-    """
-    if isinstance(hole, Hole):
-        center, r = hole.center_px, hole.radius_px
-    else:
-        center, r = hole
-    poly = np.asarray(outline_px, np.float64).reshape(-1, 2)
-    if len(poly) < 3:
-        return Coverage(0.0, False, float("nan"), float("nan"))
-    sd = signed_distance(poly, center)
-    margin = sd - r
-    if sd >= r:
-        frac = 1.0  # wholly inside: no edge within the disk
-    elif sd <= -r:
-        frac = 0.0  # wholly outside
-    else:
-        frac = circle_polygon_area(poly, center, r) / (math.pi * r * r)
-        frac = float(min(max(frac, 0.0), 1.0))
-    full = bool(margin >= 0 and frac > 1 - 1e-9)
-    return Coverage(frac, full, margin, margin * um_per_px)
-
-
-# ---- editing by hand and coverage tables -----------------------------------------------------
-
-
-def manual_hole(
-    center_px: tuple[float, float],
-    radius_px: float,
-    *,
-    um_per_px: float,
-    um_per_px_err: float = 0.0,
-    placement_err_px: float = 0.5,
-) -> Hole:
-    """A hole placed by hand (centre and radius in pixels; their uncertainty is how precisely
-    they were placed)."""
-    x, y = (float(v) for v in center_px)
-    r = float(radius_px)
-    if not (math.isfinite(x) and math.isfinite(y) and math.isfinite(r) and r > 0):
-        raise InputError(
-            f"hole at {center_px} with radius {radius_px!r} px; accepted: a finite centre and a "
-            "positive radius"
-        )
-    return Hole((x, y), r, placement_err_px, placement_err_px, um_per_px, um_per_px_err, True, 0)
-
-
-def edit_holes(
-    holes: tuple[Hole, ...],
-    *,
-    add: tuple[Hole, ...] = (),
-    move: dict[int, tuple[float, float]] | None = None,
-    resize: dict[int, float] | None = None,
-    delete: tuple[int, ...] = (),
-) -> tuple[Hole, ...]:
-    """A new tuple of holes with some moved, resized, deleted (by index) and some added.
-
-    Moved or resized holes keep their other values; the input is not changed.
-    """
-    from dataclasses import replace
-
-    n = len(holes)
-    for i in list((move or {}).keys()) + list((resize or {}).keys()) + list(delete):
-        if not (0 <= int(i) < n):
-            raise InputError(f"hole index {i}; accepted: 0 to {n - 1}")
-    out = []
-    for i, h in enumerate(holes):
-        if i in set(delete):
-            continue
-        if move and i in move:
-            x, y = (float(v) for v in move[i])
-            h = replace(h, center_px=(x, y))
-        if resize and i in resize:
-            r = float(resize[i])
-            if not (math.isfinite(r) and r > 0):
-                raise InputError(f"hole radius {resize[i]!r} px; accepted: a positive number")
-            h = replace(h, radius_px=r)
-        out.append(h)
-    return tuple(out) + tuple(add)
-
-
-def coverage_pairs(
-    outlines_px: dict[int, np.ndarray], holes: tuple[Hole, ...], um_per_px: float
-) -> list[tuple[int, int, Coverage]]:
-    """(flake id, hole index, coverage) for every flake outline that covers part of a hole."""
-    out = []
-    for fid, poly in outlines_px.items():
-        poly = np.asarray(poly, np.float64).reshape(-1, 2)
-        if len(poly) < 3:
-            continue
-        x0, y0 = poly.min(0)
-        x1, y1 = poly.max(0)
-        for k, h in enumerate(holes):
-            cx, cy = h.center_px
-            r = h.radius_px
-            if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
-                continue
-            cov = hole_coverage(poly, h, um_per_px)
-            if cov.covered_fraction > 0:
-                out.append((fid, k, cov))
-    return out
