@@ -105,3 +105,15 @@ def test_cli_import_check_catches_hidden_imports(tmp_path):
     files = {b.split(":")[0] for b in bad}
     assert files == {"gui/a.py", "gui/tools/b.py"}, bad
     assert "gui/tools/b.py: flakebook.cli" in bad
+
+
+def test_no_module_is_over_800_lines():
+    """DESIGN.md's habit: a module that grows past about 800 lines is split by concern before
+    new features are added to it (common practice, no source)."""
+    root = Path(flakebook.__file__).parent
+    long = {
+        str(p.relative_to(root)): n
+        for p in root.rglob("*.py")
+        if (n := len(p.read_text(encoding="utf-8").splitlines())) > 800
+    }
+    assert not long, long
