@@ -400,6 +400,17 @@ def analyse_spectrum(
         else:
             fit = fit_peaks(x, corrected, specs, model=peak_model, baseline="linear")
             warnings.extend(fit.warnings)
+            usable = []
+            for p in fit.peaks:
+                if p.component not in (0, 1):
+                    continue
+                if p.found and not (math.isfinite(p.center_err) and p.center_err > 0):
+                    warnings.append(
+                        f"{p.mode}: the fit gives no uncertainty for its centre (it sits at the "
+                        "edge of its window); left out of the evidence"
+                    )
+                    continue
+                usable.append(p)
             features = tuple(
                 Feature(
                     mode=p.mode,
@@ -410,8 +421,7 @@ def analyse_spectrum(
                     area=float(p.area) if p.found else None,
                     snr=float(p.snr),
                 )
-                for p in fit.peaks
-                if p.component in (0, 1)
+                for p in usable
             )
             grid = raman_offset_grid(calibration_err)
             evidence = raman_evidence(
