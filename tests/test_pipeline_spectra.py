@@ -13,8 +13,8 @@ import numpy as np
 import pytest
 
 from flakebook import pipeline
-from flakebook.pipeline_spectra import category
 from flakebook.errors import InputError
+from flakebook.pipeline_spectra import category
 from flakebook.spectra.io import Spectrum
 from flakebook.spectra.rules import load_rule_table
 from flakebook.store import Project, SpectrumFit
