@@ -231,11 +231,14 @@ def attach_spectrum(
     terrace_id: int | None = None,
     spot: tuple[int, float, float] | None = None,
     assign: bool = True,
+    fields: dict | None = None,
 ) -> AttachedSpectrum:
     """Store ``spectrum`` (a flakebook.spectra.io.Spectrum) on ``flake``, fit it, record its
     evidence and recombine the flake's assignment, in one transaction. A Raman spectrum on an
     axis other than cm^-1, nm or eV (absolute wavenumbers) is stored as Raman shift. ``spot``:
-    (image id, x px, y px) where the spectrum was taken."""
+    (image id, x px, y px) where the spectrum was taken; ``fields`` more of the stored
+    spectrum's settings (``power_mw``, ``integration_s``, ``stage_temperature_k``,
+    ``metadata``, ...)."""
     from flakebook.spectra.analyse import raman_axis
     from flakebook.store._util import sha256_file
 
@@ -245,6 +248,7 @@ def attach_spectrum(
     x, unit = np.array(spectrum.x), spectrum.x_unit
     if unit == "wavenumber-cm1":
         x, unit = raman_axis(x, unit, laser), "cm1"
+    extra = dict(fields or {})
     fields = {}
     if source_path is not None:
         path = Path(source_path)
@@ -258,6 +262,8 @@ def attach_spectrum(
         for k, v in dict(spectrum.metadata).items()
         if isinstance(v, str | int | float | bool) or v is None
     }
+    meta.update(extra.pop("metadata", {}) or {})
+    fields.update(extra)
     order = np.argsort(x, kind="stable")
     with project.transaction():
         spec = project.add_spectrum(
