@@ -32,19 +32,20 @@ def _prepare_platform(offscreen: bool) -> None:
 
 
 def parse_show(text: str | None) -> tuple[str, str | None]:
-    """A registered view's name (``image``, ``catalogue``, ...) | ``flake:ID`` -> (view, argument)."""
+    """A registered view's name (``image``, ``catalogue``, ``spectra``, ...) | ``flake:ID`` |
+    ``spectra:ID`` -> (view, argument)."""
     from flakebook.gui.views import NAMES
 
-    accepted = ", ".join(sorted([*NAMES, "flake:ID"]))
+    accepted = ", ".join(sorted([*NAMES, "flake:ID", "spectra:ID"]))
     if not text:
         return "image", None
     view, _, arg = text.partition(":")
     view = view.strip().lower()
-    if view == "flake" and arg.strip():
-        return "flake", arg.strip()
+    if view in ("flake", "spectra") and arg.strip():
+        return view, arg.strip()
     if view in NAMES and not arg:
         return view, None
-    if view in ("spectra", "thermal"):
+    if view == "thermal":
         raise InputError(
             f"--show {text}: the {view} view is not in this version; accepted: {accepted}"
         )
@@ -122,11 +123,13 @@ def run(
 
 def show_view(window, view: str, arg: str | None) -> None:
     """Put the window in the state ``--show`` names: a view in front, or a flake selected."""
-    if view == "flake":
+    if view in ("flake", "spectra") and arg:
         if window.session is None:
-            raise InputError("--show flake:ID needs a project")
+            raise InputError(f"--show {view}:ID needs a project")
         flake = window.session.project.find_flake(arg)
         window.select_flake(flake.id, centre=True)
-        window.show_view("image")
+        window.show_view("image" if view == "flake" else "spectra")
+        if view == "spectra":
+            window.spectra_view.show_flake(window.session, flake.id)
     else:
         window.show_view(view)

@@ -36,7 +36,7 @@ class View:
 
 
 #: Every view, in the order of the tabs.
-NAMES = ("image", "catalogue")
+NAMES = ("image", "catalogue", "spectra")
 
 
 def module(name: str) -> ModuleType:
