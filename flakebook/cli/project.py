@@ -379,13 +379,12 @@ def _show_evidence(args: argparse.Namespace) -> int:
             mark = " (stale)" if e["stale"] else ""
             c = e["contribution"]
             adds = (
-                f", adds {c['information_bits']:.2f} bits"
+                f", adds {max(0.0, c['information_bits']):.2f} bits"
                 if c and c["information_bits"] is not None
                 else ""
             )
-            lines.append(
-                f"  {e['category']}: most likely {e['most_likely']}{adds}{mark}  {e['reason']}"
-            )
+            name = c["name"] if c else e["category"]
+            lines.append(f"  {name}: most likely {e['most_likely']}{adds}{mark}  {e['reason']}")
         combined = payload["combined"]
         if combined is not None:
             for text in combined["conflicts"]:
