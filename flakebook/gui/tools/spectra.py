@@ -14,7 +14,7 @@ from pathlib import Path
 
 from flakebook.errors import InputError
 from flakebook.gui.commands import Undo
-from flakebook.store import Evidence, Spectrum, SpectrumFit
+from flakebook.store import Assignment, Evidence, Spectrum, SpectrumFit
 
 #: File name endings taken as spectra when dropped.
 SPECTRUM_SUFFIXES = (".txt", ".csv", ".tsv", ".dat", ".asc", ".dx", ".jdx", ".jcamp")
@@ -54,11 +54,14 @@ class SessionEdits:
         if not spectra:
             raise InputError("No spectrum to add: drop text, CSV or JCAMP-DX spectrum files.")
         made: list[tuple[type, int]] = []
+        had = {a.id for a in p.assignments_of(fid)}
         with p.transaction():
             for path, spec in spectra:
                 got = attach_spectrum(p, fid, spec, source_path=path, spot=spot)
                 made += [(Evidence, e) for e in got.evidence]
                 made += [(SpectrumFit, got.fit), (Spectrum, got.spectrum)]
+            # an assignment the flake did not have before (it had no evidence) goes with undo
+            made += [(Assignment, a.id) for a in p.assignments_of(fid) if a.id not in had]
         delete = self._undo_made(made)
 
         def undo():
