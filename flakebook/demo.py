@@ -5,7 +5,12 @@ deterministically (fixed seeds, a fixed clock). Everything here is invented for 
 chips "K7-north" and "K7-south", the flake IDs and every value. The micrographs are rendered from
 the thin-film contrast model (flakebook.optics) with noise, vignetting and a dark offset, and then
 surveyed with flakebook.imaging exactly as a user's images would be; the spectra are drawn from
-simple line shapes at plausible positions (the spectra issue will fit them).
+simple line shapes at invented positions and fitted by the program (flakebook.pipeline
+.attach_spectrum) as a user's spectra would be, so every flake's assignment combines its contrast,
+Raman and PL evidence. One flake (K7N-02) lies on an invented polymer residue that makes it look
+one layer thicker: its contrast says 3L, its Raman is ambiguous, and a drawn low-frequency
+spectrum (shear and breathing modes) settles 2L; the conflict is shown and a manual assignment
+records why.
 """
 
 from __future__ import annotations
@@ -50,12 +55,28 @@ class DemoFlake:
     step_layers: int | None = None  # a thicker terrace beyond a step edge, if any
     tags: tuple[str, ...] = ()
     notes: str = ""
+    looks_like: int | None = None  # rendered with this N's contrast (a residue beneath it)
+
+    @property
+    def rendered_layers(self) -> int:
+        """The N whose contrast the micrograph shows."""
+        return self.looks_like or self.layers
 
 
 # Chip coordinates: the K7-south hole lattice has a hole centre at (0, 0), square, pitch 12 um.
 FLAKES: tuple[DemoFlake, ...] = (
     DemoFlake("K7N-01", "K7-north", 1, (-120.0, -60.0), 11.0, 8.0, step_layers=3),
-    DemoFlake("K7N-02", "K7-north", 2, (40.0, -90.0), 9.0, 37.0),
+    DemoFlake(
+        "K7N-02",
+        "K7-north",
+        2,
+        (40.0, -90.0),
+        9.0,
+        37.0,
+        tags=("raman-next",),
+        notes="residue at one edge",
+        looks_like=3,
+    ),
     DemoFlake("K7N-03", "K7-north", 3, (130.0, 20.0), 10.0, 71.0, step_layers=6),
     DemoFlake("K7N-04", "K7-north", 5, (-60.0, 80.0), 9.5, 112.0),
     DemoFlake("K7N-05", "K7-north", 8, (70.0, 95.0), 10.0, 150.0, notes="thick reference flake"),
@@ -225,7 +246,9 @@ def render_view(view: View, flakes: tuple[DemoFlake, ...], rng: np.random.Genera
         if fl.sample != view.sample:
             continue
         poly = flake_polygon_um(fl)
-        cv2.fillPoly(layer_map, [to_ss(poly)], int(fl.layers), lineType=cv2.LINE_8, shift=shift)
+        cv2.fillPoly(
+            layer_map, [to_ss(poly)], int(fl.rendered_layers), lineType=cv2.LINE_8, shift=shift
+        )
         if fl.step_layers:
             n, c = step_line(fl)
             inside = np.array([p for p in _clip_halfplane(poly, n, c)])
@@ -323,6 +346,23 @@ def pl_spectrum(layers: int, rng: np.random.Generator):
         y = 350.0 / layers * np.exp(-0.5 * ((ev - 1.545) / 0.03) ** 2)
         y += 120.0 / layers * np.exp(-0.5 * ((ev - 1.40 + 0.02 * layers) / 0.06) ** 2)
     y += 40.0
+    return x, rng.poisson(y).astype(float)
+
+
+# Invented bulk frequencies of the demo's drawn interlayer modes (cm^-1), the branches of a linear
+# chain: highest shear w cos(pi/2N), lowest breathing w sin(pi/2N).
+DEMO_SHEAR_BULK_CM1 = 24.6
+DEMO_BREATHING_BULK_CM1 = 46.2
+
+
+def low_frequency_spectrum(layers: int, rng: np.random.Generator):
+    """A drawn low-frequency Raman spectrum (x in cm^-1 from the filter edge, counts) with the
+    shear and breathing modes of an N-layer flake (none for 1L)."""
+    x = np.linspace(6.0, 60.0, 720)
+    y = 80.0 + 900.0 * np.exp(-(x - 6.0) / 3.0)  # the edge filter's Rayleigh wing
+    if layers >= 2:
+        y += _lorentz(x, DEMO_SHEAR_BULK_CM1 * math.cos(math.pi / (2 * layers)), 1.4, 420.0)
+        y += _lorentz(x, DEMO_BREATHING_BULK_CM1 * math.sin(math.pi / (2 * layers)), 1.6, 260.0)
     return x, rng.poisson(y).astype(float)
 
 
@@ -446,6 +486,12 @@ def build_demo(
         )
         report(0.7, "spectra")
         _add_spectra(project, folder, flakes, rng)
+        # The Raman/PL rule table calibrated on K7-north's flakes of known N (assigned by hand),
+        # then the spectra of that chip re-read with it.
+        from flakebook.pipeline import calibrate_rules
+
+        calibrate_rules(project, north, laser_nm=LASER_NM)
+        project.recompute_stale()
         report(0.8, "thermometry")
         _add_thermometry(project, folder, flakes, rng, mat, spacing, absorptance)
         project.add_external_result(
@@ -495,26 +541,52 @@ def _store_survey(project, image, view, result, flakes) -> None:
 
 
 def _add_spectra(project, folder: Path, flakes, rng) -> None:
+    """Draw, write and attach each flake's Raman and PL spectra (fitted by the program), the
+    conflict flake's low-frequency spectrum, and the assignment that it settles."""
+    from flakebook.pipeline import attach_spectrum
+    from flakebook.spectra.io import Spectrum
+
+    def attach(flake, name, x, y, unit, kind, polarization="parallel", **fields):
+        _write_spectrum(folder / "spectra" / name, x, y, unit)
+        return attach_spectrum(
+            project,
+            flake,
+            Spectrum(x, y, x_unit="cm1" if unit == "cm-1" else unit, kind=kind),
+            source_path=folder / "spectra" / name,
+            settings={"laser_nm": LASER_NM, "polarization": polarization},
+            fields=fields,
+        )
+
     for f in FLAKES:
         flake = flakes[f.label]
         x, y = raman_spectrum(f.layers, rng)
-        name = f"{f.label}_raman_532.csv"
-        _write_spectrum(folder / "spectra" / name, x, y, "cm-1")
-        project.add_spectrum(
-            flake, x, y, kind="raman", x_unit="cm-1", laser_nm=LASER_NM, power_mw=0.25,
-            polarization="parallel", stage_temperature_k=295.0, integration_s=30.0,
+        attach(
+            flake, f"{f.label}_raman_532.csv", x, y, "cm-1", "raman", power_mw=0.25,
+            stage_temperature_k=295.0, integration_s=30.0,
             metadata={"grating_l_per_mm": 1800, "objective": "100x"},
-            source_path=f"spectra/{name}",
         )  # fmt: skip
         x, y = pl_spectrum(f.layers, rng)
-        name = f"{f.label}_pl_532.csv"
-        _write_spectrum(folder / "spectra" / name, x, y, "nm")
-        project.add_spectrum(
-            flake, x, y, kind="pl", x_unit="nm", laser_nm=LASER_NM, power_mw=0.1,
+        attach(
+            flake, f"{f.label}_pl_532.csv", x, y, "nm", "pl", power_mw=0.1,
             stage_temperature_k=295.0, integration_s=5.0,
             metadata={"grating_l_per_mm": 300, "objective": "100x"},
-            source_path=f"spectra/{name}",
         )  # fmt: skip
+    # The conflict: K7N-02's contrast says 3L (the residue), the low-frequency modes say 2L.
+    x, y = low_frequency_spectrum(2, rng)
+    got = attach(
+        flakes["K7N-02"], "K7N-02_lowfreq_532.csv", x, y, "cm-1", "raman", power_mw=0.5,
+        stage_temperature_k=295.0, integration_s=120.0,
+        metadata={"grating_l_per_mm": 1800, "objective": "100x", "filter": "volume Bragg notch"},
+    )  # fmt: skip
+    fitted = {p["mode"]: p["center_cm1"] for p in got.analysis.peaks() if p["found"]}
+    project.assign(
+        flakes["K7N-02"],
+        2,
+        reason=f"the shear mode at {fitted['shear']:.1f} and the breathing mode at "
+        f"{fitted['breathing']:.1f} cm^-1 are those of a bilayer; the contrast reads 3L because "
+        "of the residue seen at one edge",
+        who="demo",
+    )
 
 
 def _draw_series(project, folder: Path, flake, series, n, rng, steps, *, shift, name, power_mw,

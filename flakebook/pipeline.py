@@ -2,7 +2,9 @@
 
 The desktop program, the command line and the demo all store a micrograph's survey through
 :func:`store_survey` and recompute stale layer evidence through the recomputers registered here,
-so a flake's evidence means the same whichever of them made it. No Qt here.
+so a flake's evidence means the same whichever of them made it. Spectra (fits, Raman/PL/Si-line/AFM
+evidence, the combined assignment of all of a flake's evidence) are recorded by
+:mod:`flakebook.pipeline_spectra`, whose functions are re-exported here. No Qt here.
 """
 
 from __future__ import annotations
@@ -418,19 +420,28 @@ def _recompute_contrast(project: Project, rec: Evidence):
 
 
 def _recompute_combined(project: Project, rec: Assignment):
-    from flakebook.evidence import combine
+    # All the current evidence of the terrace (contrast, Raman, PL, Si line, AFM), combined with
+    # the spectrometer offsets marginalised once (flakebook.pipeline_spectra).
+    from flakebook.pipeline_spectra import recompute_combined
 
-    evidence = [project.get(Evidence, ref.id) for ref in rec.inputs if ref.kind == "evidence"]
-    if not evidence:
-        raise InputError("the assignment names no evidence to combine")
-    post = combine([e.likelihood for e in evidence])
-    return {
-        "layers": int(post.layers),
-        "probability": float(post.probability),
-        "ambiguous_with": tuple(int(n) for n in post.ambiguous_with),
-        "posterior": post.posterior,
-    }
+    return recompute_combined(project, rec)
 
 
 register_recomputer(CONTRAST_METHOD, _recompute_contrast)
 register_recomputer(COMBINED_METHOD, _recompute_combined)
+
+
+# Spectra: fits, their evidence and the combined assignment (their recomputers register on import).
+from flakebook.pipeline_spectra import (  # noqa: E402, F401
+    AttachedSpectrum,
+    add_afm_evidence,
+    add_si_evidence,
+    assign_flake,
+    attach_spectrum,
+    calibrate_rules,
+    detach_spectrum,
+    flake_report,
+    refit,
+    rule_table_for,
+    set_fit_settings,
+)

@@ -67,20 +67,52 @@ def test_regenerating_gives_the_committed_sample_project(fresh):
 
 def test_survey_recovers_rendered_layer_numbers(fresh):
     """The demo's micrographs are rendered from the contrast model with known N; the survey of
-    those images must give every flake's N back as the most likely, with probability above 0.6
+    those images must give every flake's rendered N back as the most likely, with probability above 0.6
     (the published n,k sets disagree beyond 4 layers, so thick flakes stay uncertain; a closed loop through
-    rendering, 8-bit sRGB encoding, noise, vignetting and the dark offset)."""
-    truth = {f.label: f.layers for f in demo.FLAKES}
+    rendering, 8-bit sRGB encoding, noise, vignetting and the dark offset). The contrast evidence
+    of the primary terrace alone is checked (the assignment combines it with the spectra)."""
+    from flakebook.evidence import combine
+    from flakebook.pipeline import CONTRAST_METHOD
+
     with Project.open(fresh / demo.PROJECT_NAME, read_only=True) as p:
-        for label, n in truth.items():
-            flake = p.find_flake(label)
+        for f in demo.FLAKES:
+            flake = p.find_flake(f.label)
             primary = p.primary_terrace_id(flake)
-            computed = [
-                a for a in p.assignments_of(flake) if not a.manual and a.terrace_id == primary
+            contrast = [
+                e
+                for e in p.evidence_of(flake, primary)
+                if e.method == CONTRAST_METHOD and e.parameters.get("objective") == "50x"
             ]
-            assert computed, label
-            assert computed[-1].layers == n, (label, computed[-1])
-            assert computed[-1].probability > 0.6, (label, computed[-1])
+            assert contrast, f.label
+            post = combine([contrast[0].likelihood])
+            assert post.layers == f.rendered_layers, (f.label, post)
+            assert post.probability > 0.6, (f.label, post)
+
+
+def test_spectra_are_fitted_and_combined_with_an_honest_conflict(fresh):
+    """Every flake's assignment combines its contrast, Raman and PL evidence and gives the N
+    the flake was drawn with; the flake on the residue (contrast 3L) shows the conflict with
+    its low-frequency spectrum (2L), and the manual assignment records the bilayer. The drawn
+    lines are invented; the rule table is the published one (resources/raman_rules)."""
+    from flakebook.pipeline_spectra import category, flake_report
+
+    with Project.open(fresh / demo.PROJECT_NAME, read_only=True) as p:
+        assert not p.stale_records()
+        for f in demo.FLAKES:
+            flake = p.find_flake(f.label)
+            report, recs = flake_report(p, flake)
+            assert {"contrast", "Raman", "PL"} <= {category(r) for r in recs}, f.label
+            assert p.spectrum_fits_of_flake(flake), f.label
+            if f.looks_like is None:
+                assert report.posterior.layers == f.layers, (f.label, report.posterior)
+                assert not report.conflicts, (f.label, report.conflicts)
+        flake = p.find_flake("K7N-02")
+        report, _ = flake_report(p, flake)
+        assert any(c.a == "contrast" for c in report.conflicts)
+        modes = {c.method.split(": ")[1].split(" (")[0] for c in report.contributions[1:]}
+        assert {"shear mode", "breathing mode"} <= modes
+        latest = p.latest_assignment(flake)
+        assert latest.manual and latest.layers == 2 and "shear mode" in latest.reason
 
 
 def test_demo_has_every_kind_of_record(fresh):

@@ -87,6 +87,21 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--flake", required=True, metavar="ID", help="the flake's ID")
     p.add_argument("--layers", metavar="N", help="the layer number to assign")
     p.add_argument("--reason", metavar="TEXT", help="why (required with --layers)")
+    p.add_argument(
+        "--afm-height-nm",
+        type=float,
+        metavar="H",
+        help="record an AFM step height (nm) as evidence (with --afm-height-err-nm)",
+    )
+    p.add_argument("--afm-height-err-nm", type=float, metavar="E", help="its standard error (nm)")
+    p.add_argument(
+        "--si-ratio",
+        type=float,
+        metavar="R",
+        help="record I_Si(under the flake) / I_Si(bare substrate) as evidence (with --si-ratio-err)",
+    )
+    p.add_argument("--si-ratio-err", type=float, metavar="E", help="its standard error")
+    p.add_argument("--laser-nm", type=float, default=532.0, help="laser line of --si-ratio (532)")
     add_format_option(p)
     p.set_defaults(func=_assign)
 
@@ -289,14 +304,42 @@ def _parse_layers(text: str) -> int:
     return value
 
 
+def _record_measured_evidence(args: argparse.Namespace) -> bool:
+    """Record --afm-height-nm / --si-ratio as evidence and recombine; True if any was given."""
+    afm = (args.afm_height_nm, args.afm_height_err_nm)
+    si = (args.si_ratio, args.si_ratio_err)
+    for (value, err), name in ((afm, "--afm-height-nm"), (si, "--si-ratio")):
+        if (value is None) != (err is None):
+            raise InputError(f"{name} needs its error too ({name.replace('-nm', '')}-err...)")
+    for name in ("afm_height_nm", "afm_height_err_nm", "si_ratio", "si_ratio_err", "laser_nm"):
+        if getattr(args, name) is not None:
+            positive_float("--" + name.replace("_", "-"), getattr(args, name))
+    if afm[0] is None and si[0] is None:
+        return False
+    from flakebook import pipeline
+
+    with Project.open(args.project) as project:
+        _show_warnings(project)
+        flake = project.find_flake(args.flake)
+        with project.transaction():
+            if afm[0] is not None:
+                pipeline.add_afm_evidence(project, flake, *afm)
+            if si[0] is not None:
+                pipeline.add_si_evidence(project, flake, *si, laser_nm=args.laser_nm)
+            pipeline.assign_flake(project, flake)
+    return True
+
+
 def _assign(args: argparse.Namespace) -> int:
-    if args.layers is None:
-        if args.reason is not None:
-            raise InputError("--reason goes with --layers N (the layer number you assign)")
-        return _show_evidence(args)
-    layers = _parse_layers(args.layers)
-    if not (args.reason or "").strip():
+    # Every option is checked before anything is stored.
+    if args.layers is None and args.reason is not None:
+        raise InputError("--reason goes with --layers N (the layer number you assign)")
+    layers = None if args.layers is None else _parse_layers(args.layers)
+    if layers is not None and not (args.reason or "").strip():
         raise InputError("--layers needs --reason TEXT: a manual assignment keeps why it was made")
+    _record_measured_evidence(args)
+    if layers is None:
+        return _show_evidence(args)
     with Project.open(args.project) as project:
         _show_warnings(project)
         flake = project.find_flake(args.flake)
@@ -320,9 +363,12 @@ def _show_evidence(args: argparse.Namespace) -> int:
         evidence = project.evidence_of(flake)
         asg = project.latest_assignment(flake)
         primary = project.primary_terrace_id(flake)
+        combined, contributions = _combined(project, flake)
     ev_rows = [
         {
             "method": e.method,
+            "category": _category(e),
+            "contribution": contributions.get(e.id),
             "terrace_id": e.terrace_id,
             "likelihood": e.likelihood.tolist(),
             "most_likely": _most_likely(e.likelihood),
@@ -350,16 +396,25 @@ def _show_evidence(args: argparse.Namespace) -> int:
         "flake_id": flake.label,
         "primary_terrace_id": primary,
         "evidence": ev_rows,
-        "combined": _combined(evidence, primary),
+        "combined": combined,
         "assignment": assignment,
     }
     if output_format(args) == "table":
         lines = [f"{flake.label}: layer evidence ({len(ev_rows)})"]
         for e in ev_rows:
             mark = " (stale)" if e["stale"] else ""
-            lines.append(f"  {e['method']}: most likely {e['most_likely']}{mark}  {e['reason']}")
+            c = e["contribution"]
+            adds = (
+                f", adds {max(0.0, c['information_bits']):.2f} bits"
+                if c and c["information_bits"] is not None
+                else ""
+            )
+            name = c["name"] if c else e["category"]
+            lines.append(f"  {name}: most likely {e['most_likely']}{adds}{mark}  {e['reason']}")
         combined = payload["combined"]
         if combined is not None:
+            for text in combined["conflicts"]:
+                lines.append(f"  CONFLICT: {text}")
             amb = combined["ambiguous_with"]
             also = f", ambiguous with {', '.join(map(str, amb))}" if amb else ""
             lines.append(
@@ -384,21 +439,38 @@ def _show_evidence(args: argparse.Namespace) -> int:
     return 0
 
 
-def _combined(evidence, primary_terrace_id) -> dict | None:
-    """The posterior of the primary terrace's evidence (and the flake's own) with a flat prior,
-    from flakebook.evidence; None without evidence (or without that module)."""
+def _category(rec) -> str:
+    from flakebook.pipeline_spectra import category
+
+    return category(rec)
+
+
+def _combined(project: Project, flake) -> tuple[dict | None, dict]:
+    """The combined posterior of all the primary terrace's evidence (flat prior; spectrometer
+    offsets marginalised once per spectrum) with its conflicts, and each evidence's
+    contribution by record id; (None, {}) without evidence."""
+    from flakebook.pipeline_spectra import flake_report
+
     try:
-        from flakebook.evidence import combine
-    except ImportError:
-        return None
-    chosen = [e for e in evidence if e.terrace_id in (None, primary_terrace_id)]
-    if not chosen:
-        return None
-    try:
-        return combine([e.likelihood for e in chosen]).to_dict()
+        report, recs = flake_report(project, flake)
     except InputError as exc:
         message(f"flakebook: the evidence cannot be combined: {exc}")
-        return None
+        return None, {}
+    if report is None:
+        return None, {}
+    out = report.posterior.to_dict()
+    out["conflicts"] = [c.text for c in report.conflicts]
+    out["warnings"] = list(report.warnings)
+    contributions = {
+        rec.id: {
+            "name": c.method,
+            "layers": c.posterior.layers,
+            "probability": c.posterior.probability,
+            "information_bits": c.information_bits,
+        }
+        for rec, c in zip(recs, report.contributions, strict=True)
+    }
+    return out, contributions
 
 
 def _most_likely(likelihood) -> str:

@@ -9,6 +9,9 @@ from pathlib import Path
 
 from flakebook.errors import InputError
 
+#: Views that show one flake: `--show NAME:ID`.
+PER_FLAKE = ("spectra", "thermal")
+
 
 def _headless() -> bool:
     return (
@@ -32,22 +35,23 @@ def _prepare_platform(offscreen: bool) -> None:
 
 
 def parse_show(text: str | None) -> tuple[str, str | None]:
-    """A registered view's name (``image``, ``catalogue``, ...) | ``flake:ID`` -> (view, argument)."""
+    """A registered view's name (``image``, ``catalogue``, ``spectra``, ...) | ``flake:ID`` |
+    ``spectra:ID`` | ``thermal:ID`` -> (view, argument)."""
     from flakebook.gui.views import NAMES
 
-    accepted = ", ".join(sorted([*(n for n in NAMES if n != "thermal"), "flake:ID", "thermal:ID"]))
+    accepted = ", ".join(
+        sorted([*(n for n in NAMES if n not in PER_FLAKE), "flake:ID", "spectra:ID", "thermal:ID"])
+    )
     if not text:
         return "image", None
     view, _, arg = text.partition(":")
     view = view.strip().lower()
-    if view in ("flake", "thermal") and arg.strip():
+    if view in ("flake", *PER_FLAKE) and arg.strip():
         return view, arg.strip()
-    if view in NAMES and not arg:
+    if view in NAMES and view not in PER_FLAKE and not arg:
         return view, None
-    if view == "spectra":
-        raise InputError(
-            f"--show {text}: the {view} view is not in this version; accepted: {accepted}"
-        )
+    if view in PER_FLAKE:
+        raise InputError(f"--show {text}: the {view} view shows one flake; accepted: {view}:ID")
     named = accepted.replace("flake:ID", "flake:ID (a flake's name)")
     raise InputError(f"--show {text!r} is not a view; accepted: {named}")
 
@@ -122,11 +126,13 @@ def run(
 
 def show_view(window, view: str, arg: str | None) -> None:
     """Put the window in the state ``--show`` names: a view in front, or a flake selected."""
-    if view in ("flake", "thermal") and arg:
+    if view in ("flake", *PER_FLAKE) and arg:
         if window.session is None:
             raise InputError(f"--show {view}:ID needs a project")
         flake = window.session.project.find_flake(arg)
-        window.select_flake(flake.id, centre=view == "flake")
-        window.show_view("image" if view == "flake" else "thermal")
+        window.select_flake(flake.id, centre=view != "thermal")
+        window.show_view("image" if view == "flake" else view)
+        if view == "spectra":
+            window.spectra_view.show_flake(window.session, flake.id)
     else:
         window.show_view(view)

@@ -376,11 +376,25 @@ class Inspector(QScrollArea):
         self.verdict.setText(text)
 
     def _show_evidence(self, flake: dict) -> None:
+        # Contrast, Raman, PL, Si attenuation and AFM side by side: what each says alone, a
+        # conflict mark, and the combined probability (flakebook.evidence.combine_report).
         lines = []
         for ev in flake.get("evidence") or []:
             src = f" <i>({ev['source']})</i>" if ev.get("source") else ""
             stale = " <span style='color:#B05A00'>[stale]</span>" if ev.get("stale") else ""
-            lines.append(f"• <b>{ev.get('method', '?')}</b>: {ev.get('reason') or ''}{src}{stale}")
+            says = ""
+            if ev.get("layers") is not None:
+                says = f" → {ev['layers']}L, P = {ev['probability']:.2f}"
+            mark = " <b style='color:#C0392B'>⚠ conflict</b>" if ev.get("conflict") else ""
+            name = ev.get("name") or ev.get("method", "?")
+            lines.append(f"• <b>{name}</b>{says}{mark}: {ev.get('reason') or ''}{src}{stale}")
+        combined = flake.get("combined")
+        if combined and lines:
+            lines.append(
+                f"<b>Combined: {combined['layers']}L, P = {combined['probability']:.2f}</b>"
+            )
+            for text in combined.get("conflicts") or []:
+                lines.append(f"<span style='color:#C0392B'>⚠ {text}</span>")
         self.evidence.setText("<br>".join(lines) if lines else "<i>No evidence recorded.</i>")
 
     def _channel_items(self, ch: str, index: int) -> dict:

@@ -37,9 +37,11 @@ from flakebook.store.records import (
     HolePattern,
     Image,
     Record,
+    RuleCalibration,
     Sample,
     SourceRef,
     Spectrum,
+    SpectrumFit,
     Terrace,
     ThermometryResult,
     ThermometrySeries,
@@ -124,6 +126,10 @@ class RecordKinds:
             rec = dataclasses.replace(
                 rec, who=rec.who or self._user, assigned_at=rec.assigned_at or self.now()
             )
+        if isinstance(rec, SpectrumFit) and rec.flake_id is None:
+            rec = dataclasses.replace(rec, flake_id=self.get(Spectrum, rec.spectrum_id).flake_id)
+        if isinstance(rec, RuleCalibration) and rec.created_at is None:
+            rec = dataclasses.replace(rec, created_at=self.now())
         if isinstance(rec, ExternalResult) and rec.imported_at is None:
             rec = dataclasses.replace(rec, imported_at=self.now())
         return rec
@@ -394,6 +400,25 @@ class RecordKinds:
         }
         return self.add(Calibration(sample_id=id_of(sample), **fields))
 
+    def add_spectrum_fit(self, spectrum: RecordRef, **fields: Any) -> SpectrumFit:
+        """Add the fit of a stored spectrum (``settings``, ``peaks``, ``calibration``,
+        ``warnings``, ``method``, ``inputs``: the spectrum and any rule calibration used)."""
+        return self.add(SpectrumFit(spectrum_id=id_of(spectrum), **fields))
+
+    def add_rule_calibration(
+        self, sample: RecordRef, material: str, laser_nm: float, rule_table: dict, **fields: Any
+    ) -> RuleCalibration:
+        """Store a Raman/PL rule table calibrated on a sample's own flakes (its JSON form)."""
+        return self.add(
+            RuleCalibration(
+                sample_id=id_of(sample),
+                material=material,
+                laser_nm=laser_nm,
+                rule_table=rule_table,
+                **fields,
+            )
+        )
+
     # ---- lookups -------------------------------------------------------------------------
 
     def sample_by_name(self, name: str) -> Sample | None:
@@ -490,6 +515,23 @@ class RecordKinds:
     def calibrations_of(self, sample: RecordRef) -> list[Calibration]:
         """The optics calibrations of a sample."""
         return self._select(Calibration, "sample_id = ?", (id_of(sample),))
+
+    def fits_of(self, spectrum: RecordRef) -> list[SpectrumFit]:
+        """The fits of a stored spectrum, oldest first."""
+        return self._select(SpectrumFit, "spectrum_id = ?", (id_of(spectrum),))
+
+    def spectrum_fits_of_flake(self, flake: RecordRef) -> list[SpectrumFit]:
+        """The spectrum fits of a flake, oldest first."""
+        return self._select(SpectrumFit, "flake_id = ?", (id_of(flake),))
+
+    def rule_calibrations_of(
+        self, sample: RecordRef, laser_nm: float | None = None
+    ) -> list[RuleCalibration]:
+        """A sample's calibrated rule tables (of one laser line within 5 nm), oldest first."""
+        rows = self._select(RuleCalibration, "sample_id = ?", (id_of(sample),))
+        if laser_nm is None:
+            return rows
+        return [r for r in rows if abs(r.laser_nm - float(laser_nm)) <= 5.0]
 
     def primary_terrace_id(self, flake: RecordRef) -> int | None:
         """The terrace whose layer number is the flake's: the one chosen by the user, else the

@@ -2,7 +2,7 @@
 
 Every record has ``id`` (None until stored) and ``revision`` (0 until stored, then 1, bumped on
 every update). Derived records (:class:`Evidence`, :class:`Assignment`,
-:class:`ThermometryResult`) also carry their provenance: the ``inputs`` they were computed from
+:class:`ThermometryResult`, :class:`SpectrumFit`) also carry their provenance: the ``inputs`` they were computed from
 (record kind, id and revision), the ``method`` and its ``parameters``, the flakebook version and
 a ``stale`` mark set when an input changes.
 
@@ -692,6 +692,9 @@ class Calibration(Record):
         _text(self, "notes")
 
 
+# Spectrum fits and calibrated rule tables are written in their own module, on the classes above.
+from flakebook.store.records_spectra import RuleCalibration, SpectrumFit  # noqa: E402
+
 RECORD_TYPES: tuple[type[Record], ...] = (
     Sample,
     Image,
@@ -708,6 +711,8 @@ RECORD_TYPES: tuple[type[Record], ...] = (
     ThermometryResult,
     ExternalResult,
     Calibration,
+    SpectrumFit,
+    RuleCalibration,
 )
 KINDS: dict[str, type[Record]] = {cls.KIND: cls for cls in RECORD_TYPES}
 DERIVED_KINDS = tuple(cls.KIND for cls in RECORD_TYPES if cls.DERIVED)
@@ -768,6 +773,8 @@ __all__ = [
     "ThermometryResult",
     "ExternalResult",
     "Calibration",
+    "SpectrumFit",
+    "RuleCalibration",
     "KINDS",
     "DERIVED_KINDS",
     "record_type",

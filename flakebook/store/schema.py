@@ -14,6 +14,9 @@ Version history:
      appearances their image's pixel size (``appearances.pixel_size_um``), both kept in step by
      the store, with indexes for the catalogue; every derived record names the published source
      of its constants (``source`` on assignments and thermometry results, as evidence had).
+  4. spectrum fits (``spectrum_fits``: a stored spectrum's fit settings, fitted peaks, Si-line
+     calibration and warnings, derived from the spectrum) and Raman/PL rule tables calibrated
+     on a sample's own flakes (``rule_calibrations``).
 """
 
 from __future__ import annotations
@@ -24,7 +27,7 @@ from collections.abc import Callable
 
 #: "FLKB": marks a SQLite file as a flakebook project.
 APPLICATION_ID = 0x464C4B42
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 
 _PROVENANCE = """
     method TEXT NOT NULL DEFAULT '',
@@ -335,8 +338,51 @@ ALTER TABLE assignments ADD COLUMN source TEXT NOT NULL DEFAULT '';
 ALTER TABLE thermometry_results ADD COLUMN source TEXT NOT NULL DEFAULT ''
 """
 
+
+def _v3_to_v4(con: sqlite3.Connection) -> None:
+    """Spectrum fits and calibrated rule tables."""
+    for statement in _V4_TABLES.split(";"):
+        if statement.strip():
+            con.execute(statement)
+
+
+_V4_TABLES = f"""
+CREATE TABLE spectrum_fits (
+    id INTEGER PRIMARY KEY,
+    revision INTEGER NOT NULL DEFAULT 1,
+    {_PROVENANCE}
+    source TEXT NOT NULL DEFAULT '',
+    spectrum_id INTEGER NOT NULL REFERENCES spectra(id) ON DELETE CASCADE,
+    flake_id INTEGER REFERENCES flakes(id) ON DELETE CASCADE,
+    settings TEXT NOT NULL DEFAULT '{{}}',
+    peaks TEXT NOT NULL DEFAULT '[]',
+    calibration TEXT NOT NULL DEFAULT '{{}}',
+    warnings TEXT NOT NULL DEFAULT '[]'
+);
+CREATE INDEX spectrum_fits_spectrum ON spectrum_fits(spectrum_id);
+CREATE INDEX spectrum_fits_flake ON spectrum_fits(flake_id);
+
+CREATE TABLE rule_calibrations (
+    id INTEGER PRIMARY KEY,
+    revision INTEGER NOT NULL DEFAULT 1,
+    sample_id INTEGER NOT NULL REFERENCES samples(id) ON DELETE CASCADE,
+    material TEXT NOT NULL,
+    laser_nm REAL NOT NULL,
+    rule_table TEXT NOT NULL DEFAULT '{{}}',
+    flakes_used TEXT NOT NULL DEFAULT '[]',
+    method TEXT NOT NULL DEFAULT '',
+    notes TEXT NOT NULL DEFAULT '',
+    created_at TEXT
+);
+CREATE INDEX rule_calibrations_sample ON rule_calibrations(sample_id, laser_nm, id)
+"""
+
 #: MIGRATIONS[v] brings a file from version v to v + 1 (run inside one transaction).
-MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {1: _v1_to_v2, 2: _v2_to_v3}
+MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {
+    1: _v1_to_v2,
+    2: _v2_to_v3,
+    3: _v3_to_v4,
+}
 
 
 def create_v1(con: sqlite3.Connection) -> None:

@@ -152,7 +152,26 @@ def populate(p: Project, folder: Path) -> dict:
         contrast_scale_err={"r": 0.02, "g": 0.02, "b": 0.03},
         method="known-flakes",
     )
+    fit = p.add_spectrum_fit(
+        spec,
+        settings={"kind": "raman", "baseline": "imodpoly", "peak_model": "lorentzian"},
+        peaks=[{"mode": "A1g", "center_cm1": 241.0, "center_err_cm1": 0.05}],
+        calibration={"shift_cm1": 0.1},
+        warnings=("ein Hinweis",),
+        method="spectrum fit",
+        inputs=[spec],
+    )
+    rules = p.add_rule_calibration(
+        s,
+        "MoSe2",
+        532.0,
+        {"material": "MoSe2", "rules": []},
+        flakes_used=("K7N-α01",),
+        method="known flakes",
+    )
     return {
+        "spectrum_fit": fit,
+        "rule_calibration": rules,
         "sample": s,
         "image": img,
         "flake": f,

@@ -128,3 +128,28 @@ def test_new_file_equals_migrated_v1_schema(tmp_path):
         return out
 
     assert columns(tmp_path / "new.flakebook") == columns(tmp_path / "old.flakebook")
+
+
+def test_v3_file_takes_spectrum_fits_and_rule_calibrations(tmp_path):
+    """A version-3 file with a stored spectrum opens upgraded to version 4; the spectrum is kept
+    and the new tables take its fit and a calibrated rule table (common practice, no source)."""
+    path = tmp_path / "v3.flakebook"
+    _old_file(path, 3)
+    con = sqlite3.connect(path, isolation_level=None)
+    x = np.linspace(200.0, 300.0, 11)
+    con.execute(
+        "INSERT INTO spectra (id, sample_id, flake_id, kind, x_unit, x, y) "
+        "VALUES (1, 1, 1, 'raman', 'cm-1', ?, ?)",
+        (encode_array(x), encode_array(x * 0 + 5.0)),
+    )
+    con.close()
+    with Project.open(path) as p:
+        assert p.schema_version == 4
+        spec = p.get("spectrum", 1)
+        assert np.array_equal(spec.x, x)
+        fit = p.add_spectrum_fit(spec, settings={"peak_model": "voigt"}, method="m", inputs=[spec])
+        assert fit.flake_id == 1, "a fit takes its spectrum's flake"
+        p.add_rule_calibration(1, "MoSe2", 532.0, {"material": "MoSe2", "rules": []})
+    with Project.open(path, read_only=True) as q:
+        assert q.fits_of(1)[0].settings == {"peak_model": "voigt"}
+        assert q.rule_calibrations_of(1, 532.0)[0].material == "MoSe2"

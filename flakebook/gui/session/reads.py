@@ -192,6 +192,7 @@ class Reads:
             a for a in p.assignments_of(fid) if not a.manual and a.terrace_id in (tid, None)
         ]
         comp = computed[-1] if computed else None
+        report = self._flake_report(fid, evidence)
         contrast, contrast_err, geometry, image_id = {}, {}, "supported", None
         for e in evidence:
             if isinstance(e.parameters.get("contrast"), dict):  # contrast evidence of any source
@@ -262,10 +263,7 @@ class Reads:
             "evidence_probability": comp.probability if comp else None,
             "posterior": posterior,
             "max_layers": p.max_layers,
-            "evidence": [
-                {"method": e.method, "reason": e.reason, "source": e.source, "stale": e.stale}
-                for e in evidence
-            ]
+            "evidence": self._evidence_rows(evidence, report)
             + (
                 [
                     {
@@ -277,6 +275,13 @@ class Reads:
                 if latest is not None and latest.manual
                 else []
             ),
+            "combined": None
+            if report is None
+            else {
+                "layers": report.posterior.layers,
+                "probability": report.posterior.probability,
+                "conflicts": [c.text for c in report.conflicts],
+            },
             "contrast": contrast,
             "contrast_err": contrast_err,
             "holes": holes,
@@ -289,6 +294,45 @@ class Reads:
             "primary_chosen": flake.primary_terrace_id is not None,
             "terraces": self._terrace_choices(fid),
         }
+
+    def _flake_report(self, fid: int, evidence):
+        """The combined report of the evidence shown (flakebook.pipeline_spectra), or None."""
+        from flakebook.errors import InputError
+        from flakebook.pipeline_spectra import flake_report
+
+        try:
+            return flake_report(self.project, fid, evidence)[0]
+        except InputError:
+            return None
+
+    @staticmethod
+    def _evidence_rows(evidence, report) -> list[dict]:
+        """Each evidence: its kind (contrast, Raman, PL, Si attenuation, AFM), what it alone
+        says, and whether it is part of a conflict."""
+        from flakebook.pipeline_spectra import category, evidence_name
+
+        conflicted = set()
+        if report is not None:
+            for c in report.conflicts:
+                conflicted.update((c.a, c.b))
+        rows = []
+        for i, e in enumerate(evidence):
+            contrib = report.contributions[i] if report is not None else None
+            name = evidence_name(e)
+            rows.append(
+                {
+                    "method": e.method,
+                    "category": category(e),
+                    "name": name,
+                    "reason": e.reason,
+                    "source": e.source,
+                    "stale": e.stale,
+                    "layers": contrib.posterior.layers if contrib else None,
+                    "probability": contrib.posterior.probability if contrib else None,
+                    "conflict": name in conflicted,
+                }
+            )
+        return rows
 
     def _terrace_choices(self, fid: int) -> list[tuple[int, str]]:
         """(terrace id, text) for each terrace of a flake: label, latest layer number, area."""

@@ -11,11 +11,22 @@ on the toolbar and in the Tools menu), :class:`~flakebook.gui.session.Session` i
 
 from __future__ import annotations
 
-from flakebook.gui.tools import hole, link, measure, merge, outline, scale, segment, select, split
+from flakebook.gui.tools import (
+    hole,
+    link,
+    measure,
+    merge,
+    outline,
+    scale,
+    segment,
+    select,
+    spectra,
+    split,
+)
 from flakebook.gui.tools.base import CanvasTool
 
 #: Every tool, in the order of the toolbar.
-MODULES = (select, outline, segment, hole, scale, measure, split, merge, link)
+MODULES = (select, outline, segment, hole, scale, measure, split, merge, link, spectra)
 
 CANVAS_TOOLS: dict[str, CanvasTool] = {m.TOOL.name: m.TOOL for m in MODULES if hasattr(m, "TOOL")}
 SESSION_PARTS: tuple[type, ...] = tuple(
