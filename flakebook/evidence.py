@@ -411,6 +411,10 @@ class CombinedReport:
 
 
 CONFLICT_OVERLAP = 0.1
+#: Two confident pieces of evidence (top probability at least this) that disagree on N, each
+#: putting less than AMBIGUITY_THRESHOLD on the other's answer, conflict even where the
+#: Bhattacharyya overlap of their tails stays above CONFLICT_OVERLAP.
+CONFLICT_CONFIDENT = 0.8
 
 
 def _kl_bits(p: np.ndarray, q: np.ndarray) -> float:
@@ -425,6 +429,9 @@ def _conflict(a: str, b: str, pa: np.ndarray, pb: np.ndarray) -> Conflict | None
     ba, bb = int(np.argmax(pa)), int(np.argmax(pb))
     ma, mb = float(pa[bb]), float(pb[ba])
     if overlap < CONFLICT_OVERLAP:
+        return Conflict(a, b, overlap, ba + 1, bb + 1, ma, mb)
+    confident = min(float(pa[ba]), float(pb[bb])) >= CONFLICT_CONFIDENT
+    if ba != bb and confident and max(ma, mb) < AMBIGUITY_THRESHOLD:
         return Conflict(a, b, overlap, ba + 1, bb + 1, ma, mb)
     return None
 
@@ -444,7 +451,8 @@ def combine_report(
     (:class:`Contribution`: its own posterior and the leave-one-out KL divergence in bits), and
     the conflicts: an item against the rest, or a pair, whose flat-prior posteriors overlap by
     less than 0.1 (Bhattacharyya coefficient; the mass each puts on the other's best N is
-    reported beside it).
+    reported beside it), or that are each confident (top probability >= 0.8) of a different N
+    and put less than 5% on the other's.
     Conflicts are listed, never averaged away. ``manual`` overrides the layer number (its
     reason kept); ``max_layers`` (optional) checks the items' length.
     """
