@@ -343,7 +343,8 @@ def pl_spectrum(layers: int, rng: np.random.Generator):
     if layers == 1:
         y = 9000.0 * np.exp(-0.5 * ((ev - 1.570) / 0.022) ** 2)
     else:
-        y = 350.0 / layers * np.exp(-0.5 * ((ev - 1.545) / 0.03) ** 2)
+        # Invented: the A exciton red-shifts towards its bulk energy as layers are added.
+        y = 350.0 / layers * np.exp(-0.5 * ((ev - (1.52 + 0.05 / layers)) / 0.03) ** 2)
         y += 120.0 / layers * np.exp(-0.5 * ((ev - 1.40 + 0.02 * layers) / 0.06) ** 2)
     y += 40.0
     return x, rng.poisson(y).astype(float)

@@ -411,10 +411,10 @@ class CombinedReport:
 
 
 CONFLICT_OVERLAP = 0.1
-#: Two confident pieces of evidence (top probability at least this) that disagree on N, each
+#: Two pieces of evidence that each favour one N (top probability at least this) that disagree on N, each
 #: putting less than AMBIGUITY_THRESHOLD on the other's answer, conflict even where the
 #: Bhattacharyya overlap of their tails stays above CONFLICT_OVERLAP.
-CONFLICT_CONFIDENT = 0.8
+CONFLICT_CONFIDENT = 0.5
 
 
 def _kl_bits(p: np.ndarray, q: np.ndarray) -> float:
@@ -451,7 +451,7 @@ def combine_report(
     (:class:`Contribution`: its own posterior and the leave-one-out KL divergence in bits), and
     the conflicts: an item against the rest, or a pair, whose flat-prior posteriors overlap by
     less than 0.1 (Bhattacharyya coefficient; the mass each puts on the other's best N is
-    reported beside it), or that are each confident (top probability >= 0.8) of a different N
+    reported beside it), or that each favour a different N (top probability >= 0.5)
     and put less than 5% on the other's.
     Conflicts are listed, never averaged away. ``manual`` overrides the layer number (its
     reason kept); ``max_layers`` (optional) checks the items' length.
