@@ -14,6 +14,9 @@ Version history:
      appearances their image's pixel size (``appearances.pixel_size_um``), both kept in step by
      the store, with indexes for the catalogue; every derived record names the published source
      of its constants (``source`` on assignments and thermometry results, as evidence had).
+  4. a layer calibration keeps its whole fit (``calibrations.model``: the JSON of
+     ``flakebook calibrate``, with the n,k coefficients and residuals) and when it was made
+     (``calibrations.created_at``).
 """
 
 from __future__ import annotations
@@ -24,7 +27,7 @@ from collections.abc import Callable
 
 #: "FLKB": marks a SQLite file as a flakebook project.
 APPLICATION_ID = 0x464C4B42
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 
 _PROVENANCE = """
     method TEXT NOT NULL DEFAULT '',
@@ -335,8 +338,19 @@ ALTER TABLE assignments ADD COLUMN source TEXT NOT NULL DEFAULT '';
 ALTER TABLE thermometry_results ADD COLUMN source TEXT NOT NULL DEFAULT ''
 """
 
+
+def _v3_to_v4(con: sqlite3.Connection) -> None:
+    """A calibration's whole fit and its date."""
+    con.execute("ALTER TABLE calibrations ADD COLUMN model TEXT NOT NULL DEFAULT '{}'")
+    con.execute("ALTER TABLE calibrations ADD COLUMN created_at TEXT")
+
+
 #: MIGRATIONS[v] brings a file from version v to v + 1 (run inside one transaction).
-MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {1: _v1_to_v2, 2: _v2_to_v3}
+MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {
+    1: _v1_to_v2,
+    2: _v2_to_v3,
+    3: _v3_to_v4,
+}
 
 
 def create_v1(con: sqlite3.Connection) -> None:
