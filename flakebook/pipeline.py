@@ -59,20 +59,29 @@ def optics_hole(sample: Sample):
 
 
 def calibration_values(project: Project, sample: Sample) -> dict | None:
-    """The sample's latest optics calibration as plain values (None without one)."""
-    cals = [c for c in project.calibrations_of(sample) if c.oxide_nm is not None]
-    if not cals:
+    """The sample's latest optics calibration as plain values (None without one); a layer
+    calibration (``flakebook calibrate PROJECT``) also gives its whole fit as
+    ``"layer_calibration"`` (a ``LayerCalibration``, whose narrowed n,k model the likelihood
+    uses)."""
+    cal = calibration_record(project, sample)
+    if cal is None:
         return None
-    cal = cals[-1]
     scale = list(cal.contrast_scale.values())
     scale_err = list(cal.contrast_scale_err.values())
+    layer_cal = None
+    if cal.model:
+        from flakebook.optics.calibration import LayerCalibration
+
+        layer_cal = LayerCalibration.from_dict(cal.model, source=f"calibration {cal.id}")
     return {
         "id": cal.id,
+        "date": (cal.created_at or "")[:10] or f"#{cal.id}",
         "oxide_nm": float(cal.oxide_nm),
         "oxide_err_nm": float(cal.oxide_err_nm or 0.0),
         "contrast_scale": float(sum(scale) / len(scale)) if scale else 1.0,
         "contrast_scale_err": float(sum(scale_err) / len(scale_err)) if scale_err else 0.0,
         "dark_offset": dict(cal.dark_offset),
+        "layer_calibration": layer_cal,
     }
 
 
@@ -81,16 +90,18 @@ def likelihood_options(cal: dict | None, substrate) -> tuple[dict, str]:
     note saying which calibration was used."""
     if cal is None:
         return {"substrate": substrate}, ""
+    note = (
+        f"calibrated oxide {cal['oxide_nm']:.1f}±{cal['oxide_err_nm']:.1f} nm "
+        f"(calibration of {cal.get('date') or cal['id']})"
+    )
+    if cal.get("layer_calibration") is not None:
+        return {"substrate": substrate, "calibration": cal["layer_calibration"]}, note
     opts = {
         "substrate": substrate.with_oxide(cal["oxide_nm"]),
         "oxide_err_nm": cal["oxide_err_nm"],
         "contrast_scale": cal["contrast_scale"],
         "contrast_scale_err": cal["contrast_scale_err"],
     }
-    note = (
-        f"calibrated oxide {cal['oxide_nm']:.1f}±{cal['oxide_err_nm']:.1f} nm "
-        f"(calibration {cal['id']})"
-    )
     return opts, note
 
 
@@ -221,10 +232,12 @@ def store_survey(
     coverage (with the terrace over each hole) are recorded.
     """
     from flakebook.imaging.terraces import terrace_groups
+    from flakebook.pipeline_calibration import describe_change, model_used
 
     sample = project.get(Sample, image.sample_id)
     stack = format_substrate(sample.substrate)
     extra = dict(parameters or {})
+    model = model_used(project, sample)
     calibration = calibration_record(project, sample)
     base_inputs = [sample, image] + ([calibration] if calibration is not None else [])
     out = StoredSurvey()
@@ -240,6 +253,9 @@ def store_survey(
         groups = terrace_groups(result)
         for sf in result.flakes:
             flake = flake_for(sf) if flake_for is not None else None
+            before = None
+            if flake is not None:
+                before = project.latest_assignment(flake)
             if flake is None:
                 if new_label is None:
                     continue
@@ -286,6 +302,7 @@ def store_survey(
                                 "substrate_level": {
                                     k: float(v) for k, v in result.segmentation.substrate.items()
                                 },
+                                "model": model,
                                 **extra,
                             },
                             source=OPTICS_SOURCE,
@@ -314,6 +331,27 @@ def store_survey(
                 for terrace, evidence in terraces:
                     if evidence:
                         out.assignments.append(add_combined(project, flake, terrace, evidence).id)
+                after = project.latest_assignment(flake)
+                if (
+                    before is not None
+                    and after is not None
+                    and not before.manual
+                    and not after.manual
+                    and after.layers != before.layers
+                ):
+                    # A flake seen again reads differently: say why beside the new number.
+                    old_model = next(
+                        (
+                            e.parameters.get("model")
+                            for e in project.evidence_of(flake)
+                            if any(r.kind == "evidence" and r.id == e.id for r in before.inputs)
+                        ),
+                        None,
+                    )
+                    why = describe_change(old_model, model).replace("re-read", "read", 1)
+                    if why.startswith("read after"):
+                        why = f"read again in {image.path}"
+                    project.update(after, reason=f"{why}: {before.layers}L -> {after.layers}L")
     return out
 
 
@@ -404,11 +442,21 @@ def _recompute_contrast(project: Project, rec: Evidence):
         geometry=rec.parameters.get("geometry", "supported"),
         max_layers=rec.max_layers,
     )
+    from flakebook.pipeline_calibration import model_used
+
     params = dict(rec.parameters)
     params["decider"] = lk.decider
     params["calibration"] = note or "none (nominal oxide)"
+    params["previous_model"] = rec.parameters.get("model")
+    params["model"] = model_used(project, sample)
+    # The evidence now depends on the calibration it was read with (and on no other).
+    current = calibration_record(project, sample)
+    inputs = [r for r in rec.inputs if r.kind != "calibration"]
+    if current is not None:
+        inputs.append(current)
     return {
         "likelihood": lk.likelihood,
+        "inputs": tuple(inputs),
         "parameters": params,
         "reason": contrast_reason(
             params["contrast"],
@@ -420,11 +468,42 @@ def _recompute_contrast(project: Project, rec: Evidence):
 
 
 def _recompute_combined(project: Project, rec: Assignment):
-    # All the current evidence of the terrace (contrast, Raman, PL, Si line, AFM), combined with
-    # the spectrometer offsets marginalised once (flakebook.pipeline_spectra).
+    """Combine all the current evidence of the terrace again (contrast, Raman, PL, Si line,
+    AFM; the spectrometer offsets marginalised once, flakebook.pipeline_spectra). When the layer
+    number changes and this assignment is the one in force, the new number is a new assignment
+    saying why ("re-read with the calibration of <date>: 3L -> 4L") and this one stays as
+    history, marked ``superseded_by``; otherwise it is brought up to date in place."""
+    from flakebook.pipeline_calibration import describe_change
     from flakebook.pipeline_spectra import recompute_combined
 
-    return recompute_combined(project, rec)
+    fields = recompute_combined(project, rec)
+    if fields["layers"] == rec.layers:
+        return fields
+    evidence = [project.get(Evidence, ref.id) for ref in fields["inputs"] if ref.kind == "evidence"]
+    contrast = [e for e in evidence if "previous_model" in e.parameters or "model" in e.parameters]
+    prm = (contrast or evidence)[0].parameters if evidence else {}
+    why = describe_change(prm.get("previous_model"), prm.get("model"))
+    reason = f"{why}: {rec.layers}L -> {fields['layers']}L"
+    later = [
+        a
+        for a in project.assignments_of(rec.flake_id)
+        if a.id > rec.id and a.terrace_id in (rec.terrace_id, None)
+    ]
+    if later:  # not the assignment in force (a later one, e.g. set by hand, wins)
+        return {**fields, "reason": reason}
+    new = project.add_assignment(
+        rec.flake_id,
+        fields["layers"],
+        terrace_id=rec.terrace_id,
+        probability=fields["probability"],
+        ambiguous_with=fields["ambiguous_with"],
+        posterior=fields["posterior"],
+        method=COMBINED_METHOD,
+        inputs=list(evidence),
+        reason=reason,
+        parameters={**fields.get("parameters", {}), "replaces_assignment": rec.id},
+    )
+    return {"parameters": {**rec.parameters, "superseded_by": new.id}}
 
 
 register_recomputer(CONTRAST_METHOD, _recompute_contrast)

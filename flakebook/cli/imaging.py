@@ -63,8 +63,17 @@ def _setup(opts: dict):
             "microscope": _microscope(args),
             "scale": _scale(args),
             "hole": _hole(args),
+            "calibration": _calibration(opts.get("calibration")),
         }
     return _SETUP[key]
+
+
+def _calibration(data):
+    if data is None:
+        return None
+    from flakebook.optics.calibration import LayerCalibration
+
+    return LayerCalibration.from_dict(data, source="the calibration")
 
 
 def survey_one(path: str, opts: dict, cancel=None, progress=None, keep: bool = False):
@@ -73,6 +82,7 @@ def survey_one(path: str, opts: dict, cancel=None, progress=None, keep: bool = F
     from flakebook.imaging.survey import survey_image
 
     s = _setup(opts)
+    cal = s["calibration"]
     res = survey_image(
         path,
         material=s["material"],
@@ -83,7 +93,10 @@ def survey_one(path: str, opts: dict, cancel=None, progress=None, keep: bool = F
         target_layers=opts["target_layers"],
         max_layers=opts["max_layers"],
         dark_offset=opts["dark_offset"],
-        oxide_err_nm=opts["oxide_err_nm"] or 0.0,
+        oxide_err_nm=0.0 if cal is not None else opts["oxide_err_nm"] or 0.0,
+        contrast_scale=opts.get("contrast_scale", 1.0),
+        contrast_scale_err=opts.get("contrast_scale_err", 0.0),
+        calibration=cal,
         hole_radius_um=opts["hole_radius_um"],
         find_holes=not opts["no_holes"],
         hole=s["hole"],
@@ -152,7 +165,12 @@ def _options(args) -> dict:
         raise InputError(f"--max-layers {max_layers}: accepted a whole number from 1 to 99")
     targets = _common.parse_layer_range(args.target_layers, max_layers=max_layers)
     _common.positive_float("--min-area-um2", args.min_area_um2, allow_zero=True)
-    if not (0 <= args.dark_offset < 1):
+    if args.dark_offset is None:
+        args.dark_offset = 0.0
+    offsets = (
+        args.dark_offset.values() if isinstance(args.dark_offset, dict) else [args.dark_offset]
+    )
+    if not all(0 <= v < 1 for v in offsets):
         raise InputError(
             f"--dark-offset {args.dark_offset!r}; accepted: a fraction of full scale from 0 to below 1"
         )
@@ -182,6 +200,9 @@ def _options(args) -> dict:
             "no_holes",
         )
     }
+    opts["calibration"] = getattr(args, "calibration_data", None)
+    opts["contrast_scale"] = getattr(args, "contrast_scale", 1.0)
+    opts["contrast_scale_err"] = getattr(args, "contrast_scale_err", 0.0)
     opts["target_layers"] = tuple(targets)
     _setup(opts)  # check every option once, before any file is read
     return opts
@@ -279,7 +300,105 @@ class _ProjectSink:
         self.project.close()
 
 
+def _from_sample(args) -> None:
+    """Fill the options left out from the project's sample (``--project P --sample NAME``): its
+    material, stack, hole bottom, depth and radius, and its calibration; a warning names
+    every setting taken from the sample."""
+    from flakebook.pipeline import calibration_record
+    from flakebook.store import Project
+    from flakebook.substrate import format_substrate
+
+    with Project.open(args.project, read_only=True) as project:
+        sample = project.sample_by_name(args.sample)
+        if sample is None:
+            names = ", ".join(x.name for x in project.samples()) or "(none)"
+            raise InputError(
+                f"--sample {args.sample!r} is not in {project.path.name}; accepted: {names}"
+            )
+        cal = calibration_record(project, sample)
+    taken = []
+    if args.material is None:
+        args.material = sample.material
+        taken.append(f"material {sample.material}")
+    if args.oxide_nm is None and args.substrate is None:
+        args.substrate = format_substrate(sample.substrate)
+        taken.append(f"substrate {args.substrate}")
+    hp = sample.hole_pattern
+    if hp is not None and not args.no_holes:
+        if args.hole_bottom is None:
+            args.hole_bottom = hp.bottom
+            taken.append(f"hole bottom {hp.bottom}")
+        if args.hole_depth_nm is None and hp.depth_nm is not None:
+            args.hole_depth_nm = hp.depth_nm
+            taken.append(f"hole depth {hp.depth_nm:g} nm")
+        if args.hole_radius_um is None:
+            args.hole_radius_um = hp.diameter_um / 2.0
+            taken.append(f"hole radius {args.hole_radius_um:g} um")
+    if args.calibration is None and cal is not None and args.oxide_nm is None:
+        from flakebook.pipeline_calibration import calibration_summary
+
+        if args.substrate != format_substrate(sample.substrate):
+            pass  # a stack given on the command line: the sample's calibration does not apply
+        elif cal.model:
+            args.calibration_data = cal.model
+            taken.append(f"calibration: {calibration_summary(cal)}")
+        elif cal.oxide_nm is not None:
+            from flakebook.substrate import parse_substrate
+
+            stack = [
+                {"material": lay.material, "thickness_nm": lay.thickness_nm}
+                if lay.material != "SiO2"
+                else {"material": "SiO2", "thickness_nm": cal.oxide_nm}
+                for lay in parse_substrate(args.substrate)
+            ]
+            args.substrate = format_substrate(stack)
+            if args.oxide_err_nm is None:
+                args.oxide_err_nm = cal.oxide_err_nm
+            if cal.contrast_scale:
+                vals = list(cal.contrast_scale.values())
+                errs = list(cal.contrast_scale_err.values()) or [0.0]
+                args.contrast_scale = sum(vals) / len(vals)
+                args.contrast_scale_err = sum(errs) / len(errs)
+            taken.append(f"calibration: {calibration_summary(cal)}")
+        if args.dark_offset is None and cal.dark_offset:
+            args.dark_offset = dict(cal.dark_offset)
+            taken.append(
+                "dark offset " + ",".join(f"{k}={v:g}" for k, v in cal.dark_offset.items())
+            )
+    if taken:
+        _common.message(
+            f"flakebook: warning: from sample {sample.name} of {Path(args.project).name}: "
+            + "; ".join(taken)
+        )
+
+
 def _cmd_survey(args) -> int:
+    args.calibration_data = None
+    args.contrast_scale, args.contrast_scale_err = 1.0, 0.0
+    if args.project is not None and args.sample is not None:
+        _from_sample(args)
+    if args.calibration is not None:
+        from flakebook.cli.optics import _read_calibration
+
+        args.calibration_data = _read_calibration(args.calibration).to_dict()
+        if args.oxide_err_nm is not None:
+            raise InputError(
+                "--oxide-err-nm given beside --calibration, which sets the oxide error; "
+                "accepted: leave it out"
+            )
+    missing = [
+        o
+        for o, v in (
+            ("--material M", args.material),
+            ("--oxide-nm D or --substrate SPEC", args.oxide_nm or args.substrate),
+        )
+        if v is None
+    ]
+    if missing:
+        raise InputError(
+            f"survey needs {' and '.join(missing)}; or --project P --sample NAME to take them "
+            "from a project's sample"
+        )
     opts = _options(args)
     if args.project is not None:
         sink = _ProjectSink(args, opts)
@@ -414,9 +533,12 @@ def register(sub: argparse._SubParsersAction) -> None:
         description=__doc__.split("\n\n")[1].replace("\n", " "),
     )
     p.add_argument("paths", nargs="+", metavar="PATH", help="image files or folders")
-    p.add_argument("--material", required=True)
-    _add_substrate(p)
+    p.add_argument("--material", default=None, help="(with --project --sample: the sample's)")
+    _add_substrate(p, required=False)
     p.add_argument("--oxide-err-nm", type=float, default=None, help="oxide thickness s.d., nm")
+    p.add_argument(
+        "--calibration", default=None, metavar="CAL.json", help="a calibration from 'calibrate'"
+    )
     g = p.add_mutually_exclusive_group(required=True)
     g.add_argument("--scale-um-per-px", type=float, default=None, help="image scale")
     g.add_argument("--objective", default=None, help="objective preset name (e.g. 50x)")
@@ -427,8 +549,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument(
         "--dark-offset",
         type=float,
-        default=0.0,
-        help="camera dark offset, fraction of full scale (subtracted once)",
+        default=None,
+        help="camera dark offset, fraction of full scale (subtracted once; default 0, or the "
+        "sample's calibration with --project --sample)",
     )
     p.add_argument("--hole-radius-um", type=float, default=None, help="expected hole radius")
     p.add_argument("--no-holes", action="store_true", help="do not look for holes")

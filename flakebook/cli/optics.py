@@ -376,6 +376,28 @@ def _cmd_layers(args) -> int:
 def _cmd_calibrate(args) -> int:
     from flakebook.optics.calibration import KnownFlake, calibrate_layers
 
+    if args.project is not None:
+        from flakebook.cli.calibrate_project import cmd_calibrate_project
+
+        return cmd_calibrate_project(args)
+    missing = [
+        o
+        for o, v in (
+            ("--material M", args.material),
+            ("--oxide-nm D or --substrate SPEC", args.oxide_nm or args.substrate),
+            ("--wavelength-nm L or --channels srgb|mono", args.wavelength_nm or args.channels),
+            ("--csv KNOWN.csv", args.csv),
+        )
+        if v is None
+    ]
+    if missing:
+        raise InputError(
+            f"calibrate needs {', '.join(missing)}; or calibrate PROJECT --sample NAME to "
+            "calibrate from a project's flakes of known layer number"
+        )
+    if args.sample is not None or args.flakes is not None:
+        raise InputError("--sample and --flakes go with calibrate PROJECT (a project file)")
+
     material = _material(args)
     substrate = _substrate(args)
     mic = _microscope(args)
@@ -493,13 +515,24 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="fit oxide, contrast scale and n,k model to flakes of known layer number",
         description=CONTRAST_NOTE,
     )
-    p.add_argument("--material", required=True)
-    _add_substrate(p)
+    p.add_argument(
+        "project",
+        nargs="?",
+        default=None,
+        metavar="PROJECT",
+        help="a project: calibrate its sample from its flakes of known layer number",
+    )
+    p.add_argument("--sample", default=None, help="with PROJECT: the sample to calibrate")
+    p.add_argument(
+        "--flakes", default=None, metavar="ID,...", help="with PROJECT: the known flakes to use"
+    )
+    p.add_argument("--material", default=None)
+    _add_substrate(p, required=False)
     p.add_argument("--oxide-err-nm", type=float, default=None)
-    _add_light(p)
+    _add_light(p, required=False)
     p.add_argument(
         "--csv",
-        required=True,
+        default=None,
         metavar="KNOWN.csv",
         help="a layers --csv table plus a layers column",
     )

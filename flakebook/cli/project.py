@@ -10,6 +10,7 @@ import argparse
 import json
 import math
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from flakebook.cli._common import (
     Progress,
@@ -24,11 +25,15 @@ from flakebook.cli._common import (
     table_text,
 )
 from flakebook.errors import InputError
-from flakebook.store import DEFAULT_MAX_LAYERS, Project, record_to_dict
-from flakebook.store.outfile import write_file
-from flakebook.store.project import EXPORT_COLUMNS
-from flakebook.store.recompute import load_recomputers
 from flakebook.substrate import format_substrate, oxide_stack, parse_substrate
+
+if TYPE_CHECKING:
+    from flakebook.store import Project
+
+# The store (and numpy under it) is imported by the commands that run, not by the parser, so
+# ``flakebook --version`` and ``--help`` start quickly. The store's own default is
+# flakebook.store.DEFAULT_MAX_LAYERS (tests/cli/test_startup.py checks that they agree).
+DEFAULT_MAX_LAYERS = 15
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -129,6 +134,8 @@ def _show_warnings(project: Project) -> None:
 
 
 def _new(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+
     if args.oxide_nm is not None:
         positive_float("--oxide-nm", args.oxide_nm)
         stack = oxide_stack(args.oxide_nm)
@@ -162,6 +169,8 @@ def _new(args: argparse.Namespace) -> int:
 
 
 def _info(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+
     with Project.open(args.project, read_only=True) as project:
         _show_warnings(project)
         info = project.info()
@@ -199,6 +208,10 @@ def _info(args: argparse.Namespace) -> int:
 
 
 def _export(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+    from flakebook.store.outfile import write_file
+    from flakebook.store.project import EXPORT_COLUMNS
+
     with Project.open(args.project, read_only=True) as project:
         _show_warnings(project)
         rows = project.export_rows()
@@ -224,6 +237,8 @@ def _export(args: argparse.Namespace) -> int:
 
 
 def _pack(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+
     with Project.open(args.project) as project:
         _show_warnings(project)
         outside = project.images_outside_folder()
@@ -248,6 +263,8 @@ def _pack(args: argparse.Namespace) -> int:
 
 
 def _relink(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+
     with Project.open(args.project) as project:
         _show_warnings(project)
         result = project.relink(args.search, progress=Progress(), cancel=cancel_event())
@@ -268,6 +285,9 @@ def _relink(args: argparse.Namespace) -> int:
 
 
 def _recompute(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+    from flakebook.store.recompute import load_recomputers
+
     load_recomputers()
     with Project.open(args.project) as project:
         _show_warnings(project)
@@ -331,6 +351,8 @@ def _record_measured_evidence(args: argparse.Namespace) -> bool:
 
 
 def _assign(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+
     # Every option is checked before anything is stored.
     if args.layers is None and args.reason is not None:
         raise InputError("--reason goes with --layers N (the layer number you assign)")
@@ -357,6 +379,8 @@ def _assign(args: argparse.Namespace) -> int:
 
 
 def _show_evidence(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+
     with Project.open(args.project, read_only=True) as project:
         _show_warnings(project)
         flake = project.find_flake(args.flake)
@@ -482,6 +506,9 @@ def _most_likely(likelihood) -> str:
 
 
 def _handoff_export(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+    from flakebook.store.outfile import write_file
+
     keys = [k.strip() for k in args.flakes.split(",") if k.strip()]
     if not keys:
         raise InputError("--flakes is empty; accepted: flake IDs separated by commas")
@@ -495,6 +522,8 @@ def _handoff_export(args: argparse.Namespace) -> int:
 
 
 def _handoff_import(args: argparse.Namespace) -> int:
+    from flakebook.store import Project
+
     with Project.open(args.project) as project:
         _show_warnings(project)
         added = project.import_external_results(args.csv)
@@ -505,6 +534,8 @@ def _handoff_import(args: argparse.Namespace) -> int:
 
 
 def _result_fields(rec) -> dict:
+    from flakebook.store import record_to_dict
+
     data = record_to_dict(rec)
     return {
         k: data[k] for k in ("kappa_w_mk", "kappa_p16_w_mk", "kappa_p84_w_mk", "method", "note")

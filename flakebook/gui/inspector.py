@@ -226,9 +226,11 @@ class Inspector(QScrollArea):
         self.read_only = False
         self.calibrate_button = QPushButton("Calibrate optics from flakes of known N…", body)
         self.calibrate_button.setToolTip(
-            "Fit the oxide thickness, dark offsets and contrast scale from this sample's flakes "
-            "with a manual assignment"
+            "Fit the oxide thickness, contrast scale and n,k model from this sample's flakes "
+            "whose layer number is set by hand or confirmed"
         )
+        self.calibration_note = QLabel("", body)
+        self.calibration_note.setWordWrap(True)
         self.calibrate_button.clicked.connect(self.calibrateRequested)
 
         lay = QVBoxLayout(body)
@@ -251,6 +253,7 @@ class Inspector(QScrollArea):
         self.con_export.clicked.connect(lambda: self.exportPlotRequested.emit(self.con_plot))
         l2.addWidget(self.con_key)
         l2.addWidget(self.con_note)
+        l2.addWidget(self.calibration_note)
         l2.addWidget(self.decide)
         l2.addWidget(self.con_export)
         lay.addWidget(g2)
@@ -315,6 +318,7 @@ class Inspector(QScrollArea):
         )
         if stale:
             self.subtitle.setText(self.subtitle.text() + stale)
+        self.calibration_note.setText(f"Calibration in use: {flake.get('calibration') or 'none'}")
         self._show_posterior(flake)
         self._show_evidence(flake)
         self._show_contrast(flake)

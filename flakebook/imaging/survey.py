@@ -199,6 +199,7 @@ def survey_image(
     oxide_err_nm: float = 0.0,
     contrast_scale: float = 1.0,
     contrast_scale_err: float = 0.0,
+    calibration=None,
     background: str = "polynomial",
     reference: Micrograph | None = None,
     find_holes: bool = True,
@@ -224,6 +225,8 @@ def survey_image(
         max_layers: N_max of the likelihoods.
         dark_offset: the camera's dark offset (fraction of full scale), subtracted once.
         oxide_err_nm, contrast_scale, contrast_scale_err: passed to the layer likelihood.
+        calibration: a ``flakebook.optics.calibration.LayerCalibration`` (its oxide, error,
+            contrast scale and narrowed n,k model; the three above are then left at 0, 1, 0).
         background: ``"polynomial"``, ``"reference"`` (with ``reference``) or ``"none"``.
         find_holes: look for holes; ``hole_radius_um`` narrows the search to 0.6x-1.6x of it.
         hole: a ``flakebook.optics.substrate.Hole`` (bottom and depth) for suspended terraces.
@@ -346,6 +349,7 @@ def survey_image(
                 oxide_err_nm=oxide_err_nm,
                 contrast_scale=contrast_scale,
                 contrast_scale_err=contrast_scale_err,
+                calibration=calibration,
                 geometry=geometry,
                 hole=ohole if geometry == "suspended" else None,
                 saturated=sat_channels,

@@ -28,7 +28,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy.interpolate import CubicSpline
-from scipy.stats import chi2 as chi2_dist
+from scipy.special import chdtri
 
 from flakebook import __version__, evidence
 from flakebook.errors import InputError, check_cancel
@@ -649,7 +649,7 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     k0 = 0 if nodes is None or t0 is None else int(np.argmin(np.abs(nodes - t0)))
     model_c = s0 * mean[k0, 0, :max_layers]
     var0 = np.diagonal(base[k0, 0, :max_layers], axis1=-2, axis2=-1)  # (N, C)
-    thresh = float(chi2_dist.isf(1e-3, n_c))
+    thresh = float(chdtri(n_c, 1e-3))  # chi2 quantile with upper tail 1e-3
     sens = None
     if ctx["oxide_err_nm"] == 0 and ctx["oxide_grid"] is None and t0 is not None:
         sens = oxide_sensitivity(

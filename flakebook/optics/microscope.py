@@ -20,7 +20,6 @@ from __future__ import annotations
 import csv
 import functools
 import hashlib
-import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -45,20 +44,22 @@ _C2_CIE_A_NM_K = 1.435e7
 _C2_NM_K = 1.438776877e7  # CODATA 2018 second radiation constant
 
 
-def _colour():
-    """colour-science, imported only when needed (it is slow to import)."""
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        import colour
+@functools.lru_cache(maxsize=1)
+def _cie_tables() -> dict:
+    """The CIE tables of ``resources/cie_tables.json`` (illuminant A, the CIE 1931 2-degree
+    observer, the sRGB matrix), copied from colour-science and checked against it by the tests;
+    read from a file because importing colour-science takes about a second."""
+    import json
 
-    return colour
+    from flakebook._resources import resource_path
+
+    return json.loads(resource_path("cie_tables.json").read_text(encoding="utf-8"))
 
 
 @functools.lru_cache(maxsize=1)
 def _cie_a_table() -> tuple[np.ndarray, np.ndarray]:
-    colour = _colour()
-    sd = colour.SDS_ILLUMINANTS["A"]
-    return np.asarray(sd.wavelengths, float), np.asarray(sd.values, float)
+    sd = _cie_tables()["illuminant_a"]
+    return np.asarray(sd["wavelength_nm"], float), np.asarray(sd["value"], float)
 
 
 def cie_illuminant_a(wavelength_nm) -> np.ndarray:
@@ -246,11 +247,11 @@ class Channels:
 
 @functools.lru_cache(maxsize=1)
 def _srgb() -> Channels:
-    colour = _colour()
-    cmfs = colour.MSDS_CMFS["CIE 1931 2 Degree Standard Observer"]
-    w = np.asarray(cmfs.wavelengths, float)
-    xyz = np.asarray(cmfs.values, float)  # (W, 3)
-    m = np.asarray(colour.RGB_COLOURSPACES["sRGB"].matrix_XYZ_to_RGB, float)
+    tables = _cie_tables()
+    cmfs = tables["cie1931_2deg"]
+    w = np.asarray(cmfs["wavelength_nm"], float)
+    xyz = np.stack([np.asarray(cmfs[k], float) for k in "xyz"], axis=1)  # (W, 3)
+    m = np.asarray(tables["srgb_xyz_to_rgb"], float)
     table = (xyz @ m.T).T  # (3, W)
     table.setflags(write=False)
     return Channels("srgb", ("r", "g", "b"), w, table)

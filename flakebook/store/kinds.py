@@ -132,6 +132,8 @@ class RecordKinds:
             rec = dataclasses.replace(rec, created_at=self.now())
         if isinstance(rec, ExternalResult) and rec.imported_at is None:
             rec = dataclasses.replace(rec, imported_at=self.now())
+        if isinstance(rec, Calibration) and old is None and rec.created_at is None:
+            rec = dataclasses.replace(rec, created_at=self.now())
         return rec
 
     def _pixel_size_for(self, rec: Appearance | Terrace) -> float | None:

@@ -666,7 +666,9 @@ class Calibration(Record):
     """Calibrated optics of a sample (or one image): oxide thickness, dark offset, contrast scale.
 
     Dark offset and contrast scale are per camera channel (``{"r": ..., "g": ..., "b": ...}`` or
-    ``{"mono": ...}``), each with its uncertainty.
+    ``{"mono": ...}``), each with its uncertainty. ``model`` holds a layer calibration's whole
+    fit (the JSON of ``flakebook calibrate``: n,k coefficients, residuals, flakes used; empty for
+    older calibrations); ``created_at`` when it was made (the store fills it in).
     """
 
     KIND: ClassVar[str] = "calibration"
@@ -682,8 +684,11 @@ class Calibration(Record):
     contrast_scale_err: dict = _json()
     method: str = ""
     notes: str = ""
+    model: dict = _json()
+    created_at: str | None = None
 
     def __post_init__(self):
+        _set(self, "model", dict(self.model or {}))
         _number(self, "oxide_nm", positive=True, unit=" nm")
         _number(self, "oxide_err_nm", nonneg=True, unit=" nm")
         for name in ("dark_offset", "dark_offset_err", "contrast_scale", "contrast_scale_err"):

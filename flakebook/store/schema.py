@@ -17,6 +17,9 @@ Version history:
   4. spectrum fits (``spectrum_fits``: a stored spectrum's fit settings, fitted peaks, Si-line
      calibration and warnings, derived from the spectrum) and Raman/PL rule tables calibrated
      on a sample's own flakes (``rule_calibrations``).
+  5. a layer calibration keeps its whole fit (``calibrations.model``: the JSON of
+     ``flakebook calibrate``, with the n,k coefficients and residuals) and when it was made
+     (``calibrations.created_at``).
 """
 
 from __future__ import annotations
@@ -27,7 +30,7 @@ from collections.abc import Callable
 
 #: "FLKB": marks a SQLite file as a flakebook project.
 APPLICATION_ID = 0x464C4B42
-SCHEMA_VERSION = 4
+SCHEMA_VERSION = 5
 
 _PROVENANCE = """
     method TEXT NOT NULL DEFAULT '',
@@ -377,11 +380,19 @@ CREATE TABLE rule_calibrations (
 CREATE INDEX rule_calibrations_sample ON rule_calibrations(sample_id, laser_nm, id)
 """
 
+
+def _v4_to_v5(con: sqlite3.Connection) -> None:
+    """A calibration's whole fit and its date."""
+    con.execute("ALTER TABLE calibrations ADD COLUMN model TEXT NOT NULL DEFAULT '{}'")
+    con.execute("ALTER TABLE calibrations ADD COLUMN created_at TEXT")
+
+
 #: MIGRATIONS[v] brings a file from version v to v + 1 (run inside one transaction).
 MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {
     1: _v1_to_v2,
     2: _v2_to_v3,
     3: _v3_to_v4,
+    4: _v4_to_v5,
 }
 
 

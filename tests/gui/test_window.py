@@ -414,37 +414,6 @@ def test_pick_hole_and_delete_with_key(qtbot, window):
     assert len(p.holes_of(1)) == n
 
 
-def test_calibrate_from_known_flakes_then_recompute(qtbot, window):
-    """Flakes found, two set by hand to their known N, the optics calibrated from them.
-
-    Round trip, common practice: the micrograph was drawn from the optics model with 285 nm of
-    oxide and no dark offset, so the fitted oxide must come back near 285 nm. Then the contrast
-    evidence is stale and Recompute stale brings it up to date with the calibration.
-    """
-    p = window.session.project
-    n0 = len(p.flakes_of(1))
-    job = window.find_flakes()
-    qtbot.waitUntil(lambda: job.done.is_set() and not window.jobs.busy, timeout=20000)
-    found = p.flakes_of(1)[n0:]
-    known = [f for f in found if p.latest_assignment(f).layers in (1, 3)]
-    assert len(known) == 2, [
-        (f.label, p.latest_assignment(f).layers, p.latest_assignment(f).probability) for f in found
-    ]
-    for f in known:
-        window.assign(f.id, p.latest_assignment(f).layers, "known from its PL peak")
-    job = window.calibrate(1, "")
-    qtbot.waitUntil(lambda: job.done.is_set() and not window.jobs.busy, timeout=30000)
-    assert not window.errors, window.errors
-    cal = p.calibrations_of(1)[-1]
-    assert abs(cal.oxide_nm - 285.0) < max(3 * cal.oxide_err_nm, 1.0)
-    assert any(r["stale"] for r in window.catalogue.model.rows)
-    report = window.recompute_stale()
-    assert report.ok, report
-    assert not p.stale_records()
-    ev = p.evidence_of(known[0])[0]
-    assert "calibrated oxide" in ev.parameters["calibration"]
-
-
 def _area(poly):
     x, y = np.asarray(poly, float).T
     return 0.5 * abs(np.dot(x, np.roll(y, 1)) - np.dot(y, np.roll(x, 1)))

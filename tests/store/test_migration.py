@@ -131,7 +131,7 @@ def test_new_file_equals_migrated_v1_schema(tmp_path):
 
 
 def test_v3_file_takes_spectrum_fits_and_rule_calibrations(tmp_path):
-    """A version-3 file with a stored spectrum opens upgraded to version 4; the spectrum is kept
+    """A version-3 file with a stored spectrum opens upgraded to the current version; the spectrum is kept
     and the new tables take its fit and a calibrated rule table (common practice, no source)."""
     path = tmp_path / "v3.flakebook"
     _old_file(path, 3)
@@ -144,7 +144,7 @@ def test_v3_file_takes_spectrum_fits_and_rule_calibrations(tmp_path):
     )
     con.close()
     with Project.open(path) as p:
-        assert p.schema_version == 4
+        assert p.schema_version == SCHEMA_VERSION
         spec = p.get("spectrum", 1)
         assert np.array_equal(spec.x, x)
         fit = p.add_spectrum_fit(spec, settings={"peak_model": "voigt"}, method="m", inputs=[spec])

@@ -274,6 +274,11 @@ class Reads:
                 ]
                 if latest is not None and latest.manual
                 else []
+            )
+            + (
+                [{"method": "re-read", "reason": comp.reason, "source": ""}]
+                if comp is not None and comp.reason
+                else []
             ),
             "combined": None
             if report is None
@@ -284,6 +289,7 @@ class Reads:
             },
             "contrast": contrast,
             "contrast_err": contrast_err,
+            "calibration": _calibration_text(p, sample),
             "holes": holes,
             "appearances": [
                 (a.image_id, images.get(a.image_id, "?")) for a in p.appearances_of(fid)
@@ -376,3 +382,11 @@ class Reads:
             )
         out.sort(key=lambda d: -d["score"])
         return out
+
+
+def _calibration_text(project, sample) -> str:
+    """The sample's calibration in use, in words (oxide ± error, contrast scale, date)."""
+    from flakebook.pipeline import calibration_record
+    from flakebook.pipeline_calibration import calibration_summary
+
+    return calibration_summary(calibration_record(project, sample))

@@ -7,10 +7,7 @@ from __future__ import annotations
 
 import logging
 
-from PySide6.QtWidgets import QInputDialog
-
 from flakebook.gui.worker import Job
-from flakebook.specs import parse_channel_values
 
 log = logging.getLogger("flakebook.gui")
 
@@ -90,46 +87,64 @@ class Analysis:
         self.hint_label.setText(text)
         return report
 
-    def calibrate_dialog(self) -> None:
-        s = self._need_session()
-        sample_id = s.current_sample(self.current_image)
-        n = len(s.calibration_observations(sample_id))
-        text, ok = QInputDialog.getText(
-            self,
-            "Calibrate optics",
-            f"{n} flake(s) of known layer number (manual assignments) on this sample will be fitted.\n"
-            "Dark frame per channel as a fraction of full scale (e.g. r=0.012,g=0.011,b=0.013),\n"
-            "or empty: no dark frame, the dark offset is taken as 0 ± 0.005.",
-        )
-        if ok:
-            self.calibrate(sample_id, text)
+    def calibrate_dialog(self, *, show: bool = True):
+        """The layer-calibration dialog of the current sample: pick its flakes of known N, then
+        :meth:`calibrate` fits them in a worker. Returns the dialog (``show=False``: not run,
+        for tests)."""
+        from flakebook.gui.calibration_dialog import CalibrationDialog
+        from flakebook.pipeline import calibration_record
+        from flakebook.pipeline_calibration import calibration_summary, known_flakes
+        from flakebook.store import Sample
 
-    def calibrate(self, sample_id: int, dark_text: str = "") -> Job:
-        """Fit oxide, dark offsets and contrast scale (flakebook.optics.camera) in a worker."""
         s = self._need_session()
-        channels = ("r", "g", "b")
-        dark, dark_err = {c: 0.0 for c in channels}, {c: 0.005 for c in channels}
-        if dark_text.strip():
-            dark = parse_channel_values(dark_text, "Dark frame", channels)
-            dark_err = {k: 0.001 for k in dark}
-        run, n = s.calibration_job(sample_id, dark, dark_err)
-        job = Job(f"Calibrate optics ({n} flakes)", run)
+        sample = s.project.get(Sample, s.current_sample(self.current_image))
+        dialog = CalibrationDialog(
+            sample.name,
+            known_flakes(s.project, sample),
+            calibration_summary(calibration_record(s.project, sample)),
+            self,
+        )
+        if show and dialog.exec():
+            self.calibrate(sample.id, dialog.chosen())
+        return dialog
+
+    def calibrate(self, sample_id: int, labels: list[str] | None = None) -> Job:
+        """Fit the sample's layer calibration (flakebook.pipeline_calibration, as
+        ``flakebook calibrate PROJECT`` does) from the flakes ``labels`` (None: every usable
+        flake of known N) in a worker; the result is stored as one undoable edit."""
+        from flakebook.pipeline_calibration import calibration_job, store_layer_calibration
+        from flakebook.store import Sample
+
+        s = self._need_session()
+        p = s.project
+        sample = p.get(Sample, sample_id)
+        run, chosen = calibration_job(p, sample, labels)
+        job = Job(f"Calibrate layer numbers ({len(chosen)} flakes)", run)
 
         def done(cal):
             def do():
-                return s.store_calibration(sample_id, cal)
+                rec, _marked = store_layer_calibration(p, sample, cal)
 
-            self._guard(lambda: self.edit("Optics calibration", do), "Calibrate optics")
+                def undo():
+                    with p.transaction():
+                        p.delete("calibration", rec.id)
+
+                return undo
+
+            self._guard(lambda: self.edit("Layer calibration", do), "Calibrate layer numbers")
             msg = (
                 f"Oxide {cal.oxide_nm:.1f} ± {cal.oxide_err_nm:.1f} nm, contrast scale "
-                f"{cal.contrast_scale:.3f} ± {cal.contrast_scale_err:.3f} "
-                f"(chi² {cal.chi2:.3g} on {cal.dof} d.o.f.). Contrast evidence of this sample is "
-                "marked stale: Recompute stale (Ctrl+R) applies the calibration."
+                f"{cal.contrast_scale:.3f} ± {cal.contrast_scale_err:.3f} from "
+                f"{len(cal.flakes_used)} flakes of known N. The sample's contrast evidence is "
+                "marked stale: Recompute stale (Ctrl+R) re-reads it with the calibration."
             )
-            log.info("Calibrate optics: %s", msg)
+            for w in cal.warnings:
+                log.warning("Calibrate layer numbers: %s", w)
+            log.info("Calibrate layer numbers: %s", msg)
             self.hint_label.setText(msg)
+            self.refresh()
 
         self.jobs.start(
-            job, on_done=done, on_error=lambda e: self.report_error(e, "Calibrate optics")
+            job, on_done=done, on_error=lambda e: self.report_error(e, "Calibrate layer numbers")
         )
         return job
