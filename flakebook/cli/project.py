@@ -326,6 +326,8 @@ def _parse_layers(text: str) -> int:
 
 def _record_measured_evidence(args: argparse.Namespace) -> bool:
     """Record --afm-height-nm / --si-ratio as evidence and recombine; True if any was given."""
+    from flakebook.store import Project
+
     afm = (args.afm_height_nm, args.afm_height_err_nm)
     si = (args.si_ratio, args.si_ratio_err)
     for (value, err), name in ((afm, "--afm-height-nm"), (si, "--si-ratio")):

@@ -11,8 +11,6 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-import numpy as np
-
 from flakebook.cli._common import Progress, add_format_option, cancel_event, emit, positive_float
 from flakebook.errors import InputError
 
@@ -24,7 +22,7 @@ POLARIZATIONS = ("parallel", "crossed")
 
 def register(sub: argparse._SubParsersAction) -> None:
     """Add the spectrum commands."""
-    from flakebook.spectra.processing import BASELINE_METHODS
+    from flakebook.spectra import BASELINE_METHODS
 
     p = sub.add_parser(
         "spectrum",
@@ -251,8 +249,9 @@ def _text(payload: dict) -> str:
 # ---- maps ---------------------------------------------------------------------------------
 
 
-def _png(path: Path, values: np.ndarray) -> None:
+def _png(path: Path, values) -> None:
     import cv2
+    import numpy as np
 
     v = np.asarray(values, float)
     finite = np.isfinite(v)
@@ -272,6 +271,8 @@ def _png(path: Path, values: np.ndarray) -> None:
 def write_maps(result, out_dir: Path, stem: str) -> list[str]:
     """Each map as ``<stem>_<name>.npy``, ``.csv`` (rows along y, with x_um/y_um headers) and
     ``.png`` (viridis, NaN black); returns the file names."""
+    import numpy as np
+
     out_dir.mkdir(parents=True, exist_ok=True)
     files = []
     for name, values in result.maps.items():
@@ -289,6 +290,8 @@ def write_maps(result, out_dir: Path, stem: str) -> list[str]:
 
 
 def _spectrum_map(args) -> int:
+    import numpy as np
+
     from flakebook.spectra.io import read_map
     from flakebook.spectra.maps import analyse_map
 
@@ -340,6 +343,8 @@ def _spectrum_map(args) -> int:
 
 
 def _calibrate_rules(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from flakebook import pipeline
     from flakebook.spectra.rules import RuleTable, load_rule_table
     from flakebook.store import Project

@@ -39,19 +39,15 @@ def parse_show(text: str | None) -> tuple[str, str | None]:
     ``spectra:ID`` | ``thermal:ID`` -> (view, argument)."""
     from flakebook.gui.views import NAMES
 
-    accepted = ", ".join(
-        sorted([*(n for n in NAMES if n not in PER_FLAKE), "flake:ID", "spectra:ID", "thermal:ID"])
-    )
+    accepted = ", ".join(sorted([*NAMES, "flake:ID", *(f"{n}:ID" for n in PER_FLAKE)]))
     if not text:
         return "image", None
     view, _, arg = text.partition(":")
     view = view.strip().lower()
     if view in ("flake", *PER_FLAKE) and arg.strip():
         return view, arg.strip()
-    if view in NAMES and view not in PER_FLAKE and not arg:
-        return view, None
-    if view in PER_FLAKE:
-        raise InputError(f"--show {text}: the {view} view shows one flake; accepted: {view}:ID")
+    if view in NAMES and not arg:
+        return view, None  # a per-flake view without ID shows the selected flake (or none)
     named = accepted.replace("flake:ID", "flake:ID (a flake's name)")
     raise InputError(f"--show {text!r} is not a view; accepted: {named}")
 

@@ -32,6 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from flakebook.errors import InputError
+from flakebook.spectra import BASELINE_METHODS
 
 __all__ = [
     "SI_LINE_CM1",
@@ -46,16 +47,6 @@ __all__ = [
 ]
 
 SI_LINE_CM1 = 520.7
-BASELINE_METHODS = (
-    "imodpoly",
-    "modpoly",
-    "poly",
-    "masked_poly",
-    "asls",
-    "arpls",
-    "airpls",
-    "snip",
-)
 
 
 @dataclass(frozen=True)

@@ -169,7 +169,7 @@ class KappaView(QWidget):
 VIEW = View(
     "κ vs N",
     "kappa_view",
-    "Ctrl+4",
+    "Ctrl+5",
     "κ &versus layers",
     "showKappa",
     "Show thermal conductivity against layer number",

@@ -249,7 +249,7 @@ class ThermalView(QWidget):
 VIEW = View(
     "Thermometry",
     "thermal",
-    "Ctrl+3",
+    "Ctrl+4",
     "&Thermometry",
     "showThermal",
     "Show the thermometry of the selected membrane",
