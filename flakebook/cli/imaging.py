@@ -19,11 +19,14 @@ from pathlib import Path
 from flakebook.cli import _common
 from flakebook.cli.optics import (
     CONTRAST_NOTE,
+    MATERIAL_HELP,
+    OXIDE_ERR_HELP,
     _add_light,
     _add_substrate,
     _material,
     _microscope,
     _substrate,
+    add_hole_options,
 )
 from flakebook.errors import Cancelled, InputError
 
@@ -414,16 +417,26 @@ def register(sub: argparse._SubParsersAction) -> None:
         description=__doc__.split("\n\n")[1].replace("\n", " "),
     )
     p.add_argument("paths", nargs="+", metavar="PATH", help="image files or folders")
-    p.add_argument("--material", required=True)
+    p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p)
-    p.add_argument("--oxide-err-nm", type=float, default=None, help="oxide thickness s.d., nm")
+    p.add_argument("--oxide-err-nm", type=float, default=None, help=OXIDE_ERR_HELP)
     g = p.add_mutually_exclusive_group(required=True)
     g.add_argument("--scale-um-per-px", type=float, default=None, help="image scale")
     g.add_argument("--objective", default=None, help="objective preset name (e.g. 50x)")
     _add_light(p)
-    p.add_argument("--min-area-um2", type=float, default=20.0)
+    p.add_argument(
+        "--min-area-um2",
+        type=float,
+        default=20.0,
+        help="smallest flake reported, in square micrometres (default 20)",
+    )
     p.add_argument("--target-layers", default="1-3", help="layer numbers to rank by (1-3)")
-    p.add_argument("--max-layers", type=int, default=15)
+    p.add_argument(
+        "--max-layers",
+        type=int,
+        default=15,
+        help="N_max: likelihoods run over 1..N_max plus one bin for more (default 15)",
+    )
     p.add_argument(
         "--dark-offset",
         type=float,
@@ -432,8 +445,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--hole-radius-um", type=float, default=None, help="expected hole radius")
     p.add_argument("--no-holes", action="store_true", help="do not look for holes")
-    p.add_argument("--hole-bottom", choices=("si", "au", "open"), default=None)
-    p.add_argument("--hole-depth-nm", type=float, default=None)
+    add_hole_options(p)
     p.add_argument("--project", default=None, metavar="P", help="also store the results here")
     p.add_argument(
         "--sample", default=None, help="the project's sample the images are of (with --project)"

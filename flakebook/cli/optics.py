@@ -14,6 +14,9 @@ from flakebook.cli import _common
 from flakebook.errors import InputError
 from flakebook.specs import parse_channel_values
 
+MATERIAL_HELP = "the flake's material, e.g. MoSe2 ('flakebook materials' lists them)"
+OXIDE_ERR_HELP = "standard deviation of the oxide thickness in nm (default 0: exact)"
+
 CONTRAST_NOTE = (
     "contrast C = 1 - (integral R_flake I S)/(integral R_reference I S), reference: bare "
     "substrate; positive when the flake is darker"
@@ -25,14 +28,36 @@ CONTRAST_NOTE = (
 
 def _add_substrate(p: argparse.ArgumentParser, *, required: bool = True) -> None:
     g = p.add_mutually_exclusive_group(required=required)
-    g.add_argument("--oxide-nm", type=float, help="SiO2 thickness on Si, nm")
+    g.add_argument("--oxide-nm", type=float, metavar="D", help="SiO2 thickness on Si, in nm")
     g.add_argument("--substrate", metavar="SPEC", help="films top down, e.g. SiO2:285,Si")
 
 
 def _add_geometry(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--geometry", choices=("supported", "suspended"), default="supported")
-    p.add_argument("--hole-bottom", choices=("si", "au", "open"), default=None)
-    p.add_argument("--hole-depth-nm", type=float, default=None)
+    p.add_argument(
+        "--geometry",
+        choices=("supported", "suspended"),
+        default="supported",
+        help="supported: the flake lies on the substrate; suspended: over a hole "
+        "(default supported)",
+    )
+    add_hole_options(p)
+
+
+def add_hole_options(p: argparse.ArgumentParser) -> None:
+    """``--hole-bottom`` and ``--hole-depth-nm`` (INTERFACE.md)."""
+    p.add_argument(
+        "--hole-bottom",
+        choices=("si", "au", "open"),
+        default=None,
+        help="si: etched down to the Si; au: a gold layer at the bottom; open: a through-hole "
+        "(default si)",
+    )
+    p.add_argument(
+        "--hole-depth-nm",
+        type=float,
+        default=None,
+        help="the hole's depth in nm (for si and au; default for si: the layers above the Si)",
+    )
 
 
 def _add_light(p: argparse.ArgumentParser, *, required: bool = True) -> None:
@@ -462,7 +487,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "contrast", help="model optical contrast versus layer number", description=CONTRAST_NOTE
     )
-    p.add_argument("--material", required=True)
+    p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p)
     p.add_argument("--layers", required=True, help="range 1-10 or list 1,2,5")
     _add_light(p)
@@ -473,17 +498,22 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "layers", help="layer number from measured contrast", description=CONTRAST_NOTE
     )
-    p.add_argument("--material", required=True)
+    p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p, required=False)
     p.add_argument(
         "--calibration", default=None, metavar="CAL.json", help="a calibration from 'calibrate'"
     )
-    p.add_argument("--oxide-err-nm", type=float, default=None)
+    p.add_argument("--oxide-err-nm", type=float, default=None, help=OXIDE_ERR_HELP)
     _add_light(p, required=False)
     p.add_argument("--contrast", default=None, help="C, or r=C1,g=C2,b=C3 for channels")
     p.add_argument("--contrast-err", default=None, help="E, or r=E1,g=E2,b=E3")
     p.add_argument("--csv", default=None, metavar="FILE", help="one measurement a row")
-    p.add_argument("--max-layers", type=int, default=15)
+    p.add_argument(
+        "--max-layers",
+        type=int,
+        default=15,
+        help="N_max: likelihoods run over 1..N_max plus one bin for more (default 15)",
+    )
     _add_geometry(p)
     _common.add_format_option(p, csv_ok=True)
     p.set_defaults(func=_cmd_layers)
@@ -493,9 +523,9 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="fit oxide, contrast scale and n,k model to flakes of known layer number",
         description=CONTRAST_NOTE,
     )
-    p.add_argument("--material", required=True)
+    p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p)
-    p.add_argument("--oxide-err-nm", type=float, default=None)
+    p.add_argument("--oxide-err-nm", type=float, default=None, help=OXIDE_ERR_HELP)
     _add_light(p)
     p.add_argument(
         "--csv",
@@ -503,7 +533,9 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="KNOWN.csv",
         help="a layers --csv table plus a layers column",
     )
-    p.add_argument("--out", default=None, metavar="CAL.json")
+    p.add_argument(
+        "--out", default=None, metavar="CAL.json", help="also write the calibration to this file"
+    )
     _common.add_format_option(p)
     p.set_defaults(func=_cmd_calibrate)
 
@@ -513,11 +545,20 @@ def register(sub: argparse._SubParsersAction) -> None:
         description="Fraction of the incident laser power absorbed in the flake. Follow your "
         "institution's laser-safety rules and local regulations.",
     )
-    p.add_argument("--material", required=True)
-    p.add_argument("--layers", type=int, required=True)
-    p.add_argument("--laser-nm", type=float, required=True)
+    p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
+    p.add_argument(
+        "--layers", type=int, required=True, metavar="N", help="the flake's layer number"
+    )
+    p.add_argument(
+        "--laser-nm", type=float, required=True, help="the laser line's wavelength in nm, e.g. 532"
+    )
     _add_substrate(p, required=False)
     _add_geometry(p)
-    p.add_argument("--na-objective", type=float, default=0.0)
+    p.add_argument(
+        "--na-objective",
+        type=float,
+        default=0.0,
+        help="NA of the objective focusing the laser (default 0: a plane wave at normal incidence)",
+    )
     _common.add_format_option(p)
     p.set_defaults(func=_cmd_absorptance)

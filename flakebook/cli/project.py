@@ -54,36 +54,36 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=_new)
 
     p = sub.add_parser("info", help="summarise a project")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     add_format_option(p)
     p.set_defaults(func=_info)
 
     p = sub.add_parser("export", help="the catalogue of flakes as JSON or CSV")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     add_format_option(p, csv_ok=True)
     p.add_argument("--out", metavar="FILE", help="write to FILE instead of stdout")
     p.set_defaults(func=_export)
 
     p = sub.add_parser("pack", help="embed every image so the project file stands alone")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     add_format_option(p)
     p.set_defaults(func=_pack)
 
     p = sub.add_parser("relink", help="find moved or changed images again by their hash")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     p.add_argument("--search", required=True, metavar="DIR", help="folder to search (recursively)")
     add_format_option(p)
     p.set_defaults(func=_relink)
 
     p = sub.add_parser("recompute", help="bring stale evidence and results up to date")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     add_format_option(p)
     p.set_defaults(func=_recompute)
 
     p = sub.add_parser(
         "assign", help="show a flake's layer evidence, or assign its layer number by hand"
     )
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     p.add_argument("--flake", required=True, metavar="ID", help="the flake's ID")
     p.add_argument("--layers", metavar="N", help="the layer number to assign")
     p.add_argument("--reason", metavar="TEXT", help="why (required with --layers)")
@@ -93,12 +93,12 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("handoff", help="exchange flakes and results with an outside analysis")
     hsub = p.add_subparsers(dest="handoff_command", metavar="export|import", required=True)
     h = hsub.add_parser("export", help="write a JSON bundle of flakes")
-    h.add_argument("project")
+    h.add_argument("project", help="the project file (.flakebook)")
     h.add_argument("--flakes", required=True, metavar="ID,...", help="flake IDs, comma-separated")
-    h.add_argument("--out", required=True, metavar="FILE.json")
+    h.add_argument("--out", required=True, metavar="FILE.json", help="the bundle to write (JSON)")
     h.set_defaults(func=_handoff_export)
     h = hsub.add_parser("import", help="import a CSV of results keyed by flake ID")
-    h.add_argument("project")
+    h.add_argument("project", help="the project file (.flakebook)")
     h.add_argument(
         "csv",
         metavar="FILE.csv",

@@ -1,0 +1,180 @@
+"""What the command line tells its user: help on every option, short messages for bad numbers,
+no library warnings, and internal errors that say what to do next (INTERFACE.md exit codes and
+messages of at most three lines; common practice, no source)."""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from flakebook.cli import build_parser, main
+
+
+def run(capsys, *argv):
+    """Exit code, stdout and stderr of one command (a parse error is an exit code too)."""
+    try:
+        code = main([str(a) for a in argv])
+    except SystemExit as exc:  # argparse's own exit (--help, or an error before the fix)
+        code = exc.code
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def _short_refusal(code, err, *fragments):
+    lines = err.strip().splitlines()
+    assert code == 2, err
+    assert 1 <= len(lines) <= 3, err
+    assert "usage:" not in err and "Traceback" not in err, err
+    for f in fragments:
+        assert f in err, err
+
+
+# ---- item 12: a line of help for every option ------------------------------------------------
+
+
+def _walk(parser: argparse.ArgumentParser, path: str):
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            helped = {a.dest: a.help for a in action._choices_actions}
+            for name, sub in action.choices.items():
+                yield f"{path} {name}", "(the command itself)", helped.get(name)
+                yield from _walk(sub, f"{path} {name}")
+            continue
+        if isinstance(action, argparse._HelpAction):
+            continue
+        name = "/".join(action.option_strings) or action.dest
+        yield path, name, action.help
+
+
+def test_every_option_of_every_command_has_a_line_of_help():
+    """`flakebook COMMAND --help` lists each option with a line of help (INTERFACE.md). Options
+    hidden on purpose (help=argparse.SUPPRESS: the watcher's timing knobs) are left out."""
+    missing = [
+        f"{cmd}: {name}"
+        for cmd, name, text in _walk(build_parser(), "flakebook")
+        if text is not argparse.SUPPRESS and not (text or "").strip()
+    ]
+    assert missing == [], "options without help:\n" + "\n".join(missing)
+
+
+# ---- item 12: bad numbers get one short message ----------------------------------------------
+
+
+NEW = ["new", "PROJECT", "--sample", "S1", "--material", "MoSe2"]
+LAYERS = ["layers", "--material", "MoSe2", "--wavelength-nm", "600", "--contrast", "0.1"]
+
+
+@pytest.mark.parametrize(
+    "argv, fragments",
+    [
+        ([*NEW, "--oxide-nm", "abc"], ["--oxide-nm", "'abc' is not a number", "accepted"]),
+        ([*NEW, "--oxide-nm", "nan"], ["--oxide-nm", "'nan'", "accepted"]),
+        ([*NEW, "--oxide-nm", "-inf"], ["--oxide-nm", "'-inf'", "accepted"]),
+        ([*NEW, "--oxide-nm", "inf"], ["--oxide-nm", "'inf'", "accepted"]),
+        (
+            [*NEW, "--oxide-nm", "285", "--max-layers", "1.5"],
+            ["--max-layers", "'1.5' is not a whole number", "accepted"],
+        ),
+        ([*LAYERS, "--oxide-nm", "285", "--max-layers", "x"], ["--max-layers", "accepted"]),
+        ([*LAYERS, "--oxide-nm", "2e2", "--na-illumination", "nan"], ["--na-illumination"]),
+        ([*LAYERS, "--oxide-nm"], ["--oxide-nm", "expected one argument"]),
+        (["layers", "--oxide-nm", "285"], ["--material", "required"]),
+        ([*LAYERS, "--oxide-nm", "285", "--geometry", "flat"], ["--geometry", "'flat'"]),
+        (["no-such-command"], ["no-such-command"]),
+    ],
+)
+def test_bad_numbers_and_options_get_a_short_message(tmp_path, capsys, argv, fragments):
+    """A number that is not one, a whole number given as 1.5, nan and +-inf, a missing value:
+    exit 2 with at most three lines naming the option, what is wrong and what is accepted, not
+    argparse's usage text; nothing is created."""
+    argv = [str(tmp_path / "p") if a == "PROJECT" else a for a in argv]
+    code, out, err = run(capsys, *argv)
+    _short_refusal(code, err, *fragments)
+    assert out == "" and list(tmp_path.iterdir()) == []
+
+
+def test_a_negative_number_in_scientific_notation_is_a_value(capsys):
+    """`--dark-offset -1e-3` reaches the command's own check (a value below the accepted range)
+    instead of being taken for an option (common practice, no source)."""
+    code, _, err = run(
+        capsys,
+        "survey",
+        "nothing.png",
+        "--material",
+        "MoSe2",
+        "--oxide-nm",
+        "285",
+        "--scale-um-per-px",
+        "0.1",
+        "--channels",
+        "srgb",
+        "--dark-offset",
+        "-1e-3",
+    )
+    _short_refusal(code, err, "--dark-offset", "accepted")
+
+
+def test_help_still_works(capsys):
+    code, out, _ = run(capsys, "new", "--help")
+    assert code == 0 and "--oxide-nm" in out
+
+
+# ---- item 12: no numpy warnings on the terminal ----------------------------------------------
+
+
+def test_numpy_warnings_never_reach_the_terminal():
+    """A command whose numbers overflow or divide by zero prints its result, not numpy's
+    RuntimeWarning (the runner silences them; core code reports its own warnings)."""
+    code = (
+        "import argparse, sys, numpy as np\n"
+        "from flakebook.cli import _common\n"
+        "def cmd(args):\n"
+        "    np.log(np.zeros(2)); np.ones(1) / 0; np.exp(np.array([1e4]))\n"
+        "    print('done')\n"
+        "sys.exit(_common.run(cmd, argparse.Namespace()))\n"
+    )
+    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert res.returncode == 0 and res.stdout == "done\n"
+    assert res.stderr == "", res.stderr
+
+
+# ---- item 12: internal errors say what to do next and where the log is ------------------------
+
+
+def _boom(args):
+    raise ZeroDivisionError("float division by zero")
+
+
+def test_internal_error_names_its_log_and_what_to_do(monkeypatch, capsys, tmp_path):
+    """Exit 1: at most three lines saying it is flakebook's fault, where the traceback was
+    written (the user's state folder, XDG_STATE_HOME) and what to do; --debug shows it."""
+    import flakebook.cli.optics as optics
+
+    state = tmp_path / "state"
+    monkeypatch.setenv("XDG_STATE_HOME", str(state))
+    monkeypatch.setattr(optics, "_cmd_materials", _boom)
+    code, out, err = run(capsys, "materials")
+    lines = err.strip().splitlines()
+    assert code == 1 and out == "" and 1 <= len(lines) <= 3, err
+    assert "Traceback" not in err and "--debug" in err
+    logs = list(state.rglob("*.log"))
+    assert len(logs) == 1 and str(logs[0]) in err, err
+    text = logs[0].read_text(encoding="utf-8")
+    assert "Traceback" in text and "ZeroDivisionError" in text and "materials" in text
+
+    code, _, err = run(capsys, "--debug", "materials")
+    assert code == 1 and "Traceback" in err and "ZeroDivisionError" in err
+
+
+def _sha(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def _json(out: str):
+    return json.loads(out)
