@@ -98,11 +98,16 @@ def survey_one(path: str, opts: dict, cancel=None, progress=None, keep: bool = F
 
 def _worker_init() -> None:  # pragma: no cover - runs in worker processes
     import signal
+    import warnings
 
     import cv2
+    import numpy as np
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
     cv2.setNumThreads(1)
+    _common.quiet_libraries()
+    np.seterr(all="ignore")  # as in the parent's runner: results carry their own warnings
+    warnings.simplefilter("ignore")
 
 
 def _worker(path: str, opts: dict, keep: bool = False) -> dict:  # pragma: no cover - worker
@@ -161,6 +166,11 @@ def _options(args) -> dict:
         )
     if args.hole_radius_um is not None:
         _common.positive_float("--hole-radius-um", args.hole_radius_um)
+    if args.workers is not None and args.workers < 1:
+        raise InputError(
+            f"--workers {args.workers} is not allowed; accepted: 1 or more worker processes "
+            "(leave it out to use every core)"
+        )
     if args.oxide_err_nm is not None:
         _common.positive_float("--oxide-err-nm", args.oxide_err_nm, allow_zero=True)
     opts = {

@@ -210,6 +210,12 @@ def _read_layers_csv(path: str, channels: tuple[str, ...], single: bool, known: 
         raise InputError(f"{p}: no contrast column; accepted: id and {need}")
     rows = []
     for i, row in enumerate(reader, start=2):
+        if None in row:  # DictReader keeps the cells beyond the header under the key None
+            cells = len(header) + len(row[None])
+            raise InputError(
+                f"{p} line {i}: {cells} cells but the header has {len(header)} columns; "
+                f"accepted: one cell a column ({', '.join(header)})"
+            )
         row = {(k or "").strip(): (v or "").strip() for k, v in row.items()}
         c, e = {}, {}
         for ch, (ccol, ecol) in present.items():

@@ -121,14 +121,13 @@ def _new(args: argparse.Namespace) -> int:
         stack = parse_substrate(args.substrate)
     if not args.sample.strip():
         raise InputError("--sample is empty; accepted: the chip's name, e.g. K7-north")
-    if not args.material.strip():
-        raise InputError("--material is empty; accepted: a material name, e.g. MoSe2")
+    material = _known_material(args.material)
     if args.max_layers < 1:
         raise InputError(f"--max-layers {args.max_layers} is not allowed; accepted: 1 or more")
     project = Project.create(args.project, max_layers=args.max_layers)
     path = project.path
     try:
-        project.add_sample(args.sample, args.material, stack)
+        project.add_sample(args.sample, material, stack)
     except BaseException:
         project.close()
         path.unlink(missing_ok=True)  # the file this command made, and nothing else
@@ -137,13 +136,30 @@ def _new(args: argparse.Namespace) -> int:
     payload = {
         "project": str(path),
         "sample": args.sample,
-        "material": args.material,
+        "material": material,
         "substrate": [layer.to_dict() for layer in stack],
     }
     emit(
         args, payload, text=f"created {path} with sample {args.sample} ({format_substrate(stack)})"
     )
     return 0
+
+
+def _known_material(name: str) -> str:
+    """The material's name as the library spells it; InputError listing the known ones."""
+    from flakebook.optics.materials import get_material, list_materials
+
+    if not name.strip():
+        raise InputError("--material is empty; accepted: a material name, e.g. MoSe2")
+    try:
+        material = get_material(name)
+    except InputError:
+        known = ", ".join(m.name for m in list_materials() if m.layer_spacing_nm)
+        raise InputError(
+            f"--material {name!r} is not in the material library; accepted: {known}, or a .csv "
+            "file of wavelength_nm,n,k ('flakebook materials' lists every material)"
+        ) from None
+    return name.strip() if name.strip().lower().endswith(".csv") else material.name
 
 
 def _info(args: argparse.Namespace) -> int:
@@ -279,13 +295,17 @@ def _recompute(args: argparse.Namespace) -> int:
     return 0
 
 
-def _parse_layers(text: str) -> int:
+def _parse_layers(text: str, max_layers: int) -> int:
+    """``--layers`` of ``assign``: a whole number from 1 to the project's N_max."""
     try:
         value = int(text)
     except ValueError:
         value = 0
-    if value < 1:
-        raise InputError(f"--layers {text!r} is not a layer number; accepted: a whole number >= 1")
+    if not 1 <= value <= max_layers:
+        raise InputError(
+            f"--layers {text} is not a layer number of this project; accepted: a whole number "
+            f"from 1 to {max_layers} (the project's N_max)"
+        )
     return value
 
 
@@ -294,11 +314,11 @@ def _assign(args: argparse.Namespace) -> int:
         if args.reason is not None:
             raise InputError("--reason goes with --layers N (the layer number you assign)")
         return _show_evidence(args)
-    layers = _parse_layers(args.layers)
     if not (args.reason or "").strip():
         raise InputError("--layers needs --reason TEXT: a manual assignment keeps why it was made")
     with Project.open(args.project) as project:
         _show_warnings(project)
+        layers = _parse_layers(args.layers, project.max_layers)
         flake = project.find_flake(args.flake)
         asg = project.assign(flake, layers, reason=args.reason)
     payload = {

@@ -178,3 +178,154 @@ def _sha(path: Path) -> str:
 
 def _json(out: str):
     return json.loads(out)
+
+
+# ---- item 14: files that used to crash -------------------------------------------------------
+
+
+def test_layers_csv_row_with_more_cells_than_the_header(tmp_path, capsys):
+    """A row with more cells than the header is refused naming its line and the two counts
+    (exit 2), not an internal error."""
+    path = tmp_path / "m.csv"
+    path.write_text("id,contrast,contrast_err\nF-01,0.40,0.02\nF-02,0.41,0.02,0.7,extra\n")
+    code, out, err = run(
+        capsys,
+        "layers",
+        "--material",
+        "MoSe2",
+        "--oxide-nm",
+        "285",
+        "--wavelength-nm",
+        "550",
+        "--csv",
+        path,
+        "--format",
+        "json",
+    )
+    _short_refusal(code, err, "m.csv", "line 3", "5 cells", "3 columns")
+    assert out == ""
+
+
+# ---- item 15: values that must be refused ------------------------------------------------------
+
+
+def test_new_refuses_an_unknown_material_listing_the_known_ones(tmp_path, capsys):
+    code, out, err = run(
+        capsys, "new", tmp_path / "p", "--sample", "S1", "--material", "MoSe3", "--oxide-nm", "285"
+    )
+    _short_refusal(code, err, "'MoSe3'", "MoSe2", "WS2", "hBN")
+    assert out == "" and list(tmp_path.iterdir()) == []
+
+
+@pytest.fixture
+def project(tmp_path, capsys):
+    """A project (N_max 15) with one flake, made by `new` and the store's API."""
+    from flakebook.store import Project
+
+    code, out, err = run(
+        capsys,
+        "new",
+        tmp_path / "k9",
+        "--sample",
+        "Q3-east",
+        "--material",
+        "WSe2",
+        "--oxide-nm",
+        "90",
+        "--format",
+        "json",
+    )
+    assert code == 0, err
+    path = Path(_json(out)["project"])
+    with Project.open(path) as p:
+        p.add_flake(p.sample_by_name("Q3-east"), "Q3E-001")
+    return path
+
+
+@pytest.mark.parametrize(
+    "layers, fragments",
+    [
+        ("99", ["--layers 99", "1 to 15"]),
+        ("16", ["--layers 16", "1 to 15"]),
+        ("0", ["--layers", "1 to 15"]),
+        ("1.5", ["--layers", "1 to 15"]),
+    ],
+)
+def test_assign_refuses_layers_beyond_the_projects_maximum(project, capsys, layers, fragments):
+    """The project's N_max is 15: `assign --layers` accepts 1..15; the file is unchanged."""
+    before = _sha(project)
+    code, out, err = run(
+        capsys, "assign", project, "--flake", "Q3E-001", "--layers", layers, "--reason", "AFM"
+    )
+    _short_refusal(code, err, *fragments)
+    assert _sha(project) == before and out == ""
+
+
+def test_assign_accepts_the_maximum(project, capsys):
+    code, out, err = run(
+        capsys, "assign", project, "--flake", "Q3E-001", "--layers", "15", "--reason", "AFM"
+    )
+    assert code == 0, err
+
+
+@pytest.mark.parametrize("workers", ["0", "-2"])
+def test_survey_refuses_zero_or_negative_workers(tmp_path, capsys, workers):
+    code, out, err = run(
+        capsys,
+        "survey",
+        tmp_path,
+        "--material",
+        "MoSe2",
+        "--oxide-nm",
+        "285",
+        "--scale-um-per-px",
+        "0.1",
+        "--channels",
+        "srgb",
+        "--workers",
+        workers,
+    )
+    _short_refusal(code, err, f"--workers {workers}", "accepted", "1 or more")
+
+
+def test_survey_with_a_project_refuses_bad_workers_and_leaves_the_file(project, tmp_path, capsys):
+    before = _sha(project)
+    code, _, err = run(
+        capsys,
+        "survey",
+        tmp_path,
+        "--material",
+        "WSe2",
+        "--oxide-nm",
+        "90",
+        "--scale-um-per-px",
+        "0.1",
+        "--channels",
+        "srgb",
+        "--workers",
+        "0",
+        "--project",
+        project,
+    )
+    _short_refusal(code, err, "--workers 0")
+    assert _sha(project) == before
+
+
+@pytest.mark.parametrize("text", ["1,,2", ",1", "1,", "1-", "-3", "2-1", "1-2-3", " , "])
+def test_contrast_refuses_a_malformed_layer_list(capsys, text):
+    """`--layers 1,,2` (an empty item) and other malformed lists are refused (exit 2) with the
+    accepted forms, not read as 1,2."""
+    code, out, err = run(
+        capsys,
+        "contrast",
+        "--material",
+        "MoSe2",
+        "--oxide-nm",
+        "285",
+        "--layers",
+        text,
+        "--wavelength-nm",
+        "550",
+    )
+    _short_refusal(code, err, "--layers", "1-10", "1,2,5")
+    assert out == ""
