@@ -23,6 +23,7 @@ from flakebook.errors import Cancelled, FlakebookError, InputError
 
 # The parsers the window shares live below both (re-exported for the commands).
 from flakebook.specs import parse_layer_range, positive_float  # noqa: F401
+from flakebook.wording import number_text, probability_text
 
 EXIT_OK = 0
 EXIT_INTERNAL = 1
@@ -131,11 +132,19 @@ def dumps(payload: Any) -> str:
     return json.dumps(_clean(payload), ensure_ascii=False, allow_nan=False)
 
 
-def _fmt_cell(value: Any) -> str:
+def _is_probability(column: str) -> bool:
+    return column == "probability" or column.startswith("p_") or column.endswith("_probability")
+
+
+def _fmt_cell(value: Any, column: str = "") -> str:
+    """A table cell: probabilities as 0.76 / < 0.01, other numbers to 4 significant figures
+    (the table is for reading; JSON and CSV keep full precision)."""
     if value is None:
         return "-"
+    if isinstance(value, float | int) and not isinstance(value, bool) and _is_probability(column):
+        return probability_text(value)
     if isinstance(value, float):
-        return f"{value:.6g}"
+        return number_text(value)
     if isinstance(value, list | tuple):
         if len(value) > 6:
             return "[" + ", ".join(_fmt_cell(v) for v in value[:6]) + ", ...]"
@@ -152,7 +161,7 @@ def table_text(rows: Sequence[dict[str, Any]], columns: Sequence[str] | None = N
         return "(none)"
     if columns is None:
         columns = list(rows[0].keys())
-    cells = [[_fmt_cell(r.get(c)) for c in columns] for r in rows]
+    cells = [[_fmt_cell(r.get(c), c) for c in columns] for r in rows]
     widths = [max(len(c), *(len(row[i]) for row in cells)) for i, c in enumerate(columns)]
     lines = ["  ".join(c.ljust(w) for c, w in zip(columns, widths))]
     lines.append("  ".join("-" * w for w in widths))

@@ -1,10 +1,11 @@
 """Imaging commands: ``flakebook survey`` (INTERFACE.md).
 
-Surveys micrographs: finds flakes and their terraces, measures each terrace's optical contrast
-(C = 1 - I_flake / I_substrate per channel after the dark offset, the reference being the bare
-substrate of the same image: positive when the flake is darker), gives its likelihood over layer
-number from the thin-film model, finds the holes and ranks the terraces by the probability of
-having a layer number in ``--target-layers``. A folder is surveyed with worker processes (both
+Surveys micrographs: finds flakes and their terraces (regions of uniform thickness; the JSON
+lists them under "regions"), measures each terrace's optical contrast (C = (R_reference -
+R_flake)/R_reference per channel after the dark offset is subtracted, the reference being the
+bare substrate in the same image; positive when the flake is darker), gives its likelihood over
+layer number from the thin-film model, finds the holes and ranks the terraces by the probability
+of having a layer number in ``--target-layers``. A folder is surveyed with worker processes (both
 cores); ``--watch`` surveys each new file once the camera has finished writing it.
 """
 
@@ -29,6 +30,7 @@ from flakebook.cli.optics import (
     add_hole_options,
 )
 from flakebook.errors import Cancelled, InputError
+from flakebook.wording import layers_text
 
 IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
 
@@ -135,15 +137,18 @@ def _failed_image(path: str, message: str) -> dict:
     return {"path": path, "regions": [], "holes": [], "warnings": [f"not surveyed: {message}"]}
 
 
-def _rows(images: list[dict]) -> list[dict]:
+def _rows(images: list[dict], max_layers: int, table: bool = True) -> list[dict]:
+    """One row a terrace (a "region" of the JSON); for a table with layer numbers as 3L/>15L."""
     rows = []
     for im in images:
         for r in im["regions"]:
+            layers = r["layers"]
             rows.append(
                 {
                     "path": Path(im["path"]).name if im["path"] else "-",
-                    "id": r["id"],
-                    "layers": r["layers"],
+                    "terrace": r["id"],
+                    "flake": r.get("flake_id"),
+                    "layers": layers_text(layers, max_layers) if table else layers,
                     "probability": r["probability"],
                     "p_target": r["target_probability"],
                     "area_um2": r["area_um2"],
@@ -335,9 +340,13 @@ def _survey(args, opts: dict, sink) -> int:
                 images.append(res["ok"])
                 if keep:
                     sink.store(path, res["result"])
-    if _common.output_format(args) != "json":
-        _common.message(f"flakebook: {CONTRAST_NOTE} (dark offset subtracted first)")
-    _common.emit(args, {"images": images}, rows=_rows(images))
+    fmt = _common.output_format(args)
+    if fmt != "json":
+        _common.message(
+            f"flakebook: one row a terrace; {CONTRAST_NOTE} (after the dark offset); "
+            f"p_target: the probability of {args.target_layers} layers"
+        )
+    _common.emit(args, {"images": images}, rows=_rows(images, opts["max_layers"], fmt == "table"))
     return _common.EXIT_INPUT if failed else _common.EXIT_OK
 
 
@@ -423,7 +432,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     """Add ``survey``."""
     p = sub.add_parser(
         "survey",
-        help="find flakes, terraces, layer numbers and holes in micrographs",
+        help="find flakes, their terraces, layer numbers and holes in micrographs",
         description=__doc__.split("\n\n")[1].replace("\n", " "),
     )
     p.add_argument("paths", nargs="+", metavar="PATH", help="image files or folders")
@@ -440,7 +449,11 @@ def register(sub: argparse._SubParsersAction) -> None:
         default=20.0,
         help="smallest flake reported, in square micrometres (default 20)",
     )
-    p.add_argument("--target-layers", default="1-3", help="layer numbers to rank by (1-3)")
+    p.add_argument(
+        "--target-layers",
+        default="1-3",
+        help="layer numbers to rank the terraces by, a range or list (default 1-3)",
+    )
     p.add_argument(
         "--max-layers",
         type=int,
@@ -451,7 +464,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         "--dark-offset",
         type=float,
         default=0.0,
-        help="camera dark offset, fraction of full scale (subtracted once)",
+        help="the camera's dark offset (its reading with no light), a fraction of full scale, "
+        "subtracted once (default 0)",
     )
     p.add_argument("--hole-radius-um", type=float, default=None, help="expected hole radius")
     p.add_argument("--no-holes", action="store_true", help="do not look for holes")

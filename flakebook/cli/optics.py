@@ -1,7 +1,8 @@
-"""Optics commands: materials, contrast, layers, absorptance (INTERFACE.md).
+"""Optics commands: materials, contrast, layers, calibrate, absorptance (INTERFACE.md).
 
-Optical contrast here is C = 1 - (integral R_flake I S) / (integral R_reference I S) per channel,
-the reference being the bare supported substrate: positive when the flake is darker.
+Optical contrast: :data:`flakebook.wording.CONTRAST_DEFINITION` (C = (R_reference -
+R_flake)/R_reference per channel, positive when the flake is darker), integrated over a channel's
+band.
 """
 
 from __future__ import annotations
@@ -13,14 +14,19 @@ from pathlib import Path
 from flakebook.cli import _common
 from flakebook.errors import InputError
 from flakebook.specs import parse_channel_values
+from flakebook.wording import (
+    CONTRAST_BAND_NOTE,
+    CONTRAST_DEFINITION,
+    count_text,
+    layers_text,
+    value_with_error,
+)
 
 MATERIAL_HELP = "the flake's material, e.g. MoSe2 ('flakebook materials' lists them)"
 OXIDE_ERR_HELP = "standard deviation of the oxide thickness in nm (default 0: exact)"
 
-CONTRAST_NOTE = (
-    "contrast C = 1 - (integral R_flake I S)/(integral R_reference I S), reference: bare "
-    "substrate; positive when the flake is darker"
-)
+CONTRAST_NOTE = CONTRAST_DEFINITION
+CONTRAST_HELP = f"The {CONTRAST_DEFINITION}; {CONTRAST_BAND_NOTE}."
 
 
 # ---- shared options -------------------------------------------------------------------------
@@ -380,23 +386,38 @@ def _cmd_layers(args) -> int:
             }
         )
     fmt = _common.output_format(args)
-    more = f">{args.max_layers}"
-    rows = [
-        {
-            "id": r["id"],
-            "layers": more if r["layers"] == args.max_layers + 1 else r["layers"],
-            "probability": round(r["probability"], 4),
-            "ambiguous_with": [
-                more if n == args.max_layers + 1 else n for n in r["ambiguous_with"]
-            ],
-            "decider": r["decider"],
-        }
-        for r in results
-    ]
-    if fmt == "table":
-        _common.message(CONTRAST_NOTE + f"; layer {args.max_layers + 1} in lists stands for {more}")
+    more = layers_text(args.max_layers + 1, args.max_layers)
     if fmt == "csv":
-        rows = [{**row, "posterior": r["posterior"]} for row, r in zip(rows, results)]
+        rows = [
+            {
+                "id": r["id"],
+                "layers": r["layers"],
+                "probability": r["probability"],
+                "ambiguous_with": r["ambiguous_with"],
+                "decider": r["decider"],
+                "posterior": r["posterior"],
+            }
+            for r in results
+        ]
+    else:
+        rows = [
+            {
+                "id": r["id"] or "-",
+                "layers": layers_text(r["layers"], args.max_layers),
+                "probability": r["probability"],
+                "ambiguous_with": ", ".join(
+                    layers_text(n, args.max_layers) for n in r["ambiguous_with"]
+                )
+                or "-",
+                "decider": r["decider"],
+            }
+            for r in results
+        ]
+    if fmt == "table":
+        _common.message(
+            f"{CONTRAST_NOTE}; {more}: more than {args.max_layers} layers "
+            f"(in JSON and CSV: layer {args.max_layers + 1})"
+        )
     _common.emit(args, {"results": results}, rows=rows)
     return 0
 
@@ -436,9 +457,10 @@ def _cmd_calibrate(args) -> int:
         _common.message(f"calibration written to {out}")
     if _common.output_format(args) == "table":
         text = (
-            f"oxide {cal.oxide_nm:.1f} +- {cal.oxide_err_nm:.1f} nm; contrast scale "
-            f"{cal.contrast_scale:.3f} +- {cal.contrast_scale_err:.3f}; "
-            f"{len(cal.flakes_used)} known flakes\n{cal.optical_model.get('description', '')}"
+            f"oxide {value_with_error(cal.oxide_nm, cal.oxide_err_nm, 'nm')}; contrast scale "
+            f"{value_with_error(cal.contrast_scale, cal.contrast_scale_err)}; "
+            f"{count_text(len(cal.flakes_used), 'known flake')}\n"
+            f"{cal.optical_model.get('description', '')}"
         )
         _common.emit(args, payload, text=text)
     else:
@@ -491,7 +513,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=_cmd_materials)
 
     p = sub.add_parser(
-        "contrast", help="model optical contrast versus layer number", description=CONTRAST_NOTE
+        "contrast", help="model optical contrast versus layer number", description=CONTRAST_HELP
     )
     p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p)
@@ -502,7 +524,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=_cmd_contrast)
 
     p = sub.add_parser(
-        "layers", help="layer number from measured contrast", description=CONTRAST_NOTE
+        "layers", help="layer number from measured contrast", description=CONTRAST_HELP
     )
     p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p, required=False)
@@ -527,7 +549,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "calibrate",
         help="fit oxide, contrast scale and n,k model to flakes of known layer number",
-        description=CONTRAST_NOTE,
+        description=CONTRAST_HELP,
     )
     p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p)

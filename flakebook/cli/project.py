@@ -29,6 +29,7 @@ from flakebook.store.outfile import write_file
 from flakebook.store.project import EXPORT_COLUMNS
 from flakebook.store.recompute import load_recomputers
 from flakebook.substrate import format_substrate, oxide_stack, parse_substrate
+from flakebook.wording import count_text, layers_text, probability_phrase, record_count_text
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -182,8 +183,9 @@ def _info(args: argparse.Namespace) -> int:
         )
     lines = [
         f"{info['path']}  (project format {info['project_format']}, N_max {info['max_layers']})",
-        "  " + ", ".join(f"{n} {kind}" for kind, n in info["counts"].items() if n),
-        f"  images embedded: {info['images_embedded']}; stale records: {info['stale']}",
+        "  " + ", ".join(record_count_text(kind, n) for kind, n in info["counts"].items() if n),
+        f"  {count_text(info['images_embedded'], 'image')} embedded; "
+        f"{count_text(info['stale'], 'stale record')}",
     ]
     for s in info["samples"]:
         spec = format_substrate(s["substrate"])
@@ -193,7 +195,7 @@ def _info(args: argparse.Namespace) -> int:
             holes = f", holes {hp['diameter_um']:g} um ({hp['bottom']}, {hp['lattice']})"
         lines.append(
             f"  sample {s['name']}: {s['material']} on {spec}{holes}; "
-            f"{s['images']} images, {s['flakes']} flakes"
+            f"{count_text(s['images'], 'image')}, {count_text(s['flakes'], 'flake')}"
         )
     emit(args, info, text="\n".join(lines))
     return 0
@@ -381,9 +383,13 @@ def _show_evidence(args: argparse.Namespace) -> int:
         combined = payload["combined"]
         if combined is not None:
             amb = combined["ambiguous_with"]
-            also = f", ambiguous with {', '.join(map(str, amb))}" if amb else ""
+            n_max = len(combined["posterior"]) - 1 if combined.get("posterior") else 15
+            also = (
+                f", ambiguous with {', '.join(layers_text(n, n_max) for n in amb)}" if amb else ""
+            )
             lines.append(
-                f"  combined: {combined['layers']} layers, p = {combined['probability']:.3g}{also}"
+                f"  combined: {layers_text(combined['layers'], n_max)}, "
+                f"{probability_phrase(combined['probability'])}{also}"
             )
         if assignment is None:
             lines.append("  no assignment yet")
@@ -392,7 +398,7 @@ def _show_evidence(args: argparse.Namespace) -> int:
                 f"by {assignment['who']}: {assignment['reason']}"
                 if assignment["manual"]
                 else (
-                    f"p = {assignment['probability']}"
+                    probability_phrase(assignment["probability"])
                     if assignment["probability"] is not None
                     else ""
                 )
@@ -426,7 +432,7 @@ def _most_likely(likelihood) -> str:
     if not values or not any(math.isfinite(v) and v > 0 for v in values):
         return "-"
     best = max(range(len(values)), key=lambda i: values[i])
-    return f"more than {len(values) - 1}" if best == len(values) - 1 else str(best + 1)
+    return layers_text(len(values), len(values) - 1) if best == len(values) - 1 else str(best + 1)
 
 
 def _handoff_export(args: argparse.Namespace) -> int:

@@ -7,6 +7,7 @@ from __future__ import annotations
 import argparse
 import hashlib
 import json
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -329,3 +330,91 @@ def test_contrast_refuses_a_malformed_layer_list(capsys, text):
     )
     _short_refusal(code, err, "--layers", "1-10", "1,2,5")
     assert out == ""
+
+
+# ---- item 10: words and digits for people --------------------------------------------------------
+
+_LONG_FLOAT = r"\d\.\d{5,}|\de-\d\d"  # 0.760209..., 7.56e-225, 9.2e-05
+
+
+def test_info_counts_in_plain_words(project, capsys):
+    """`info` as a table counts in plain words ("1 sample, 3 flakes", not "1 sample, 3 flake"
+    or record kinds with underscores); JSON keeps the kinds' keys."""
+    from flakebook.store import Project
+
+    with Project.open(project) as p:
+        s = p.sample_by_name("Q3-east")
+        p.add_flake(s, "Q3E-002")
+        p.add_flake(s, "Q3E-003")
+    code, out, err = run(capsys, "info", project, "--format", "table")
+    assert code == 0, err
+    assert "1 sample, 3 flakes" in out, out
+    assert "flake_hole" not in out and " 1 samples" not in out
+    code, out, _ = run(capsys, "info", project, "--format", "json")
+    assert _json(out)["counts"]["flake"] == 3
+
+
+def test_assign_table_rounds_probabilities(project, capsys):
+    """The evidence table gives probabilities as 0.76 (not 0.760209665135969) and the thick bin
+    as >15L; JSON keeps full precision."""
+    import numpy as np
+
+    from flakebook.store import Project
+
+    with Project.open(project) as p:
+        flake = p.find_flake("Q3E-001")
+        like = np.full(16, 1e-3)
+        like[15] = 1.0
+        p.add_evidence(flake, like, method="optical contrast (thin-film model)", reason="test")
+        p.add_assignment(flake, 2, probability=0.760209665135969, method="combined evidence")
+    code, out, err = run(capsys, "assign", project, "--flake", "Q3E-001", "--format", "table")
+    assert code == 0, err
+    assert "0.76" in out and "0.760209" not in out, out
+    assert ">15L" in out and "more than" not in out, out
+    assert not re.search(_LONG_FLOAT, out), out
+    code, out, _ = run(capsys, "assign", project, "--flake", "Q3E-001", "--format", "json")
+    assert _json(out)["assignment"]["probability"] == 0.760209665135969
+
+
+def test_layers_table_rounds_and_names_the_thick_bin(capsys):
+    """`layers` as a table: probability to two decimals, the thick bin as >15L, the contrast's
+    one definition on stderr."""
+    code, out, err = run(
+        capsys,
+        "layers",
+        "--material",
+        "MoSe2",
+        "--oxide-nm",
+        "285",
+        "--wavelength-nm",
+        "550",
+        "--contrast",
+        "0.40",
+        "--contrast-err",
+        "0.02",
+        "--format",
+        "table",
+    )
+    assert code == 0, err
+    assert not re.search(_LONG_FLOAT, out), out
+    assert "C = (R_reference - R_flake)/R_reference" in err and ">15L" in err
+
+
+def test_contrast_reason_rounds_to_its_error():
+    """The evidence's reason: contrast to the digits its error supports (+0.469120 ± 0.000092,
+    not ±9.2e-05)."""
+    from flakebook.pipeline import contrast_reason
+
+    text = contrast_reason({"r": 0.46912, "g": 0.25}, {"r": 9.2e-05, "g": 0.0017}, "supported", "x")
+    assert "r +0.469120 ± 0.000092" in text and "g +0.2500 ± 0.0017" in text, text
+    assert "e-0" not in text
+
+
+def test_evidence_source_names_the_published_data_not_a_module():
+    from flakebook.optics.materials import get_material
+    from flakebook.pipeline import optics_source
+
+    text = optics_source(get_material("MoSe2"))
+    assert "Hsu et al. 2019" in text and "Munkhbat et al. 2022" in text, text
+    assert "flakebook." not in text and "transfer-matrix" in text
+    assert "Grudinin" in optics_source(get_material("hBN"))
