@@ -50,7 +50,7 @@ def parse_layer_range(text: str, *, max_layers: int = 100) -> list[int]:
 def parse_channel_values(text: str, option: str, channels: tuple[str, ...]) -> dict[str, float]:
     """Parse ``r=0.1,g=0.2,b=0.3`` into ``{channel: value}`` (finite numbers).
 
-    ``option`` names the field in messages (``--contrast``, ``Dark frame``); ``channels`` are the
+    ``option`` names the field in messages (``--contrast``, ``Dark offset``); ``channels`` are the
     names the messages offer as an example.
     """
     out: dict[str, float] = {}

@@ -418,3 +418,71 @@ def test_evidence_source_names_the_published_data_not_a_module():
     assert "Hsu et al. 2019" in text and "Munkhbat et al. 2022" in text, text
     assert "flakebook." not in text and "transfer-matrix" in text
     assert "Grudinin" in optics_source(get_material("hBN"))
+
+
+# ---- item 11: one name for each concept ------------------------------------------------------------
+
+ROOT = Path(__file__).resolve().parents[2]
+# Text the user reads outside the window (the window's words are gui/'s own): the command
+# line, the core's messages, the README and the user's copy of the interface.
+_USER_TEXT = [
+    *sorted((ROOT / "flakebook").glob("*.py")),
+    *sorted((ROOT / "flakebook" / "cli").glob("*.py")),
+    *sorted((ROOT / "flakebook" / "optics").glob("*.py")),
+    *sorted((ROOT / "flakebook" / "imaging").glob("*.py")),
+    *sorted((ROOT / "flakebook" / "thermal").glob("*.py")),
+    ROOT / "README.md",
+    ROOT / "docs" / "interface.md",
+]
+
+
+@pytest.mark.parametrize(
+    "other",
+    [
+        "dark frame",
+        "black level",
+        "I_flake/I_reference",
+        "I_flake / I_reference",
+        "I_flake / I_substrate",
+    ],
+)
+def test_one_name_for_the_dark_offset_and_one_contrast_wording(other):
+    """The camera's no-light level is the "dark offset" everywhere; the contrast is worded
+    C = (R_reference - R_flake)/R_reference (DESIGN.md), not also by intensities."""
+    found = [
+        f"{p.relative_to(ROOT)}:{i}"
+        for p in _USER_TEXT
+        for i, line in enumerate(p.read_text(encoding="utf-8").splitlines(), 1)
+        if other.lower() in line.lower()
+    ]
+    assert found == [], f"{other!r} in: {', '.join(found)}"
+
+
+def test_contrast_definition_is_worded_once(capsys):
+    """README, docs/interface.md and `flakebook contrast --help` use the one wording."""
+    from flakebook.wording import CONTRAST_DEFINITION
+
+    code, out, _ = run(capsys, "contrast", "--help")
+    assert code == 0
+    assert "C = (R_reference - R_flake)/R_reference" in " ".join(out.split())
+    for doc in (ROOT / "README.md", ROOT / "docs" / "interface.md"):
+        text = " ".join(doc.read_text(encoding="utf-8").split())
+        assert CONTRAST_DEFINITION in text, doc.name
+
+
+def test_the_thick_bin_is_written_one_way():
+    """ ">15L" (N_max + 1 in JSON lists), in README and docs, not "more than 15" as a name."""
+    for doc in (ROOT / "README.md", ROOT / "docs" / "interface.md"):
+        text = doc.read_text(encoding="utf-8")
+        assert '"more than 15"' not in text and '"more than max-layers"' not in text, doc.name
+        assert ">15L" in text, doc.name
+
+
+def test_survey_help_says_what_a_region_is(capsys):
+    """A terrace is not also a "region" to the user: the JSON key keeps its name, and the help
+    says what it holds."""
+    code, out, _ = run(capsys, "survey", "--help")
+    text = " ".join(out.split())
+    assert code == 0 and "terraces" in text and '"regions"' in text
+    readme = (ROOT / "README.md").read_text(encoding="utf-8")
+    assert "region" not in readme.replace('"regions"', ""), "README: say terrace"
