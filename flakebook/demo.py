@@ -33,7 +33,7 @@ OXIDE_NM = 285.0  # the chips' nominal oxide (what the project records)
 # as real wafers are, so the demo shows what a nominal oxide with its uncertainty does.
 TRUE_OXIDE_NM = {"K7-north": 288.0, "K7-south": 283.0}
 LASER_NM = 532.0
-DARK_OFFSET = 0.012  # fraction of full scale, the invented camera's black level
+DARK_OFFSET = 0.012  # fraction of full scale, the invented camera's dark offset
 HOLE_DIAMETER_UM = 5.0
 HOLE_PITCH_UM = 12.0
 HOLE_DEPTH_NM = 250.0  # air gap from the membrane down to the gold at the hole's bottom
@@ -435,7 +435,7 @@ def build_demo(
                 dark_offset_err={"r": 0.001, "g": 0.001, "b": 0.001},
                 contrast_scale={"r": 1.0, "g": 1.0, "b": 1.0},
                 contrast_scale_err={"r": 0.02, "g": 0.02, "b": 0.02},
-                method="nominal (chip datasheet oxide, camera black level)",
+                method="nominal (chip datasheet oxide, camera dark offset)",
             )
         flakes = {f.label: project.add_flake(samples[f.sample], f.label, tags=f.tags,
                                              notes=f.notes) for f in FLAKES}  # fmt: skip

@@ -25,10 +25,23 @@ from flakebook.store import (
     register_recomputer,
 )
 from flakebook.substrate import format_substrate
+from flakebook.wording import value_with_error
 
 CONTRAST_METHOD = "optical contrast (thin-film model)"
 COMBINED_METHOD = "combined evidence"
-OPTICS_SOURCE = "optical constants of flakebook.optics.materials (see flakebook materials)"
+OPTICS_SOURCE = (
+    "coherent transfer-matrix thin-film model with published optical constants (n,k) from the "
+    "refractiveindex.info database; 'flakebook materials' names each material's source"
+)
+
+
+def optics_source(material) -> str:
+    """The published source of a contrast likelihood, for its evidence record: the thin-film
+    model and the n,k data of ``material`` (a ``flakebook.optics.materials.Material``) in the
+    words of its references, e.g. "Hsu et al. 2019 layer-resolved n,k"."""
+    note = material.note or ""
+    data = note if " et al" in note else (material.reference or material.data_set_text)
+    return f"coherent transfer-matrix thin-film model; n,k of {material.name}: {data}"
 
 
 def optics_inputs(sample: Sample, image: Image):
@@ -91,7 +104,7 @@ def likelihood_options(cal: dict | None, substrate) -> tuple[dict, str]:
     if cal is None:
         return {"substrate": substrate}, ""
     note = (
-        f"calibrated oxide {cal['oxide_nm']:.1f}±{cal['oxide_err_nm']:.1f} nm "
+        f"calibrated oxide {value_with_error(cal['oxide_nm'], cal['oxide_err_nm'], 'nm')} "
         f"(calibration of {cal.get('date') or cal['id']})"
     )
     if cal.get("layer_calibration") is not None:
@@ -191,9 +204,22 @@ def link_by_stage(project: Project, image: Image, *, min_score: float = 0.5):
     return flake_for
 
 
+def _sample_optics_source(sample: Sample) -> str:
+    from flakebook.errors import InputError
+    from flakebook.optics.materials import get_material
+
+    try:
+        return optics_source(get_material(sample.material))
+    except InputError:  # a material file no longer at hand: the general words
+        return OPTICS_SOURCE
+
+
 def contrast_reason(contrast: dict, contrast_err: dict, geometry: str, stack: str) -> str:
     """One line saying what a contrast likelihood was computed from."""
-    parts = [f"{ch} {c:+.3f}±{contrast_err.get(ch, 0):.2g}" for ch, c in contrast.items()]
+    parts = [
+        f"{ch} {value_with_error(c, contrast_err.get(ch), signed=True)}"
+        for ch, c in contrast.items()
+    ]
     where = "over a hole (suspended model)" if geometry == "suspended" else "on the substrate"
     return f"contrast {', '.join(parts)} {where}, against the thin-film model of {stack}"
 
@@ -236,6 +262,7 @@ def store_survey(
 
     sample = project.get(Sample, image.sample_id)
     stack = format_substrate(sample.substrate)
+    source = _sample_optics_source(sample)
     extra = dict(parameters or {})
     model = model_used(project, sample)
     calibration = calibration_record(project, sample)
@@ -305,7 +332,7 @@ def store_survey(
                                 "model": model,
                                 **extra,
                             },
-                            source=OPTICS_SOURCE,
+                            source=source,
                             reason=contrast_reason(
                                 reg.contrast, reg.contrast_err, r.geometry, stack
                             ),

@@ -20,14 +20,18 @@ from flakebook.errors import InputError
 def parse_layer_range(text: str, *, max_layers: int = 100) -> list[int]:
     """Parse ``--layers`` as a range ``1-10`` or a list ``1,2,5`` (also ``1-3,7``).
 
-    Returns the layer numbers sorted, each once; every one must lie in 1..``max_layers``.
+    Returns the layer numbers sorted, each once; every one must lie in 1..``max_layers``. An
+    empty item (``1,,2``, a trailing comma) is refused, not skipped: it is usually a typing slip.
     """
+    accepted = (
+        f"accepted: a range like 1-10 or a list like 1,2,5 (whole numbers from 1 to {max_layers})"
+    )
     out: list[int] = []
+    parts = [part.strip() for part in str(text).split(",")]
     try:
-        for part in str(text).split(","):
-            part = part.strip()
+        for part in parts:
             if not part:
-                continue
+                raise ValueError
             if "-" in part:
                 lo, hi = (int(p) for p in part.split("-", 1))
                 if hi < lo:
@@ -36,20 +40,17 @@ def parse_layer_range(text: str, *, max_layers: int = 100) -> list[int]:
             else:
                 out.append(int(part))
     except ValueError:
-        raise InputError(
-            f"--layers {text!r} is not a layer range; accepted: a range like 1-10 or a list like 1,2,5"
-        ) from None
-    if not out or min(out) < 1 or max(out) > max_layers:
-        raise InputError(
-            f"--layers {text!r}: layer numbers must be whole numbers from 1 to {max_layers}"
-        )
+        what = "has an empty item" if "" in parts else "is not a layer range"
+        raise InputError(f"--layers {text!r} {what}; {accepted}") from None
+    if min(out) < 1 or max(out) > max_layers:
+        raise InputError(f"--layers {text!r}: a layer number outside 1 to {max_layers}; {accepted}")
     return sorted(set(out))
 
 
 def parse_channel_values(text: str, option: str, channels: tuple[str, ...]) -> dict[str, float]:
     """Parse ``r=0.1,g=0.2,b=0.3`` into ``{channel: value}`` (finite numbers).
 
-    ``option`` names the field in messages (``--contrast``, ``Dark frame``); ``channels`` are the
+    ``option`` names the field in messages (``--contrast``, ``Dark offset``); ``channels`` are the
     names the messages offer as an example.
     """
     out: dict[str, float] = {}

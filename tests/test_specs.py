@@ -33,6 +33,13 @@ def test_layer_range_refusals_say_what_is_accepted(text):
     assert "accepted" in str(err.value) or "from 1 to 100" in str(err.value)
 
 
+@pytest.mark.parametrize("text", ["1,,2", "1,", ",3", " , "])
+def test_layer_range_refuses_empty_items(text):
+    """An empty item is a typing slip: refused with the accepted forms, not read as 1,2."""
+    with pytest.raises(InputError, match="empty item.*1-10.*1,2,5"):
+        parse_layer_range(text)
+
+
 def test_layer_range_upper_bound_is_the_callers():
     assert parse_layer_range("1-15", max_layers=15)[-1] == 15
     with pytest.raises(InputError, match="from 1 to 15"):

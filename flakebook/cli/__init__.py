@@ -20,7 +20,7 @@ _COMMAND_MODULES = ("project", "desktop", "optics", "imaging", "spectra", "therm
 
 def build_parser() -> argparse.ArgumentParser:
     """The full argument parser with every command."""
-    parser = argparse.ArgumentParser(
+    parser = _common.ArgumentParser(
         prog="flakebook",
         description="A notebook for atomically thin flakes: layer number, membranes, thermometry.",
     )
@@ -41,11 +41,16 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     """Run the command line; returns the exit code."""
+    _common.quiet_libraries()
     parser = build_parser()
-    args = parser.parse_args(argv)
-    if args.command is None:
-        # No command: start the desktop program.
-        args = parser.parse_args(["open"])
+    try:
+        args = parser.parse_args(argv)
+        if args.command is None:
+            # No command: start the desktop program.
+            args = parser.parse_args(["open"])
+    except SystemExit as exc:  # --help, --version, or a refused option (its message is out)
+        return exc.code if isinstance(exc.code, int) else _common.EXIT_INPUT
+    args.argv = list(sys.argv[1:] if argv is None else argv)  # for the error log
     return _common.run(args.func, args)
 
 

@@ -16,7 +16,12 @@ def register(sub: argparse._SubParsersAction) -> None:
         "flakes and values are invented; the images are rendered from flakebook's own models.",
     )
     p.add_argument("dir", help="folder to write into (created if missing)")
-    p.add_argument("--format", choices=["json", "table"], default=None)
+    p.add_argument(
+        "--format",
+        choices=["json", "table"],
+        default=None,
+        help="output format (default: table on a terminal, json otherwise)",
+    )
     p.set_defaults(func=_demo)
 
 

@@ -1,10 +1,11 @@
 """Imaging commands: ``flakebook survey`` (INTERFACE.md).
 
-Surveys micrographs: finds flakes and their terraces, measures each terrace's optical contrast
-(C = 1 - I_flake / I_substrate per channel after the dark offset, the reference being the bare
-substrate of the same image: positive when the flake is darker), gives its likelihood over layer
-number from the thin-film model, finds the holes and ranks the terraces by the probability of
-having a layer number in ``--target-layers``. A folder is surveyed with worker processes (both
+Surveys micrographs: finds flakes and their terraces (regions of uniform thickness; the JSON
+lists them under "regions"), measures each terrace's optical contrast (C = (R_reference -
+R_flake)/R_reference per channel after the dark offset is subtracted, the reference being the
+bare substrate in the same image; positive when the flake is darker), gives its likelihood over
+layer number from the thin-film model, finds the holes and ranks the terraces by the probability
+of having a layer number in ``--target-layers``. A folder is surveyed with worker processes (both
 cores); ``--watch`` surveys each new file once the camera has finished writing it.
 """
 
@@ -19,13 +20,17 @@ from pathlib import Path
 from flakebook.cli import _common
 from flakebook.cli.optics import (
     CONTRAST_NOTE,
+    MATERIAL_HELP,
+    OXIDE_ERR_HELP,
     _add_light,
     _add_substrate,
     _material,
     _microscope,
     _substrate,
+    add_hole_options,
 )
 from flakebook.errors import Cancelled, InputError
+from flakebook.wording import layers_text
 
 IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
 
@@ -108,11 +113,16 @@ def survey_one(path: str, opts: dict, cancel=None, progress=None, keep: bool = F
 
 def _worker_init() -> None:  # pragma: no cover - runs in worker processes
     import signal
+    import warnings
 
     import cv2
+    import numpy as np
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent handles Ctrl-C
     cv2.setNumThreads(1)
+    _common.quiet_libraries()
+    np.seterr(all="ignore")  # as in the parent's runner: results carry their own warnings
+    warnings.simplefilter("ignore")
 
 
 def _worker(path: str, opts: dict, keep: bool = False) -> dict:  # pragma: no cover - worker
@@ -140,15 +150,18 @@ def _failed_image(path: str, message: str) -> dict:
     return {"path": path, "regions": [], "holes": [], "warnings": [f"not surveyed: {message}"]}
 
 
-def _rows(images: list[dict]) -> list[dict]:
+def _rows(images: list[dict], max_layers: int, table: bool = True) -> list[dict]:
+    """One row a terrace (a "region" of the JSON); for a table with layer numbers as 3L/>15L."""
     rows = []
     for im in images:
         for r in im["regions"]:
+            layers = r["layers"]
             rows.append(
                 {
                     "path": Path(im["path"]).name if im["path"] else "-",
-                    "id": r["id"],
-                    "layers": r["layers"],
+                    "terrace": r["id"],
+                    "flake": r.get("flake_id"),
+                    "layers": layers_text(layers, max_layers) if table else layers,
                     "probability": r["probability"],
                     "p_target": r["target_probability"],
                     "area_um2": r["area_um2"],
@@ -176,6 +189,11 @@ def _options(args) -> dict:
         )
     if args.hole_radius_um is not None:
         _common.positive_float("--hole-radius-um", args.hole_radius_um)
+    if args.workers is not None and args.workers < 1:
+        raise InputError(
+            f"--workers {args.workers} is not allowed; accepted: 1 or more worker processes "
+            "(leave it out to use every core)"
+        )
     if args.oxide_err_nm is not None:
         _common.positive_float("--oxide-err-nm", args.oxide_err_nm, allow_zero=True)
     opts = {
@@ -441,9 +459,13 @@ def _survey(args, opts: dict, sink) -> int:
                 images.append(res["ok"])
                 if keep:
                     sink.store(path, res["result"])
-    if _common.output_format(args) != "json":
-        _common.message(f"flakebook: {CONTRAST_NOTE} (dark offset subtracted first)")
-    _common.emit(args, {"images": images}, rows=_rows(images))
+    fmt = _common.output_format(args)
+    if fmt != "json":
+        _common.message(
+            f"flakebook: one row a terrace; {CONTRAST_NOTE} (after the dark offset); "
+            f"p_target: the probability of {args.target_layers} layers"
+        )
+    _common.emit(args, {"images": images}, rows=_rows(images, opts["max_layers"], fmt == "table"))
     return _common.EXIT_INPUT if failed else _common.EXIT_OK
 
 
@@ -529,13 +551,18 @@ def register(sub: argparse._SubParsersAction) -> None:
     """Add ``survey``."""
     p = sub.add_parser(
         "survey",
-        help="find flakes, terraces, layer numbers and holes in micrographs",
+        help="find flakes, their terraces, layer numbers and holes in micrographs",
         description=__doc__.split("\n\n")[1].replace("\n", " "),
     )
     p.add_argument("paths", nargs="+", metavar="PATH", help="image files or folders")
-    p.add_argument("--material", default=None, help="(with --project --sample: the sample's)")
+    p.add_argument(
+        "--material",
+        default=None,
+        metavar="M",
+        help=MATERIAL_HELP + " (with --project --sample: the sample's by default)",
+    )
     _add_substrate(p, required=False)
-    p.add_argument("--oxide-err-nm", type=float, default=None, help="oxide thickness s.d., nm")
+    p.add_argument("--oxide-err-nm", type=float, default=None, help=OXIDE_ERR_HELP)
     p.add_argument(
         "--calibration", default=None, metavar="CAL.json", help="a calibration from 'calibrate'"
     )
@@ -543,20 +570,33 @@ def register(sub: argparse._SubParsersAction) -> None:
     g.add_argument("--scale-um-per-px", type=float, default=None, help="image scale")
     g.add_argument("--objective", default=None, help="objective preset name (e.g. 50x)")
     _add_light(p)
-    p.add_argument("--min-area-um2", type=float, default=20.0)
-    p.add_argument("--target-layers", default="1-3", help="layer numbers to rank by (1-3)")
-    p.add_argument("--max-layers", type=int, default=15)
+    p.add_argument(
+        "--min-area-um2",
+        type=float,
+        default=20.0,
+        help="smallest flake reported, in square micrometres (default 20)",
+    )
+    p.add_argument(
+        "--target-layers",
+        default="1-3",
+        help="layer numbers to rank the terraces by, a range or list (default 1-3)",
+    )
+    p.add_argument(
+        "--max-layers",
+        type=int,
+        default=15,
+        help="N_max: likelihoods run over 1..N_max plus one bin for more (default 15)",
+    )
     p.add_argument(
         "--dark-offset",
         type=float,
         default=None,
-        help="camera dark offset, fraction of full scale (subtracted once; default 0, or the "
-        "sample's calibration with --project --sample)",
+        help="the camera's dark offset (its reading with no light), a fraction of full scale, "
+        "subtracted once (default 0, or the sample's calibration with --project --sample)",
     )
     p.add_argument("--hole-radius-um", type=float, default=None, help="expected hole radius")
     p.add_argument("--no-holes", action="store_true", help="do not look for holes")
-    p.add_argument("--hole-bottom", choices=("si", "au", "open"), default=None)
-    p.add_argument("--hole-depth-nm", type=float, default=None)
+    add_hole_options(p)
     p.add_argument("--project", default=None, metavar="P", help="also store the results here")
     p.add_argument(
         "--sample", default=None, help="the project's sample the images are of (with --project)"

@@ -1,7 +1,8 @@
-"""Optics commands: materials, contrast, layers, absorptance (INTERFACE.md).
+"""Optics commands: materials, contrast, layers, calibrate, absorptance (INTERFACE.md).
 
-Optical contrast here is C = 1 - (integral R_flake I S) / (integral R_reference I S) per channel,
-the reference being the bare supported substrate: positive when the flake is darker.
+Optical contrast: :data:`flakebook.wording.CONTRAST_DEFINITION` (C = (R_reference -
+R_flake)/R_reference per channel, positive when the flake is darker), integrated over a channel's
+band.
 """
 
 from __future__ import annotations
@@ -13,11 +14,19 @@ from pathlib import Path
 from flakebook.cli import _common
 from flakebook.errors import InputError
 from flakebook.specs import parse_channel_values
-
-CONTRAST_NOTE = (
-    "contrast C = 1 - (integral R_flake I S)/(integral R_reference I S), reference: bare "
-    "substrate; positive when the flake is darker"
+from flakebook.wording import (
+    CONTRAST_BAND_NOTE,
+    CONTRAST_DEFINITION,
+    count_text,
+    layers_text,
+    value_with_error,
 )
+
+MATERIAL_HELP = "the flake's material, e.g. MoSe2 ('flakebook materials' lists them)"
+OXIDE_ERR_HELP = "standard deviation of the oxide thickness in nm (default 0: exact)"
+
+CONTRAST_NOTE = CONTRAST_DEFINITION
+CONTRAST_HELP = f"The {CONTRAST_DEFINITION}; {CONTRAST_BAND_NOTE}."
 
 
 # ---- shared options -------------------------------------------------------------------------
@@ -25,14 +34,36 @@ CONTRAST_NOTE = (
 
 def _add_substrate(p: argparse.ArgumentParser, *, required: bool = True) -> None:
     g = p.add_mutually_exclusive_group(required=required)
-    g.add_argument("--oxide-nm", type=float, help="SiO2 thickness on Si, nm")
+    g.add_argument("--oxide-nm", type=float, metavar="D", help="SiO2 thickness on Si, in nm")
     g.add_argument("--substrate", metavar="SPEC", help="films top down, e.g. SiO2:285,Si")
 
 
 def _add_geometry(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--geometry", choices=("supported", "suspended"), default="supported")
-    p.add_argument("--hole-bottom", choices=("si", "au", "open"), default=None)
-    p.add_argument("--hole-depth-nm", type=float, default=None)
+    p.add_argument(
+        "--geometry",
+        choices=("supported", "suspended"),
+        default="supported",
+        help="supported: the flake lies on the substrate; suspended: over a hole "
+        "(default supported)",
+    )
+    add_hole_options(p)
+
+
+def add_hole_options(p: argparse.ArgumentParser) -> None:
+    """``--hole-bottom`` and ``--hole-depth-nm`` (INTERFACE.md)."""
+    p.add_argument(
+        "--hole-bottom",
+        choices=("si", "au", "open"),
+        default=None,
+        help="si: etched down to the Si; au: a gold layer at the bottom; open: a through-hole "
+        "(default si)",
+    )
+    p.add_argument(
+        "--hole-depth-nm",
+        type=float,
+        default=None,
+        help="the hole's depth in nm (for si and au; default for si: the layers above the Si)",
+    )
 
 
 def _add_light(p: argparse.ArgumentParser, *, required: bool = True) -> None:
@@ -185,6 +216,12 @@ def _read_layers_csv(path: str, channels: tuple[str, ...], single: bool, known: 
         raise InputError(f"{p}: no contrast column; accepted: id and {need}")
     rows = []
     for i, row in enumerate(reader, start=2):
+        if None in row:  # DictReader keeps the cells beyond the header under the key None
+            cells = len(header) + len(row[None])
+            raise InputError(
+                f"{p} line {i}: {cells} cells but the header has {len(header)} columns; "
+                f"accepted: one cell a column ({', '.join(header)})"
+            )
         row = {(k or "").strip(): (v or "").strip() for k, v in row.items()}
         c, e = {}, {}
         for ch, (ccol, ecol) in present.items():
@@ -349,23 +386,38 @@ def _cmd_layers(args) -> int:
             }
         )
     fmt = _common.output_format(args)
-    more = f">{args.max_layers}"
-    rows = [
-        {
-            "id": r["id"],
-            "layers": more if r["layers"] == args.max_layers + 1 else r["layers"],
-            "probability": round(r["probability"], 4),
-            "ambiguous_with": [
-                more if n == args.max_layers + 1 else n for n in r["ambiguous_with"]
-            ],
-            "decider": r["decider"],
-        }
-        for r in results
-    ]
-    if fmt == "table":
-        _common.message(CONTRAST_NOTE + f"; layer {args.max_layers + 1} in lists stands for {more}")
+    more = layers_text(args.max_layers + 1, args.max_layers)
     if fmt == "csv":
-        rows = [{**row, "posterior": r["posterior"]} for row, r in zip(rows, results)]
+        rows = [
+            {
+                "id": r["id"],
+                "layers": r["layers"],
+                "probability": r["probability"],
+                "ambiguous_with": r["ambiguous_with"],
+                "decider": r["decider"],
+                "posterior": r["posterior"],
+            }
+            for r in results
+        ]
+    else:
+        rows = [
+            {
+                "id": r["id"] or "-",
+                "layers": layers_text(r["layers"], args.max_layers),
+                "probability": r["probability"],
+                "ambiguous_with": ", ".join(
+                    layers_text(n, args.max_layers) for n in r["ambiguous_with"]
+                )
+                or "-",
+                "decider": r["decider"],
+            }
+            for r in results
+        ]
+    if fmt == "table":
+        _common.message(
+            f"{CONTRAST_NOTE}; {more}: more than {args.max_layers} layers "
+            f"(in JSON and CSV: layer {args.max_layers + 1})"
+        )
     _common.emit(args, {"results": results}, rows=rows)
     return 0
 
@@ -427,9 +479,10 @@ def _cmd_calibrate(args) -> int:
         _common.message(f"calibration written to {out}")
     if _common.output_format(args) == "table":
         text = (
-            f"oxide {cal.oxide_nm:.1f} +- {cal.oxide_err_nm:.1f} nm; contrast scale "
-            f"{cal.contrast_scale:.3f} +- {cal.contrast_scale_err:.3f}; "
-            f"{len(cal.flakes_used)} known flakes\n{cal.optical_model.get('description', '')}"
+            f"oxide {value_with_error(cal.oxide_nm, cal.oxide_err_nm, 'nm')}; contrast scale "
+            f"{value_with_error(cal.contrast_scale, cal.contrast_scale_err)}; "
+            f"{count_text(len(cal.flakes_used), 'known flake')}\n"
+            f"{cal.optical_model.get('description', '')}"
         )
         _common.emit(args, payload, text=text)
     else:
@@ -482,9 +535,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=_cmd_materials)
 
     p = sub.add_parser(
-        "contrast", help="model optical contrast versus layer number", description=CONTRAST_NOTE
+        "contrast", help="model optical contrast versus layer number", description=CONTRAST_HELP
     )
-    p.add_argument("--material", required=True)
+    p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p)
     p.add_argument("--layers", required=True, help="range 1-10 or list 1,2,5")
     _add_light(p)
@@ -493,19 +546,24 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=_cmd_contrast)
 
     p = sub.add_parser(
-        "layers", help="layer number from measured contrast", description=CONTRAST_NOTE
+        "layers", help="layer number from measured contrast", description=CONTRAST_HELP
     )
-    p.add_argument("--material", required=True)
+    p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p, required=False)
     p.add_argument(
         "--calibration", default=None, metavar="CAL.json", help="a calibration from 'calibrate'"
     )
-    p.add_argument("--oxide-err-nm", type=float, default=None)
+    p.add_argument("--oxide-err-nm", type=float, default=None, help=OXIDE_ERR_HELP)
     _add_light(p, required=False)
     p.add_argument("--contrast", default=None, help="C, or r=C1,g=C2,b=C3 for channels")
     p.add_argument("--contrast-err", default=None, help="E, or r=E1,g=E2,b=E3")
     p.add_argument("--csv", default=None, metavar="FILE", help="one measurement a row")
-    p.add_argument("--max-layers", type=int, default=15)
+    p.add_argument(
+        "--max-layers",
+        type=int,
+        default=15,
+        help="N_max: likelihoods run over 1..N_max plus one bin for more (default 15)",
+    )
     _add_geometry(p)
     _common.add_format_option(p, csv_ok=True)
     p.set_defaults(func=_cmd_layers)
@@ -513,7 +571,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser(
         "calibrate",
         help="fit oxide, contrast scale and n,k model to flakes of known layer number",
-        description=CONTRAST_NOTE,
+        description=CONTRAST_HELP,
     )
     p.add_argument(
         "project",
@@ -526,9 +584,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument(
         "--flakes", default=None, metavar="ID,...", help="with PROJECT: the known flakes to use"
     )
-    p.add_argument("--material", default=None)
+    p.add_argument("--material", default=None, metavar="M", help=MATERIAL_HELP)
     _add_substrate(p, required=False)
-    p.add_argument("--oxide-err-nm", type=float, default=None)
+    p.add_argument("--oxide-err-nm", type=float, default=None, help=OXIDE_ERR_HELP)
     _add_light(p, required=False)
     p.add_argument(
         "--csv",
@@ -536,7 +594,9 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="KNOWN.csv",
         help="a layers --csv table plus a layers column",
     )
-    p.add_argument("--out", default=None, metavar="CAL.json")
+    p.add_argument(
+        "--out", default=None, metavar="CAL.json", help="also write the calibration to this file"
+    )
     _common.add_format_option(p)
     p.set_defaults(func=_cmd_calibrate)
 
@@ -546,11 +606,20 @@ def register(sub: argparse._SubParsersAction) -> None:
         description="Fraction of the incident laser power absorbed in the flake. Follow your "
         "institution's laser-safety rules and local regulations.",
     )
-    p.add_argument("--material", required=True)
-    p.add_argument("--layers", type=int, required=True)
-    p.add_argument("--laser-nm", type=float, required=True)
+    p.add_argument("--material", required=True, metavar="M", help=MATERIAL_HELP)
+    p.add_argument(
+        "--layers", type=int, required=True, metavar="N", help="the flake's layer number"
+    )
+    p.add_argument(
+        "--laser-nm", type=float, required=True, help="the laser line's wavelength in nm, e.g. 532"
+    )
     _add_substrate(p, required=False)
     _add_geometry(p)
-    p.add_argument("--na-objective", type=float, default=0.0)
+    p.add_argument(
+        "--na-objective",
+        type=float,
+        default=0.0,
+        help="NA of the objective focusing the laser (default 0: a plane wave at normal incidence)",
+    )
     _common.add_format_option(p)
     p.set_defaults(func=_cmd_absorptance)

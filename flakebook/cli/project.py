@@ -26,6 +26,7 @@ from flakebook.cli._common import (
 )
 from flakebook.errors import InputError
 from flakebook.substrate import format_substrate, oxide_stack, parse_substrate
+from flakebook.wording import count_text, layers_text, probability_phrase, record_count_text
 
 if TYPE_CHECKING:
     from flakebook.store import Project
@@ -59,36 +60,36 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=_new)
 
     p = sub.add_parser("info", help="summarise a project")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     add_format_option(p)
     p.set_defaults(func=_info)
 
     p = sub.add_parser("export", help="the catalogue of flakes as JSON or CSV")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     add_format_option(p, csv_ok=True)
     p.add_argument("--out", metavar="FILE", help="write to FILE instead of stdout")
     p.set_defaults(func=_export)
 
     p = sub.add_parser("pack", help="embed every image so the project file stands alone")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     add_format_option(p)
     p.set_defaults(func=_pack)
 
     p = sub.add_parser("relink", help="find moved or changed images again by their hash")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     p.add_argument("--search", required=True, metavar="DIR", help="folder to search (recursively)")
     add_format_option(p)
     p.set_defaults(func=_relink)
 
     p = sub.add_parser("recompute", help="bring stale evidence and results up to date")
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     add_format_option(p)
     p.set_defaults(func=_recompute)
 
     p = sub.add_parser(
         "assign", help="show a flake's layer evidence, or assign its layer number by hand"
     )
-    p.add_argument("project")
+    p.add_argument("project", help="the project file (.flakebook)")
     p.add_argument("--flake", required=True, metavar="ID", help="the flake's ID")
     p.add_argument("--layers", metavar="N", help="the layer number to assign")
     p.add_argument("--reason", metavar="TEXT", help="why (required with --layers)")
@@ -113,12 +114,12 @@ def register(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("handoff", help="exchange flakes and results with an outside analysis")
     hsub = p.add_subparsers(dest="handoff_command", metavar="export|import", required=True)
     h = hsub.add_parser("export", help="write a JSON bundle of flakes")
-    h.add_argument("project")
+    h.add_argument("project", help="the project file (.flakebook)")
     h.add_argument("--flakes", required=True, metavar="ID,...", help="flake IDs, comma-separated")
-    h.add_argument("--out", required=True, metavar="FILE.json")
+    h.add_argument("--out", required=True, metavar="FILE.json", help="the bundle to write (JSON)")
     h.set_defaults(func=_handoff_export)
     h = hsub.add_parser("import", help="import a CSV of results keyed by flake ID")
-    h.add_argument("project")
+    h.add_argument("project", help="the project file (.flakebook)")
     h.add_argument(
         "csv",
         metavar="FILE.csv",
@@ -143,14 +144,13 @@ def _new(args: argparse.Namespace) -> int:
         stack = parse_substrate(args.substrate)
     if not args.sample.strip():
         raise InputError("--sample is empty; accepted: the chip's name, e.g. K7-north")
-    if not args.material.strip():
-        raise InputError("--material is empty; accepted: a material name, e.g. MoSe2")
+    material = _known_material(args.material)
     if args.max_layers < 1:
         raise InputError(f"--max-layers {args.max_layers} is not allowed; accepted: 1 or more")
     project = Project.create(args.project, max_layers=args.max_layers)
     path = project.path
     try:
-        project.add_sample(args.sample, args.material, stack)
+        project.add_sample(args.sample, material, stack)
     except BaseException:
         project.close()
         path.unlink(missing_ok=True)  # the file this command made, and nothing else
@@ -159,13 +159,30 @@ def _new(args: argparse.Namespace) -> int:
     payload = {
         "project": str(path),
         "sample": args.sample,
-        "material": args.material,
+        "material": material,
         "substrate": [layer.to_dict() for layer in stack],
     }
     emit(
         args, payload, text=f"created {path} with sample {args.sample} ({format_substrate(stack)})"
     )
     return 0
+
+
+def _known_material(name: str) -> str:
+    """The material's name as the library spells it; InputError listing the known ones."""
+    from flakebook.optics.materials import get_material, list_materials
+
+    if not name.strip():
+        raise InputError("--material is empty; accepted: a material name, e.g. MoSe2")
+    try:
+        material = get_material(name)
+    except InputError:
+        known = ", ".join(m.name for m in list_materials() if m.layer_spacing_nm)
+        raise InputError(
+            f"--material {name!r} is not in the material library; accepted: {known}, or a .csv "
+            "file of wavelength_nm,n,k ('flakebook materials' lists every material)"
+        ) from None
+    return name.strip() if name.strip().lower().endswith(".csv") else material.name
 
 
 def _info(args: argparse.Namespace) -> int:
@@ -190,8 +207,9 @@ def _info(args: argparse.Namespace) -> int:
         )
     lines = [
         f"{info['path']}  (project format {info['project_format']}, N_max {info['max_layers']})",
-        "  " + ", ".join(f"{n} {kind}" for kind, n in info["counts"].items() if n),
-        f"  images embedded: {info['images_embedded']}; stale records: {info['stale']}",
+        "  " + ", ".join(record_count_text(kind, n) for kind, n in info["counts"].items() if n),
+        f"  {count_text(info['images_embedded'], 'image')} embedded; "
+        f"{count_text(info['stale'], 'stale record')}",
     ]
     for s in info["samples"]:
         spec = format_substrate(s["substrate"])
@@ -201,7 +219,7 @@ def _info(args: argparse.Namespace) -> int:
             holes = f", holes {hp['diameter_um']:g} um ({hp['bottom']}, {hp['lattice']})"
         lines.append(
             f"  sample {s['name']}: {s['material']} on {spec}{holes}; "
-            f"{s['images']} images, {s['flakes']} flakes"
+            f"{count_text(s['images'], 'image')}, {count_text(s['flakes'], 'flake')}"
         )
     emit(args, info, text="\n".join(lines))
     return 0
@@ -314,13 +332,17 @@ def _recompute(args: argparse.Namespace) -> int:
     return 0
 
 
-def _parse_layers(text: str) -> int:
+def _parse_layers(text: str, max_layers: int) -> int:
+    """``--layers`` of ``assign``: a whole number from 1 to the project's N_max."""
     try:
         value = int(text)
     except ValueError:
         value = 0
-    if value < 1:
-        raise InputError(f"--layers {text!r} is not a layer number; accepted: a whole number >= 1")
+    if not 1 <= value <= max_layers:
+        raise InputError(
+            f"--layers {text} is not a layer number of this project; accepted: a whole number "
+            f"from 1 to {max_layers} (the project's N_max)"
+        )
     return value
 
 
@@ -358,7 +380,10 @@ def _assign(args: argparse.Namespace) -> int:
     # Every option is checked before anything is stored.
     if args.layers is None and args.reason is not None:
         raise InputError("--reason goes with --layers N (the layer number you assign)")
-    layers = None if args.layers is None else _parse_layers(args.layers)
+    if args.layers is not None:
+        with Project.open(args.project, read_only=True) as project:
+            max_layers = project.max_layers
+    layers = None if args.layers is None else _parse_layers(args.layers, max_layers)
     if layers is not None and not (args.reason or "").strip():
         raise InputError("--layers needs --reason TEXT: a manual assignment keeps why it was made")
     _record_measured_evidence(args)
@@ -366,6 +391,7 @@ def _assign(args: argparse.Namespace) -> int:
         return _show_evidence(args)
     with Project.open(args.project) as project:
         _show_warnings(project)
+        layers = _parse_layers(args.layers, project.max_layers)
         flake = project.find_flake(args.flake)
         asg = project.assign(flake, layers, reason=args.reason)
     payload = {
@@ -442,9 +468,13 @@ def _show_evidence(args: argparse.Namespace) -> int:
             for text in combined["conflicts"]:
                 lines.append(f"  CONFLICT: {text}")
             amb = combined["ambiguous_with"]
-            also = f", ambiguous with {', '.join(map(str, amb))}" if amb else ""
+            n_max = len(combined["posterior"]) - 1 if combined.get("posterior") else 15
+            also = (
+                f", ambiguous with {', '.join(layers_text(n, n_max) for n in amb)}" if amb else ""
+            )
             lines.append(
-                f"  combined: {combined['layers']} layers, p = {combined['probability']:.3g}{also}"
+                f"  combined: {layers_text(combined['layers'], n_max)}, "
+                f"{probability_phrase(combined['probability'])}{also}"
             )
         if assignment is None:
             lines.append("  no assignment yet")
@@ -453,7 +483,7 @@ def _show_evidence(args: argparse.Namespace) -> int:
                 f"by {assignment['who']}: {assignment['reason']}"
                 if assignment["manual"]
                 else (
-                    f"p = {assignment['probability']}"
+                    probability_phrase(assignment["probability"])
                     if assignment["probability"] is not None
                     else ""
                 )
@@ -504,7 +534,7 @@ def _most_likely(likelihood) -> str:
     if not values or not any(math.isfinite(v) and v > 0 for v in values):
         return "-"
     best = max(range(len(values)), key=lambda i: values[i])
-    return f"more than {len(values) - 1}" if best == len(values) - 1 else str(best + 1)
+    return layers_text(len(values), len(values) - 1) if best == len(values) - 1 else str(best + 1)
 
 
 def _handoff_export(args: argparse.Namespace) -> int:

@@ -322,6 +322,12 @@ def _tiff_header(path: str, fh, size: int) -> ImageHeader:
     endian = "<" if head[:2] == b"II" else ">"
     magic = struct.unpack(endian + "H", head[2:4])[0]
     big = magic == 43
+    if len(head) < (16 if big else 8):
+        raise _refuse(
+            path,
+            f"TIFF file of {size} bytes, shorter than its {16 if big else 8}-byte header "
+            "(truncated)",
+        )
     if big:
         (offset,) = struct.unpack(endian + "Q", head[8:16])
     else:
@@ -375,17 +381,41 @@ def _tiff_header(path: str, fh, size: int) -> ImageHeader:
     return ImageHeader("tiff", width, height, max(pages, 1))
 
 
+#: Largest BMP accepted, in pixels: an uncompressed format, so 100 megapixels is already a
+#: 300 MB file; the decoder allocates the size the header claims before reading any pixel.
+MAX_BMP_PIXELS = 100_000_000
+
+
 def _bmp_header(path: str, data: bytes, size: int) -> ImageHeader:
+    """Dimensions of a BMP (a 12-byte core header or a 40-byte or longer info header), refused
+    when they exceed :data:`MAX_BMP_PIXELS` or what the file's size can hold."""
     if len(data) < 26:
         raise _refuse(path, "BMP file without a complete header (truncated)")
+    (offset,) = struct.unpack("<I", data[10:14])
     (hsize,) = struct.unpack("<I", data[14:18])
+    compression = 0
     if hsize == 12:
-        width, height = struct.unpack("<HH", data[18:22])
+        width, height, _, bpp = struct.unpack("<HHHH", data[18:26])
     else:
-        if len(data) < 26:
+        if len(data) < 34:
             raise _refuse(path, "BMP header is cut short (truncated)")
-        width, height = struct.unpack("<ii", data[18:26])
-    return ImageHeader("bmp", abs(width), abs(height))
+        width, height, _, bpp, compression = struct.unpack("<iiHHI", data[18:34])
+    width, height = abs(width), abs(height)
+    claimed = f"its header claims {width} x {height} pixels"
+    if width * height > MAX_BMP_PIXELS:
+        raise InputError(
+            f"{path}: {claimed}, more than the {MAX_BMP_PIXELS:,} accepted for a BMP (a damaged "
+            "header or a stitched mosaic); accepted: split it into tiles, or save it as TIFF"
+        )
+    if compression in (0, 3, 6) and bpp in (1, 4, 8, 16, 24, 32):  # uncompressed rows
+        stride = (width * bpp + 31) // 32 * 4
+        need = offset + stride * height
+        if need > size:
+            raise InputError(
+                f"{path}: {claimed}, which needs {need:,} bytes, but the file has {size:,} "
+                f"(damaged or truncated); accepted: {_ACCEPTED}"
+            )
+    return ImageHeader("bmp", width, height)
 
 
 def read_header(path: str | os.PathLike) -> ImageHeader:
@@ -420,6 +450,8 @@ def read_header(path: str | os.PathLike) -> ImageHeader:
         raise InputError(
             f"{p}: cannot be read ({exc.strerror or exc}); accepted: {_ACCEPTED}"
         ) from None
+    except struct.error:  # a header field cut off by the end of the file
+        raise _refuse(p, "the file's header is cut short (truncated or damaged)") from None
     if head.width == 0 or head.height == 0:
         raise _refuse(p, f"the image has zero size ({head.width} x {head.height} pixels)")
     return head

@@ -173,8 +173,8 @@ def calibrate_layers(
     """Fit the oxide, the contrast scale and (``fit_nk``) the n,k coefficients to known flakes.
 
     ``substrate`` gives the nominal oxide and ``oxide_err_nm`` its prior error (0: a wide prior
-    of 20 nm). Contrast as everywhere: C = 1 - I_flake / I_reference per channel, reference the
-    bare substrate. Raises InputError when the flakes cannot calibrate (none, no oxide, ...).
+    of 20 nm). Contrast as everywhere: C = (R_reference - R_flake)/R_reference per channel,
+    reference the bare substrate. Raises InputError when the flakes cannot calibrate (none, no oxide, ...).
     """
     from scipy.optimize import least_squares
 

@@ -8,7 +8,8 @@ dark offset is subtracted, the measured contrast is
 
 one contrast scale s shared by the channels. The calibration fits the oxide thickness, the dark
 offset of each channel and the contrast scale from the bare substrate and flakes of known layer
-number (with a dark frame when there is one), and returns them with uncertainties
+number (with an image taken with the light blocked, which reads the dark offset directly,
+when there is one), and returns them with uncertainties
 (:class:`CameraCalibration`, serialisable to a dict for the project file). The micrographs step
 subtracts the stored dark offset once; later layer likelihoods use the stored oxide, its error and
 the contrast scale (:meth:`CameraCalibration.likelihood_options`).
@@ -173,7 +174,7 @@ def calibrate(
     (None: no prior). ``dark_frame``: measured counts with the light blocked, per channel (a
     prior on the dark offsets). The dark offsets and the contrast scale can only be told apart
     when the reference brightness varies between observations (different exposures or lamp
-    settings) or a dark frame is given; otherwise InputError says so.
+    settings) or an image with the light blocked is given; otherwise InputError says so.
     """
     from scipy.optimize import least_squares
 
@@ -251,7 +252,8 @@ def calibrate(
     except np.linalg.LinAlgError:
         raise InputError(
             "the calibration cannot separate the dark offset from the contrast scale with these "
-            "observations; accepted: add a dark frame (light blocked) or images of the same "
+            "observations; accepted: add an image with the light blocked (it reads the dark offset) "
+            "or images of the same "
             "flakes at different exposures or lamp settings, or flakes of more layer numbers"
         ) from None
     cov = cov * max(1.0, chi2 / dof)
@@ -261,8 +263,9 @@ def calibrate(
     if err[1] > 0.2 or np.max(np.abs(corr[1, 2:])) > 0.995:
         raise InputError(
             "the calibration cannot separate the dark offset from the contrast scale with these "
-            "observations (they trade off almost perfectly); accepted: add a dark frame (light "
-            "blocked) or images of the same flakes at different exposures or lamp settings"
+            "observations (they trade off almost perfectly); accepted: add an image with the light "
+            "blocked (it reads the dark offset) or images of the same flakes at different "
+            "exposures or lamp settings"
         )
     if not (0 < s < 2):
         raise InputError(

@@ -214,8 +214,8 @@ def _check_inputs(contrast, contrast_err, microscope, saturated):
             raise InputError(f"contrast error {e!r} in channel {c}: accepted a number >= 0")
         if v > 1.0 + max(5.0 * e, 0.25):
             raise InputError(
-                f"contrast {v:g} in channel {c} is impossible: C = 1 - I_flake/I_reference "
-                "cannot exceed 1 (is the dark offset subtracted, or the contrast in percent?); "
+                f"contrast {v:g} in channel {c} is impossible: C = (R_reference - "
+                "R_flake)/R_reference cannot exceed 1 (is the dark offset subtracted, or the contrast in percent?); "
                 "accepted: C <= 1"
             )
         vals.append(v)
@@ -385,8 +385,8 @@ def layer_likelihood(
     Parameters
     ----------
     contrast, contrast_err:
-        Measured contrast per channel name (C = 1 - I_flake / I_reference after the dark offset
-        is subtracted) and its standard error (0 or missing: exact apart from the model error).
+        Measured contrast per channel name (C = (R_reference - R_flake)/R_reference, from
+        intensities after the dark offset is subtracted) and its standard error (0 or missing: exact apart from the model error).
     material, substrate, microscope, geometry, hole:
         The sample and microscope (``flakebook.optics.microscope.channel_contrast``).
     oxide_err_nm, na_err, contrast_scale, contrast_scale_err:

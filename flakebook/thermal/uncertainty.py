@@ -110,13 +110,14 @@ def _layer_probabilities(
     more = float(post[-1])
     if more > MORE_BIN_LIMIT:
         raise InputError(
-            f"the layer posterior puts {more:.0%} on 'more than {post.size - 1} layers', which "
+            f"the layer posterior puts {more:.0%} on >{post.size - 1}L (more than {post.size - 1} "
+            "layers), which "
             "has no thickness; give the layer number (more than 5% there is not accepted)"
         )
     warns = []
     if more > 0:
         warns.append(
-            f"the layer posterior's 'more than {post.size - 1}' bin ({more:.1%}) has no "
+            f"the layer posterior's >{post.size - 1}L bin ({more:.1%}) has no "
             "thickness; it was dropped and the rest renormalised"
         )
     p = post[:-1] / post[:-1].sum()

@@ -234,3 +234,58 @@ def test_float_tiff_without_full_scale(tmp_path):
     assert img.bit_depth == 32 and not img.saturated.any()
     assert np.allclose(img.intensity[..., 0], a)
     assert from_array(a, white_level=4000.0).saturated.sum() == 1
+
+
+def test_six_byte_tiff_is_refused(tmp_path):
+    """A TIFF cut off after 6 bytes (its header needs 8) is refused as truncated, not a crash."""
+    path = tmp_path / "cut.tif"
+    path.write_bytes(b"II*\x00\x08\x00")
+    with pytest.raises(InputError, match="cut.tif.*TIFF.*truncated"):
+        read_header(path)
+    path.write_bytes(b"MM\x00+\x00\x08\x00\x00\x00\x00")  # BigTIFF needs 16 bytes
+    with pytest.raises(InputError, match="truncated"):
+        read_image(path)
+
+
+def _bmp(width: int, height: int, pixels: bytes, bpp: int = 24, compression: int = 0) -> bytes:
+    """A BMP with a BITMAPINFOHEADER (40 bytes) claiming width x height (Microsoft's BMP file
+    format: 14-byte file header, then the info header; common practice, no source)."""
+    offset = 14 + 40
+    head = b"BM" + struct.pack("<IHHI", offset + len(pixels), 0, 0, offset)
+    info = struct.pack("<IiiHHIIiiII", 40, width, height, 1, bpp, compression, 0, 2835, 2835, 0, 0)
+    return head + info + pixels
+
+
+@pytest.mark.parametrize(
+    "width, height, words",
+    [
+        (15_000, 15_000, "15000 x 15000"),  # 225 megapixels claimed by a 154-byte file
+        (200_000, 1_000, "200000 x 1000"),
+        (40_000, -2_000, "40000 x 2000"),  # a top-down BMP (negative height)
+    ],
+)
+def test_bmp_claiming_a_huge_size_is_refused_before_decoding(
+    tmp_path, monkeypatch, width, height, words
+):
+    """The header's width and height are checked against what the file can hold (and a sane
+    limit) before anything is decoded: the decoder would allocate the claimed size first."""
+    path = tmp_path / "big.bmp"
+    path.write_bytes(_bmp(width, height, b"\x00" * 100))
+
+    def no_decoding(*args, **kwargs):
+        raise AssertionError("the file was decoded")
+
+    monkeypatch.setattr(cv2, "imread", no_decoding)
+    with pytest.raises(InputError, match=f"big.bmp.*{words}") as info:
+        read_image(path)
+    assert len(str(info.value).splitlines()) <= 3
+    assert "accepted" in str(info.value)
+
+
+def test_small_bmp_still_reads(tmp_path):
+    """A real 24-bit BMP of odd width (rows padded to 4 bytes) passes the size check."""
+    rgb = np.zeros((7, 5, 3), np.uint8)
+    rgb[..., 1] = 200
+    cv2.imwrite(str(tmp_path / "odd.bmp"), rgb)
+    img = read_image(tmp_path / "odd.bmp")
+    assert img.shape == (7, 5)

@@ -104,10 +104,10 @@ def test_calibrated_values_feed_the_likelihood():
 
 
 def test_unidentifiable_calibration_is_refused():
-    """One exposure and no dark frame cannot separate dark offset from contrast scale: the
-    message says what data would."""
+    """One exposure and no image with the light blocked cannot separate dark offset from contrast
+    scale: the message says what data would."""
     obs = _simulate(np.random.default_rng(6), exposures=(1.0,))
-    with pytest.raises(InputError, match="dark frame"):
+    with pytest.raises(InputError, match="light blocked"):
         calibrate(obs, material=M, substrate=NOMINAL, microscope=MIC)
     cal = calibrate(
         obs,
