@@ -25,7 +25,12 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
         default=None,
         help="the flake goes on over the supported region with this conductance",
     )
-    p.add_argument("--interface-conductance-err-w-m2k", type=float, default=0.0)
+    p.add_argument(
+        "--interface-conductance-err-w-m2k",
+        type=float,
+        default=0.0,
+        help="its s.d., W/m^2/K (not yet drawn in the Monte Carlo)",
+    )
     p.add_argument(
         "--kappa-alpha",
         type=float,
@@ -45,7 +50,12 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
         default=None,
         help="the Raman objective's NA (absorptance over its cone)",
     )
-    p.add_argument("--hole-depth-err-nm", type=float, default=None)
+    p.add_argument(
+        "--hole-depth-err-nm",
+        type=float,
+        default=None,
+        help="s.d. of the hole depth, nm (default 5%% of the depth, with a warning)",
+    )
     _common.add_format_option(p)  # fmt: skip
 
 
@@ -57,29 +67,76 @@ def register(sub: argparse._SubParsersAction) -> None:
         "thermometry heats the sample with a laser: follow your institution's laser-safety "
         "rules and local regulations.",
     )
-    p.add_argument("--project", default=None, metavar="P")
-    p.add_argument("--flake", default=None, metavar="ID")
-    p.add_argument("--material", default=None)
-    p.add_argument("--layers", type=int, default=None)
-    p.add_argument("--chi-t-cm1-per-k", type=float, default=None)
-    p.add_argument("--chi-t-err-cm1-per-k", type=float, default=0.0)
+    p.add_argument(
+        "--project",
+        default=None,
+        metavar="P",
+        help="a project: use the flake's stored series, hole and beam (with --flake)",
+    )
+    p.add_argument("--flake", default=None, metavar="ID", help="with --project: the flake")
+    p.add_argument(
+        "--material",
+        default=None,
+        metavar="M",
+        help="the flake's material (its layer spacing gives the thickness)",
+    )
+    p.add_argument(
+        "--layers",
+        type=int,
+        default=None,
+        help="the layer number (with --project: overrides the posterior)",
+    )
+    p.add_argument(
+        "--chi-t-cm1-per-k",
+        type=float,
+        default=None,
+        help="temperature coefficient of the mode, cm^-1/K (negative: it softens)",
+    )
+    p.add_argument("--chi-t-err-cm1-per-k", type=float, default=0.0, help="its s.d., cm^-1/K")
     p.add_argument("--chi-p-cm1-per-mw", type=float, default=None,
                    help="shift per mW of incident power at the sample")  # fmt: skip
-    p.add_argument("--chi-p-err-cm1-per-mw", type=float, default=0.0)
-    p.add_argument("--chi-correlation", type=float, default=0.0)
-    p.add_argument("--absorptance", type=float, default=None)
-    p.add_argument("--absorptance-err", type=float, default=0.0)
-    p.add_argument("--geometry", choices=("suspended",), default=None)
+    p.add_argument("--chi-p-err-cm1-per-mw", type=float, default=0.0, help="its s.d., cm^-1/mW")
+    p.add_argument(
+        "--chi-correlation",
+        type=float,
+        default=0.0,
+        help="correlation of chi_T and chi_P (default 0: separate series)",
+    )
+    p.add_argument(
+        "--absorptance",
+        type=float,
+        default=None,
+        help="fraction of the incident power absorbed in the flake (0-1)",
+    )
+    p.add_argument("--absorptance-err", type=float, default=0.0, help="its s.d.")
+    p.add_argument(
+        "--geometry",
+        choices=("suspended",),
+        default=None,
+        help="compute the absorptance of the membrane over its hole from optics",
+    )
     g = p.add_mutually_exclusive_group()
-    g.add_argument("--oxide-nm", type=float, default=None)
-    g.add_argument("--substrate", metavar="SPEC", default=None)
-    p.add_argument("--hole-bottom", choices=("si", "au", "open"), default=None)
-    p.add_argument("--hole-depth-nm", type=float, default=None)
-    p.add_argument("--hole-radius-um", type=float, default=None)
-    p.add_argument("--hole-radius-err-um", type=float, default=0.0)
-    p.add_argument("--beam-radius-um", type=float, default=None)
-    p.add_argument("--beam-radius-err-um", type=float, default=0.0)
-    p.add_argument("--laser-nm", type=float, default=532.0)
+    g.add_argument("--oxide-nm", type=float, default=None, help="SiO2 thickness on Si, nm")
+    g.add_argument(
+        "--substrate",
+        metavar="SPEC",
+        default=None,
+        help="the stack from the top down, e.g. SiO2:285,Si",
+    )
+    p.add_argument(
+        "--hole-bottom",
+        choices=("si", "au", "open"),
+        default=None,
+        help="etched to the Si, gold-bottomed, or a through-hole",
+    )
+    p.add_argument("--hole-depth-nm", type=float, default=None, help="hole depth, nm")
+    p.add_argument("--hole-radius-um", type=float, default=None, help="hole radius R, um")
+    p.add_argument("--hole-radius-err-um", type=float, default=0.0, help="its s.d., um")
+    p.add_argument(
+        "--beam-radius-um", type=float, default=None, help="laser beam 1/e^2 intensity radius W, um"
+    )
+    p.add_argument("--beam-radius-err-um", type=float, default=0.0, help="its s.d., um")
+    p.add_argument("--laser-nm", type=float, default=532.0, help="laser line, nm (default 532)")
     _add_model_options(p)
     p.set_defaults(func=_kappa)
 
@@ -93,12 +150,21 @@ def register(sub: argparse._SubParsersAction) -> None:
         "Si-line calibration within a series). Raman thermometry heats the sample with a laser: "
         "follow your institution's laser-safety rules and local regulations.",
     )
-    i.add_argument("project")
-    i.add_argument("--flake", required=True, metavar="ID")
-    i.add_argument("--kind", required=True, choices=("temperature", "power"))
-    i.add_argument("source", metavar="FOLDER_OR_CSV")
+    i.add_argument("project", help="the project file (.flakebook)")
+    i.add_argument("--flake", required=True, metavar="ID", help="the flake the series belongs to")
+    i.add_argument(
+        "--kind",
+        required=True,
+        choices=("temperature", "power"),
+        help="a stage-temperature series or a laser-power series",
+    )
+    i.add_argument(
+        "source",
+        metavar="FOLDER_OR_CSV",
+        help="a folder of spectra (with a CSV), or the CSV naming them",
+    )
     i.add_argument("--mode", default=None, help="the Raman mode to follow (default: material's)")
-    i.add_argument("--laser-nm", type=float, default=532.0)
+    i.add_argument("--laser-nm", type=float, default=532.0, help="laser line, nm (default 532)")
     i.add_argument("--max-power-mw", type=float, default=None,
                    help="flag series points above this power at the sample (default 1 mW)")  # fmt: skip
     _common.add_format_option(i)
