@@ -138,6 +138,11 @@ class ProjectBrowser(QWidget):
         if item is not None:
             self.tree.setCurrentItem(item)
             self.tree.scrollToItem(item)
+        else:
+            cur = self.tree.currentItem()
+            if cur is not None and cur.data(0, KIND_ROLE) in ("flake", "appearance"):
+                # no flake current: clicking the one that was must select it again
+                self.tree.setCurrentItem(None)
         self._quiet = False
 
     def select_image(self, image_id: int | None) -> None:

@@ -302,6 +302,8 @@ class Inspector(QScrollArea):
         for g in self._groups:
             g.setVisible(flake is not None)
         if flake is None:
+            if self.bars is not None:
+                self.bars.setVisible(False)
             self.title.setText("No flake selected")
             self.subtitle.setText("Select a flake on the image, in the browser or the catalogue.")
             return
@@ -350,10 +352,14 @@ class Inspector(QScrollArea):
         nmax = len(post) - 1
         x = np.arange(1, len(post) + 1)
         brushes = [palette.layer_hex(int(n)) if n <= nmax else palette.THICK_COLOUR for n in x]
-        self.bars = pg.BarGraphItem(
-            x=x, height=post, width=0.8, brushes=brushes, pen=pg.mkPen("#333333")
-        )
-        plot.addItem(self.bars)
+        if self.bars is None:  # one bar item, given each flake's bars (never a second one)
+            self.bars = pg.BarGraphItem(
+                x=x, height=post, width=0.8, brushes=brushes, pen=pg.mkPen("#333333")
+            )
+            plot.addItem(self.bars)
+        else:
+            self.bars.setOpts(x=x, height=post, width=0.8, brushes=brushes)
+            self.bars.setVisible(True)
         if getattr(self, "_post_nmax", None) != nmax:  # axis changes are slow: only when needed
             self._post_nmax = nmax
             ticks = [(int(n), str(int(n))) for n in x[:-1] if n <= 5 or n % 5 == 0 or n == nmax]
@@ -553,11 +559,20 @@ class Inspector(QScrollArea):
         self.no_holes.setVisible(not holes)
 
     # ---- edits ---------------------------------------------------------------------------
+    def commit_edits(self) -> None:
+        """Send tags and notes typed but not yet saved (called before the selection changes,
+        the project closes or the window quits, so that nothing typed is lost)."""
+        if self.flake is None or self.read_only:
+            return
+        self._on_tags()
+        self._on_notes()
+
     def _on_tags(self) -> None:
         if self.flake is None or self.read_only:
             return
         tags = [t.strip() for t in self.tags.text().split(",") if t.strip()]
         if tags != list(self.flake.get("tags") or []):
+            self.flake["tags"] = tags  # sent once, also if the window redraws on the way
             self.tagsEdited.emit(self.flake["id"], tags)
 
     def _on_notes(self) -> None:
@@ -565,6 +580,7 @@ class Inspector(QScrollArea):
             return
         text = self.notes.toPlainText()
         if text != (self.flake.get("notes") or ""):
+            self.flake["notes"] = text
             self.notesEdited.emit(self.flake["id"], text)
 
     def _on_assign(self) -> None:

@@ -362,15 +362,15 @@ class CatalogueView(QWidget):
         """Select the row of ``flake_id`` without emitting flakeActivated."""
         quiet, self._quiet = self._quiet, True
         try:
-            if flake_id is None:
-                self.table.clearSelection()
-                return
-            for i in range(self.proxy.rowCount()):
+            for i in range(self.proxy.rowCount() if flake_id is not None else 0):
                 idx = self.proxy.index(i, 0)
                 if idx.data(ID_ROLE) == flake_id:
                     self.table.setCurrentIndex(idx)
                     self.table.scrollTo(idx)
                     return
+            # no row is current either: a click on the row that was current must select it
+            self.table.clearSelection()
+            self.table.selectionModel().clearCurrentIndex()
         finally:
             self._quiet = quiet
 

@@ -1,0 +1,110 @@
+"""Faults of the window found by trying it as a new user would (issue 12), each driven with
+pytest-qt on the small project of conftest.py. Checks of the program's own behaviour: common
+practice for GUI testing, no source.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from PySide6.QtCore import Qt
+
+
+def _fid(window, label):
+    return window.session.project.flake_by_label(label).id
+
+
+def _bar_items(inspector):
+    import pyqtgraph as pg
+
+    return [i for i in inspector.post_plot.getPlotItem().items if isinstance(i, pg.BarGraphItem)]
+
+
+def test_posterior_chart_shows_only_the_selected_flake(window):
+    """After viewing three flakes the chart holds one set of bars: the fourth flake's."""
+    for label in ("Q3W-001", "Q3W-002", "Q3W-003", "Q3W-001"):
+        window.select_flake(_fid(window, label))
+    bars = _bar_items(window.inspector)
+    assert len(bars) == 1
+    heights = np.asarray(bars[0].opts["height"])
+    assert int(np.argmax(heights)) + 1 == 1
+    # nothing drawn for a flake without evidence
+    window.select_flake(None)
+    assert not any(b.isVisible() for b in _bar_items(window.inspector))
+
+
+def test_notes_in_progress_are_kept_on_selection_change(qtbot, window):
+    """Notes typed but not saved reach the project when another flake is selected."""
+    a, b = _fid(window, "Q3W-001"), _fid(window, "Q3W-002")
+    window.select_flake(a)
+    window.inspector.notes.setFocus()
+    qtbot.keyClicks(window.inspector.notes, "edge torn at the top")
+    window.select_flake(b)
+    assert window.session.project.get("flake", a).notes == "edge torn at the top"
+    window.select_flake(a)
+    assert window.inspector.notes.toPlainText() == "edge torn at the top"
+    # tags typed without Enter likewise
+    window.inspector.tags.setText("raman-next")
+    window.select_flake(b)
+    assert tuple(window.session.project.get("flake", a).tags) == ("raman-next",)
+
+
+def test_notes_in_progress_are_kept_on_close(qtbot, project_path):
+    """Closing the project (or quitting) saves notes being typed."""
+    from flakebook.gui.mainwindow import MainWindow
+    from flakebook.store import Project
+
+    w = MainWindow()
+    qtbot.addWidget(w)
+    w.show()
+    w.open_project(project_path)
+    qtbot.waitUntil(lambda: not w.jobs.busy, timeout=10000)
+    fid = w.session.project.flake_by_label("Q3W-003").id
+    w.select_flake(fid)
+    w.inspector.notes.setPlainText("check for bubbles")
+    w.close()
+    with Project.open(project_path, read_only=True) as p:
+        assert p.get("flake", fid).notes == "check for bubbles"
+
+
+def test_catalogue_row_selects_flake_everywhere(qtbot, window):
+    """Clicking a catalogue row selects that flake in inspector, browser and canvas, also the
+    row that was current before the selection was cleared on the canvas."""
+    window.show_view("catalogue")
+    table = window.catalogue.table
+    fid = _fid(window, "Q3W-002")
+
+    def click_row_of(flake_id):
+        proxy = window.catalogue.proxy
+        for i in range(proxy.rowCount()):
+            idx = proxy.index(i, 1)
+            if window.catalogue.model.rows[proxy.mapToSource(idx).row()]["id"] == flake_id:
+                qtbot.mouseClick(
+                    table.viewport(), Qt.MouseButton.LeftButton, pos=table.visualRect(idx).center()
+                )
+                return
+        raise AssertionError(flake_id)
+
+    click_row_of(fid)
+    assert window.current_flake == fid
+    assert window.inspector.title.text() == "Q3W-002"
+    # the selection cleared elsewhere (an empty spot on the image), then the same row again
+    window.select_flake(None)
+    assert window.inspector.title.text() == "No flake selected"
+    window.show_view("catalogue")
+    click_row_of(fid)
+    assert window.current_flake == fid
+    assert window.inspector.title.text() == "Q3W-002"
+    assert window.browser.tree.currentItem().text(0) == "Q3W-002"
+    assert window.canvas.selected_flake == fid
+
+
+def test_browser_flake_selects_again_after_clearing(qtbot, window):
+    """The browser's flake item selects its flake again after the selection was cleared."""
+    fid = _fid(window, "Q3W-001")
+    item = window.browser._flake_items[fid]
+    window.browser.tree.setCurrentItem(item)
+    assert window.current_flake == fid
+    window.select_flake(None)
+    window.browser.tree.setCurrentItem(window.browser._flake_items[fid])
+    assert window.current_flake == fid
+    assert window.inspector.title.text() == "Q3W-001"
