@@ -222,6 +222,7 @@ class ImageCanvas(pg.GraphicsView):
     outlineEdited = Signal(int, object)
     segmentRequested = Signal(float, float)
     toolChanged = Signal(str)
+    editEnded = Signal()  # an outline being edited was kept or dropped
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent, background="#202124")
@@ -505,15 +506,18 @@ class ImageCanvas(pg.GraphicsView):
         self.toolChanged.emit(name)
 
     def cancel_tool(self) -> None:
-        """Drop a line or outline in progress, and any outline being edited."""
+        """Drop a line or outline in progress, a measured distance shown, and any outline
+        being edited (then ``editEnded`` is emitted)."""
         self._points = []
         self._rubber.setData([], [])
+        self._measure_text.setVisible(False)
         if self._edit_roi is not None:
             self.view.removeItem(self._edit_roi)
             self._edit_roi = None
             if self._edit_appearance in self.outlines:
                 self.outlines[self._edit_appearance].setVisible(True)
             self._edit_appearance = None
+            self.editEnded.emit()
 
     def image_point(self, scene_pos: QPointF) -> tuple[float, float]:
         p = self.view.mapSceneToView(scene_pos)

@@ -108,3 +108,30 @@ def test_browser_flake_selects_again_after_clearing(qtbot, window):
     window.browser.tree.setCurrentItem(window.browser._flake_items[fid])
     assert window.current_flake == fid
     assert window.inspector.title.text() == "Q3W-001"
+
+
+def _click_image(qtbot, window, x, y):
+    from PySide6.QtCore import QPointF
+
+    canvas = window.canvas
+    view_pt = canvas.mapFromScene(canvas.view.mapViewToScene(QPointF(x, y)))
+    qtbot.mouseClick(canvas.viewport(), Qt.MouseButton.LeftButton, pos=view_pt)
+
+
+def test_overlays_and_status_end_with_their_tool(qtbot, window):
+    """The distance label goes with the measure tool; "Editing" goes when editing ends."""
+    window.tool_actions["measure"].trigger()
+    _click_image(qtbot, window, 100, 100)
+    _click_image(qtbot, window, 300, 300)
+    assert window.canvas._measure_text.isVisible()
+    window.tool_actions["select"].trigger()
+    assert not window.canvas._measure_text.isVisible()
+    assert not window.hint_label.text().startswith("Distance")
+    # editing an outline: the status says so while it lasts, and no longer after Esc or Enter
+    for key in (Qt.Key.Key_Escape, Qt.Key.Key_Return):
+        window.select_flake(_fid(window, "Q3W-001"))
+        window.a_edit_outline.trigger()
+        assert window.hint_label.text().startswith("Editing")
+        qtbot.keyClick(window.canvas, key)
+        assert not window.canvas.editing
+        assert "Editing" not in window.hint_label.text()
