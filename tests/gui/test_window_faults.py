@@ -135,3 +135,47 @@ def test_overlays_and_status_end_with_their_tool(qtbot, window):
         qtbot.keyClick(window.canvas, key)
         assert not window.canvas.editing
         assert "Editing" not in window.hint_label.text()
+
+
+def _find(qtbot, window):
+    job = window.find_flakes()
+    qtbot.waitUntil(lambda: job.done.is_set() and not window.jobs.busy, timeout=30000)
+    assert not window.errors, window.errors
+
+
+def test_find_flakes_again_updates_the_flakes_there(qtbot, window):
+    """Finding flakes on a surveyed image matches regions to the flakes already there (outline
+    overlap): no duplicate, label, tags, notes and manual assignment kept, outline and evidence
+    renewed; the status says how many were updated and how many are new; undo restores."""
+    p = window.session.project
+    labels = sorted(f.label for f in p.flakes_of(1))
+    fid = _fid(window, "Q3W-002")
+    window.set_notes(fid, "for thermometry")
+    window.set_tags(fid, ["raman-next"])
+    window.assign(fid, 2, "shear mode at 22 cm-1")
+    before = p.appearances_of(fid)[0].outline_px.copy()
+    depth = window.undo_stack.index()
+    for _ in range(2):  # twice: still no duplicate
+        _find(qtbot, window)
+        assert sorted(f.label for f in p.flakes_of(1)) == labels
+        for f in p.flakes_of(1):
+            assert len([a for a in p.appearances_of(f) if a.image_id == 1]) == 1
+        flake = p.get("flake", fid)
+        assert flake.notes == "for thermometry"
+        assert tuple(flake.tags) == ("raman-next",)
+        manual = [a for a in p.assignments_of(fid) if a.manual]
+        assert [(a.layers, a.reason) for a in manual] == [(2, "shear mode at 22 cm-1")]
+        assert window.catalogue.model.rows[
+            [r["id"] for r in window.catalogue.model.rows].index(fid)
+        ]["manual"]
+        # the outline is the survey's now, and its evidence comes from the survey
+        after = p.appearances_of(fid)[0].outline_px
+        assert after.shape != before.shape or not np.allclose(after, before)
+        assert any("target_probability" in e.parameters for e in p.evidence_of(fid))
+        assert "3 updated, 0 new" in window.undo_stack.text(window.undo_stack.count() - 1)
+        assert "3 updated, 0 new" in window.hint_label.text()
+    while window.undo_stack.index() > depth:
+        window.a_undo.trigger()
+    assert np.allclose(p.appearances_of(fid)[0].outline_px, before)
+    assert not any("target_probability" in e.parameters for e in p.evidence_of(fid))
+    assert [a.reason for a in p.assignments_of(fid) if a.manual] == ["shear mode at 22 cm-1"]
