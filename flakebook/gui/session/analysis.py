@@ -115,9 +115,10 @@ class Analysis:
                     if old_tid is None or not new_terraces:
                         return None
                     o = p.get(Terrace, old_tid).outline_px
-                    return max(new_terraces, key=lambda t: outline_iou(o, t.outline_px)).id
+                    overlaps = [outline_iou(o, ter.outline_px) for ter in new_terraces]
+                    return new_terraces[int(np.argmax(overlaps))].id
 
-                old_tids = {t.id for t in p.records(Terrace, appearance_id=old.id)}
+                old_tids = {ter.id for ter in p.records(Terrace, appearance_id=old.id)}
                 flake = p.get(Flake, old.flake_id)
                 for rec in p.evidence_of(flake):  # spectra, AFM, ...: to the new terrace
                     if rec.method != CONTRAST_METHOD and rec.terrace_id in old_tids:
