@@ -17,6 +17,7 @@ import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QFont
 from PySide6.QtWidgets import (
+    QApplication,
     QComboBox,
     QFormLayout,
     QGroupBox,
@@ -95,6 +96,43 @@ def model_differences(candidates: list[int], model: dict | None, contrast_err: d
     return f"Model contrast difference {a}L–{b}L per channel: " + ", ".join(parts) + "."
 
 
+class PanelPlot(pg.PlotWidget):
+    """A plot in a scrolling panel: the mouse wheel scrolls the panel unless the user has
+    clicked into the plot (until the pointer leaves it); a double-click restores the axes
+    (``reset``, set by the owner)."""
+
+    def __init__(self, parent: QWidget | None = None, **kw) -> None:
+        super().__init__(parent, **kw)
+        self.armed = False
+        self.reset = None
+        self.setToolTip("Click into the plot to zoom it with the wheel; double-click to reset")
+
+    def mousePressEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        self.armed = True
+        super().mousePressEvent(ev)
+
+    def mouseDoubleClickEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        if self.reset is not None:
+            self.reset()
+        ev.accept()
+
+    def leaveEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        self.armed = False
+        super().leaveEvent(ev)
+
+    def wheelEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        if self.armed:
+            super().wheelEvent(ev)
+            return
+        # to the scroll area around (the graphics view would not pass it on by itself)
+        w = self.parentWidget()
+        while w is not None and not isinstance(w, QScrollArea):
+            w = w.parentWidget()
+        if w is not None:
+            QApplication.sendEvent(w.verticalScrollBar(), ev)
+        ev.accept()
+
+
 class Inspector(QScrollArea):
     """The inspector dock's content. Signals carry the user's edits to the window."""
 
@@ -156,7 +194,8 @@ class Inspector(QScrollArea):
         self.evidence.setTextFormat(Qt.TextFormat.RichText)
 
         # Contrast vs N
-        self.con_plot = pg.PlotWidget(body, background="w")
+        self.con_plot = PanelPlot(body, background="w")
+        self.con_plot.reset = self._reset_contrast_axes
         self.con_plot.setObjectName("contrastPlot")
         self.con_plot.setFixedHeight(210)
         self.con_plot.hideButtons()
@@ -487,9 +526,11 @@ class Inspector(QScrollArea):
             ranges = (n_show, (round(lo - pad, 3), round(hi + pad, 3)))
         if ranges != getattr(self, "_con_ranges", None):  # range changes are slow: only when needed
             self._con_ranges = ranges
-            plot.setXRange(0.5, n_show + 0.5, padding=0)
-            if ranges[1] is not None:
-                plot.setYRange(*ranges[1], padding=0)
+            # never beyond meaningful limits: N within 0.5 .. N_max + 1.5, C within -1 .. 1
+            plot.getPlotItem().getViewBox().setLimits(
+                xMin=0.5, xMax=nmax + 1.5, yMin=-1.0, yMax=1.0
+            )
+            self._reset_contrast_axes()
         self.con_key.setText("channels: " + " &nbsp; ".join(keys) if keys else "")
         amb = [best] + list(flake.get("ambiguous_with") or []) if best else []
         text = "<b>What would decide:</b> "
@@ -508,6 +549,15 @@ class Inspector(QScrollArea):
                 "Model per channel (points), measured contrast (dashed line, band ±1σ, bar at the "
                 "assigned N). C = (R_substrate − R_flake)/R_substrate."
             )
+
+    def _reset_contrast_axes(self) -> None:
+        """The contrast plot's ranges as first shown for this flake."""
+        ranges = getattr(self, "_con_ranges", None)
+        if ranges is None:
+            return
+        self.con_plot.setXRange(0.5, ranges[0] + 0.5, padding=0)
+        if ranges[1] is not None:
+            self.con_plot.setYRange(*ranges[1], padding=0)
 
     def set_model(self, flake_id: int, curves: dict[str, np.ndarray] | None) -> None:
         """Model contrast per channel (arrays over N = 1..) for flake ``flake_id``."""

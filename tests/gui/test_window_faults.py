@@ -179,3 +179,51 @@ def test_find_flakes_again_updates_the_flakes_there(qtbot, window):
     assert np.allclose(p.appearances_of(fid)[0].outline_px, before)
     assert not any("target_probability" in e.parameters for e in p.evidence_of(fid))
     assert [a.reason for a in p.assignments_of(fid) if a.manual] == ["shear mode at 22 cm-1"]
+
+
+def _wheel(widget, steps=-3):
+    from PySide6.QtCore import QPoint, QPointF
+    from PySide6.QtGui import QWheelEvent
+    from PySide6.QtWidgets import QApplication
+
+    centre = QPointF(widget.width() / 2, widget.height() / 2)
+    ev = QWheelEvent(
+        centre,
+        QPointF(widget.mapToGlobal(centre.toPoint())),
+        QPoint(0, 0),
+        QPoint(0, 120 * steps),
+        Qt.MouseButton.NoButton,
+        Qt.KeyboardModifier.NoModifier,
+        Qt.ScrollPhase.NoScrollPhase,
+        False,
+    )
+    QApplication.sendEvent(widget, ev)
+
+
+def test_inspector_plot_lets_the_wheel_scroll_the_panel(qtbot, window):
+    """The wheel over the contrast plot scrolls the inspector, not the plot, until the user
+    clicks into it; the axes stay within meaningful limits and a double-click resets them."""
+    ins = window.inspector
+    window.select_flake(_fid(window, "Q3W-002"))
+    qtbot.waitUntil(lambda: ins.model_curves is not None, timeout=10000)
+    window.inspector_dock.resize(400, 300)
+    ins.resize(380, 300)
+    vb = ins.con_plot.getPlotItem().getViewBox()
+    before = [list(r) for r in vb.viewRange()]
+    bar = ins.verticalScrollBar()
+    bar.setValue(0)
+    _wheel(ins.con_plot.viewport())
+    assert [list(r) for r in vb.viewRange()] == before
+    assert bar.maximum() > 0, bar.maximum()
+    assert bar.value() > 0  # the panel scrolled
+    # zoomed far out by other means, the N axis stays within 0.5 .. N_max + 1.5
+    vb.setXRange(-50, 150, padding=0)
+    lo, hi = vb.viewRange()[0]
+    nmax = window.session.project.max_layers
+    assert lo >= 0.5 - 1e-6 and hi <= nmax + 1.5 + 1e-6
+    qtbot.mouseDClick(ins.con_plot.viewport(), Qt.MouseButton.LeftButton)
+    assert np.allclose(vb.viewRange()[0], before[0], atol=1e-6)
+    # clicked into, the plot takes the wheel
+    qtbot.mouseClick(ins.con_plot.viewport(), Qt.MouseButton.LeftButton)
+    _wheel(ins.con_plot.viewport())
+    assert not np.allclose(vb.viewRange()[0], before[0], atol=1e-6)
