@@ -227,3 +227,46 @@ def test_inspector_plot_lets_the_wheel_scroll_the_panel(qtbot, window):
     qtbot.mouseClick(ins.con_plot.viewport(), Qt.MouseButton.LeftButton)
     _wheel(ins.con_plot.viewport())
     assert not np.allclose(vb.viewRange()[0], before[0], atol=1e-6)
+
+
+def _toolbar_buttons(window):
+    from PySide6.QtWidgets import QToolBar, QToolButton
+
+    tb = window.findChild(QToolBar, "mainToolbar")
+    return tb, {
+        a.objectName() or a.text(): tb.widgetForAction(a)
+        for a in tb.actions()
+        if not a.isSeparator() and isinstance(tb.widgetForAction(a), QToolButton)
+    }
+
+
+def test_toolbar_buttons_keep_their_places(qtbot, window):
+    """Toolbar buttons are icons of one size with tooltips: an edit does not move them, none
+    falls into the overflow menu, and undo says in its tooltip what it undoes."""
+    tb, buttons = _toolbar_buttons(window)
+    for name, button in buttons.items():
+        assert not button.icon().isNull(), name
+        assert button.toolButtonStyle() == Qt.ToolButtonStyle.ToolButtonIconOnly, name
+        assert button.toolTip(), name
+    geometry = {n: b.geometry() for n, b in buttons.items()}
+    assert all(b.isVisible() for b in buttons.values())  # none in the overflow menu
+    window.tool_actions["hole"].trigger()
+    _click_image(qtbot, window, 500, 420)
+    qtbot.wait(50)
+    assert {n: b.geometry() for n, b in buttons.items()} == geometry
+    assert "place hole" in window.a_undo.toolTip().lower() and "Ctrl+Z" in window.a_undo.toolTip()
+    window.a_undo.trigger()
+    assert "place hole" in window.a_redo.toolTip().lower()
+
+
+def test_undo_key_works_in_a_spin_box(qtbot, window):
+    """Ctrl+Z undoes the last edit while a spin box has the focus (and nothing of its own to
+    undo)."""
+    window.select_flake(_fid(window, "Q3W-001"))
+    window.set_tags(_fid(window, "Q3W-001"), ["raman-next"])
+    index = window.undo_stack.index()
+    box = window.inspector.assign_n
+    box.setFocus()
+    qtbot.waitUntil(box.hasFocus)
+    qtbot.keyClick(box, Qt.Key.Key_Z, Qt.KeyboardModifier.ControlModifier)
+    assert window.undo_stack.index() == index - 1
