@@ -80,7 +80,7 @@ class OutlineItem(QGraphicsPathItem):
         for poly, layers in shape.terraces:
             item = QGraphicsPathItem(_path(poly), self)
             colour = palette.layer_colour(layers)
-            colour.setAlpha(110)  # strong enough that the legend's colour shows
+            colour.setAlpha(150)  # strong enough that the legend's colour shows
             item.setBrush(QBrush(colour))
             pen = QPen(palette.layer_colour(layers), 1.0)
             pen.setCosmetic(True)

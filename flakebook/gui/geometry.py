@@ -53,7 +53,7 @@ def merge_outlines(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     n, _labels = cv2.connectedComponents(union)
     if n - 1 > 1:
         raise InputError(
-            "The two outlines neither touch nor overlap; merge only neighbouring regions."
+            "The two outlines neither touch nor overlap; merge only neighbouring outlines."
         )
     out = _outline(union, origin)
     if out is None:

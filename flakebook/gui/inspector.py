@@ -36,6 +36,7 @@ from PySide6.QtWidgets import (
 )
 
 from flakebook.gui import palette
+from flakebook.gui.words import CONTRAST_DEFINITION, p_text
 
 #: Pens for channel curves: red, green and blue channels in Okabe-Ito vermillion, bluish green and
 #: blue, told apart by their symbols as well (o, s, t); other channels in the remaining colours.
@@ -204,8 +205,7 @@ class Inspector(QScrollArea):
         self.con_key = QLabel(body)
         self.con_key.setTextFormat(Qt.TextFormat.RichText)
         self.con_note = QLabel(
-            "Model per channel (points), measured contrast (line, band ±1σ), "
-            "C = (R_substrate − R_flake)/R_substrate.",
+            f"Model per channel (points), measured contrast (line, band ±1σ). {CONTRAST_DEFINITION}.",
             body,
         )
         self.con_note.setWordWrap(True)
@@ -402,7 +402,7 @@ class Inspector(QScrollArea):
         if getattr(self, "_post_nmax", None) != nmax:  # axis changes are slow: only when needed
             self._post_nmax = nmax
             ticks = [(int(n), str(int(n))) for n in x[:-1] if n <= 5 or n % 5 == 0 or n == nmax]
-            ticks.append((len(post), f">{nmax}"))
+            ticks.append((len(post), palette.layer_label(len(post))))
             plot.getAxis("bottom").setTicks([ticks])
             plot.setXRange(0.4, len(post) + 0.6, padding=0)
         layers = flake.get("layers")
@@ -411,11 +411,11 @@ class Inspector(QScrollArea):
         if flake.get("manual"):
             text = f"<b>{palette.layer_label(layers)}</b> set by hand: {flake.get('manual_reason') or ''}"
             if p is not None:
-                text += f" (evidence alone: {flake.get('evidence_layers')}L, P = {flake.get('evidence_probability', 0):.2f})"
+                text += f" (evidence alone: {palette.layer_label(flake.get('evidence_layers'))}, {p_text(flake.get('evidence_probability'))})"
         elif layers is None:
             text = "No layer number yet."
         else:
-            text = f"<b>{palette.layer_label(layers)}</b>, P = {p:.2f}"
+            text = f"<b>{palette.layer_label(layers)}</b>, {p_text(p)}"
             if amb:
                 text += " · ambiguous with " + ", ".join(palette.layer_label(n) for n in amb)
         self.verdict.setText(text)
@@ -547,7 +547,7 @@ class Inspector(QScrollArea):
         else:
             self.con_note.setText(
                 "Model per channel (points), measured contrast (dashed line, band ±1σ, bar at the "
-                "assigned N). C = (R_substrate − R_flake)/R_substrate."
+                f"assigned N). {CONTRAST_DEFINITION}."
             )
 
     def _reset_contrast_axes(self) -> None:

@@ -44,6 +44,7 @@ from flakebook.gui.window.projects import (
     settings,
 )
 from flakebook.gui.window.samples import Exports, SettingsDialogs
+from flakebook.gui.words import CONTRAST_DEFINITION
 from flakebook.gui.worker import Job, JobBar
 
 
@@ -131,10 +132,9 @@ class MainWindow(
         self.contrast_label.setObjectName("cursorContrast")
         self.contrast_label.setMinimumWidth(230)
         self.contrast_label.setToolTip(
-            "Contrast of the pixel under the cursor, C = (I_substrate − I_pixel)/I_substrate per "
-            "channel in linear intensity, against the image's bare-substrate level "
-            "(flakebook.imaging); no flat-field correction, so it is a guide: the flakes' own "
-            "contrast in the inspector is the measured one."
+            f"{CONTRAST_DEFINITION}, here for the pixel under the cursor against the image's "
+            "bare-substrate level, in linear intensity; no flat-field correction, so it is a "
+            "guide: the flakes' own contrast in the inspector is the measured one."
         )
         self.scale_label = QLabel(self)
         self.scale_label.setObjectName("pixelSize")

@@ -8,6 +8,12 @@ from __future__ import annotations
 
 import math
 
+#: The one wording of the contrast definition the window uses (DESIGN.md).
+CONTRAST_DEFINITION = (
+    "Contrast C = (R_substrate − R_flake) / R_substrate per channel, positive when the flake "
+    "is darker than the bare substrate"
+)
+
 #: Record kinds in words.
 KIND_WORDS = {
     "flake_hole": ("flake-hole link", "flake-hole links"),
@@ -67,3 +73,9 @@ def probability(p: float | None) -> str:
 def _superscript(n: int) -> str:
     table = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
     return str(n).translate(table)
+
+
+def p_text(p: float | None, name: str = "P") -> str:
+    """``"P = 0.76"``, ``"P > 0.99"`` or ``"P < 0.01"`` (``name`` in place of P)."""
+    text = probability(p)
+    return f"{name} {text}" if text[0] in "<>" else f"{name} = {text}"

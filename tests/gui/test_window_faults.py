@@ -270,3 +270,54 @@ def test_undo_key_works_in_a_spin_box(qtbot, window):
     qtbot.waitUntil(box.hasFocus)
     qtbot.keyClick(box, Qt.Key.Key_Z, Qt.KeyboardModifier.ControlModifier)
     assert window.undo_stack.index() == index - 1
+
+
+def test_numbers_are_rounded_to_their_uncertainty():
+    """Value ± error to 2 significant figures of the error, the value to the same decimal
+    place; probabilities to 2 decimals, "< 0.01" below (rounding as the Particle Data Group's
+    review describes it: error to one or two significant figures, value to match)."""
+    from flakebook.gui.words import plural, probability, value_error
+
+    assert value_error(0.469, 0.00015) == "0.46900 ± 0.00015"
+    assert value_error(0.760209665135969, 0.012) == "0.760 ± 0.012"
+    assert value_error(285.3, 2.77, "nm") == "285.3 ± 2.8 nm"
+    assert value_error(1234.0, 56.0) == "1234 ± 56"
+    assert value_error(9.2e-05, 3.1e-06) == "(9.20 ± 0.31) × 10⁻⁵"
+    assert probability(7.56e-225) == "< 0.01"
+    assert probability(0.760209665135969) == "0.76"
+    assert plural(2, "sample") == "2 samples" and plural(1, "image") == "1 image"
+    assert plural(24, "flake_hole") == "24 flake-hole links"
+
+
+def test_window_words_are_for_people(qtbot, window):
+    """No module paths, type names or raw floats in what the window says; headers that explain
+    themselves; one notation for the thick bin; the layer filter ends at N_max."""
+    import re
+
+    from flakebook.errors import InputError
+    from flakebook.gui.feedback import describe
+    from flakebook.gui.views.catalogue import COLUMNS
+
+    window.select_flake(_fid(window, "Q3W-002"))
+    ins = window.inspector
+    text = ins.evidence.text()
+    assert "flakebook." not in text and "Hsu et al. 2019" in text
+    assert not re.search(r"\d\.\d{6,}|\de-\d", text), text
+    # catalogue headers
+    heads = [c[1] for c in COLUMNS]
+    assert "P" not in heads and "Or" not in heads and "Probability" in heads
+    # candidates say what their number is
+    cand = window.candidates.list.item(0).text()
+    assert "P(target layers) " in cand and "(target 1" not in cand
+    # errors: no Python type names
+    _head, _advice, details = describe(InputError("bad"), "Notes")
+    assert "InputError" not in details
+    # the browser's second column is not called "Layers" when it shows materials and scales
+    assert window.browser.tree.headerItem().text(1) != "Layers"
+    # the thick bin is ">15L" on the chart's axis as in the labels
+    ticks = ins.post_plot.getAxis("bottom")._tickLevels[0]
+    assert ticks[-1][1] == ">15L"
+    # the layer filter stops at N_max + 1 (the ">15L" bin), not 100
+    nmax = window.session.project.max_layers
+    assert window.catalogue.lmax.maximum() == nmax + 1
+    assert window.catalogue.lmax.text() == f">{nmax}L"

@@ -9,6 +9,7 @@ import logging
 
 from PySide6.QtWidgets import QInputDialog
 
+from flakebook.gui.words import plural
 from flakebook.gui.worker import Job
 from flakebook.specs import parse_channel_values
 
@@ -109,9 +110,10 @@ class Analysis:
         text, ok = QInputDialog.getText(
             self,
             "Calibrate optics",
-            f"{n} flake(s) of known layer number (manual assignments) on this sample will be fitted.\n"
-            "Dark frame per channel as a fraction of full scale (e.g. r=0.012,g=0.011,b=0.013),\n"
-            "or empty: no dark frame, the dark offset is taken as 0 ± 0.005.",
+            f"{plural(n, 'flake')} of known layer number (manual assignments) on this sample "
+            "will be fitted.\n"
+            "Dark offset per channel as a fraction of full scale (e.g. r=0.012,g=0.011,b=0.013),\n"
+            "or empty: none measured, the dark offset is taken as 0 ± 0.005.",
         )
         if ok:
             self.calibrate(sample_id, text)
