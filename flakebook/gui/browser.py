@@ -7,6 +7,7 @@ from PySide6.QtGui import QBrush, QColor
 from PySide6.QtWidgets import QLineEdit, QTreeWidget, QTreeWidgetItem, QVBoxLayout, QWidget
 
 from flakebook.gui import palette
+from flakebook.gui.words import p_text
 
 KIND_ROLE = Qt.ItemDataRole.UserRole
 ID_ROLE = Qt.ItemDataRole.UserRole + 1
@@ -33,7 +34,12 @@ class ProjectBrowser(QWidget):
         self.filter.setClearButtonEnabled(True)
         self.filter.textChanged.connect(self._apply_filter)
         self.tree = QTreeWidget(self)
-        self.tree.setHeaderLabels(["Item", "Layers"])
+        self.tree.setHeaderLabels(["Item", "Details"])
+        self.tree.headerItem().setToolTip(
+            1,
+            "Material of a sample, pixel size of an image, layer number and its probability of "
+            "a flake",
+        )
         self.tree.setColumnWidth(0, 170)
         self.tree.setUniformRowHeights(True)
         self.tree.currentItemChanged.connect(self._on_current)
@@ -85,7 +91,7 @@ class ProjectBrowser(QWidget):
                 text = (
                     "-"
                     if layers is None
-                    else (palette.layer_label(layers) + (f" {p:.2f}" if p is not None else ""))
+                    else (palette.layer_label(layers) + (f", {p_text(p)}" if p is not None else ""))
                 )
                 if f.get("stale"):
                     text += " (stale)"
@@ -138,6 +144,11 @@ class ProjectBrowser(QWidget):
         if item is not None:
             self.tree.setCurrentItem(item)
             self.tree.scrollToItem(item)
+        else:
+            cur = self.tree.currentItem()
+            if cur is not None and cur.data(0, KIND_ROLE) in ("flake", "appearance"):
+                # no flake current: clicking the one that was must select it again
+                self.tree.setCurrentItem(None)
         self._quiet = False
 
     def select_image(self, image_id: int | None) -> None:

@@ -80,7 +80,7 @@ class OutlineItem(QGraphicsPathItem):
         for poly, layers in shape.terraces:
             item = QGraphicsPathItem(_path(poly), self)
             colour = palette.layer_colour(layers)
-            colour.setAlpha(38)
+            colour.setAlpha(150)  # strong enough that the legend's colour shows
             item.setBrush(QBrush(colour))
             pen = QPen(palette.layer_colour(layers), 1.0)
             pen.setCosmetic(True)
@@ -112,17 +112,20 @@ class OutlineItem(QGraphicsPathItem):
 
 
 class HoleItem(QGraphicsEllipseItem):
-    """A hole as drawn: a white circle on a dark halo, readable on bare substrate, on a flake
-    and on a bright (gold-bottomed) hole alike; dashed when found by detection or the lattice."""
+    """A hole as drawn: a ring in the hole colour (used for nothing else) on a translucent
+    light halo, readable on bare substrate, on a flake and on a dark or bright hole alike;
+    dashed when found by detection or the lattice."""
 
     def __init__(self, shape: HoleShape) -> None:
         r = float(shape.radius_px)
         super().__init__(shape.x_px - r, shape.y_px - r, 2 * r, 2 * r)
-        halo = QPen(QColor(0, 0, 0, 200), 3.5)
+        halo_colour = QColor(palette.HOLE_HALO)
+        halo_colour.setAlpha(palette.HOLE_HALO_ALPHA)
+        halo = QPen(halo_colour, 4.0)
         halo.setCosmetic(True)
         self.setPen(halo)
         self.inner = QGraphicsEllipseItem(shape.x_px - r, shape.y_px - r, 2 * r, 2 * r, self)
-        pen = QPen(QColor(palette.HOLE_COLOUR), 1.5)
+        pen = QPen(QColor(palette.HOLE_COLOUR), 2.0)
         pen.setCosmetic(True)
         if shape.detected:
             pen.setStyle(Qt.PenStyle.DashLine)
@@ -222,6 +225,7 @@ class ImageCanvas(pg.GraphicsView):
     outlineEdited = Signal(int, object)
     segmentRequested = Signal(float, float)
     toolChanged = Signal(str)
+    editEnded = Signal()  # an outline being edited was kept or dropped
 
     def __init__(self, parent=None) -> None:
         super().__init__(parent, background="#202124")
@@ -462,7 +466,7 @@ class ImageCanvas(pg.GraphicsView):
             for t, c in rows
         )
         self.legend.setText(
-            f"<table cellspacing='1'>{cells}</table><div>holes: <span style='color:{palette.HOLE_COLOUR}'>&#9711;</span></div>"
+            f"<table cellspacing='1'>{cells}</table><div>holes: <span style='color:{palette.HOLE_COLOUR}; background:{palette.HOLE_HALO}'>&#9711;</span></div>"
         )
         self.legend.adjustSize()
         self.legend.show()
@@ -505,15 +509,18 @@ class ImageCanvas(pg.GraphicsView):
         self.toolChanged.emit(name)
 
     def cancel_tool(self) -> None:
-        """Drop a line or outline in progress, and any outline being edited."""
+        """Drop a line or outline in progress, a measured distance shown, and any outline
+        being edited (then ``editEnded`` is emitted)."""
         self._points = []
         self._rubber.setData([], [])
+        self._measure_text.setVisible(False)
         if self._edit_roi is not None:
             self.view.removeItem(self._edit_roi)
             self._edit_roi = None
             if self._edit_appearance in self.outlines:
                 self.outlines[self._edit_appearance].setVisible(True)
             self._edit_appearance = None
+            self.editEnded.emit()
 
     def image_point(self, scene_pos: QPointF) -> tuple[float, float]:
         p = self.view.mapSceneToView(scene_pos)

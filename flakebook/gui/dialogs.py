@@ -7,6 +7,7 @@ close on a bad value, saying what is wrong in the dialog itself.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 from PySide6.QtWidgets import (
@@ -38,7 +39,25 @@ def layered_materials() -> list[str]:
         names = [m.name for m in list_materials() if m.layer_spacing_nm]
     except Exception:  # noqa: BLE001 - the dialog still works with a typed name
         names = []
-    return names or ["MoSe2", "MoS2", "WS2", "WSe2"]
+    names = names or ["MoSe2", "MoS2", "WS2", "WSe2"]
+    # transition-metal dichalcogenides first (MoSe2 leading: the default), then the others
+    tmd = re.compile(r"^(Mo|W|Re|Nb|Ta|Ti|Zr|Hf|Pt|Pd)(S|Se|Te)2$")
+    return sorted(names, key=lambda n: (n != "MoSe2", not tmd.match(n), n))
+
+
+#: The usual substrate stacks: (key, text, function of (oxide nm, gold nm) -> code string).
+STACKS = (
+    ("oxide", "SiO2 on Si", lambda ox, au: f"SiO2:{ox:g},Si"),
+    (
+        "gold",
+        "Gold-coated (Au on 5 nm Ti on SiO2 on Si)",
+        lambda ox, au: f"Au:{au:g},Ti:5,SiO2:{ox:g},Si",
+    ),
+    ("si", "Bare Si", lambda ox, au: "Si"),
+    ("code", "Other stack, as a code string (advanced)", None),
+)
+_OXIDE = re.compile(r"^SiO2:([0-9.]+),Si$")
+_GOLD = re.compile(r"^Au:([0-9.]+),Ti:5,SiO2:([0-9.]+),Si$")
 
 
 def check_substrate(spec: str) -> str:
@@ -78,17 +97,43 @@ class SampleForm(QWidget):
         self.substrate = QLineEdit(v.get("substrate") or DEFAULT_SUBSTRATE)
         self.substrate.setObjectName("sampleSubstrate")
         self.substrate.setToolTip(
-            "Layers from the top down, MATERIAL:THICKNESS_NM, the last one without a thickness, "
-            "e.g. SiO2:285,Si or Au:100,Ti:5,SiO2:285,Si"
+            "The stack as a code string: layers from the top down, MATERIAL:THICKNESS_NM, the "
+            "last one without a thickness, e.g. SiO2:285,Si or Au:100,Ti:5,SiO2:285,Si"
         )
+        # the usual stacks as a form; the code string above is the advanced choice
+        self.stack = QComboBox()
+        self.stack.setObjectName("substrateStack")
+        for key, text, _fn in STACKS:
+            self.stack.addItem(text, key)
+        self.oxide = _spin(0.0, 10000, 285.0, 1, " nm", 5)
+        self.oxide.setToolTip("Thickness of the SiO2 layer")
+        self.gold = _spin(1.0, 10000, 100.0, 1, " nm", 10)
+        self.gold.setToolTip("Thickness of the gold coating")
+        self._syncing = False
+        code = self.substrate.text().strip()
+        if m := _OXIDE.match(code):
+            self.oxide.setValue(float(m.group(1)))
+            self.stack.setCurrentIndex(self.stack.findData("oxide"))
+        elif m := _GOLD.match(code):
+            self.gold.setValue(float(m.group(1)))
+            self.oxide.setValue(float(m.group(2)))
+            self.stack.setCurrentIndex(self.stack.findData("gold"))
+        elif code == "Si":
+            self.stack.setCurrentIndex(self.stack.findData("si"))
+        else:
+            self.stack.setCurrentIndex(self.stack.findData("code"))
+        self.stack.currentIndexChanged.connect(self._stack_changed)
+        self.oxide.valueChanged.connect(self._stack_changed)
+        self.gold.valueChanged.connect(self._stack_changed)
+        self.substrate.textChanged.connect(self._code_typed)
         hp = v.get("hole_pattern") or {}
         self.holes = QGroupBox("Patterned with holes")
         self.holes.setCheckable(True)
         self.holes.setChecked(bool(hp))
         self.bottom = QComboBox()
-        self.bottom.addItem("etched to the Si (si)", "si")
-        self.bottom.addItem("gold at the bottom (au)", "au")
-        self.bottom.addItem("through-hole, open (open)", "open")
+        self.bottom.addItem("etched down to the silicon", "si")
+        self.bottom.addItem("gold at the bottom", "au")
+        self.bottom.addItem("open through-hole (nothing below)", "open")
         if hp.get("bottom"):
             self.bottom.setCurrentIndex(max(0, self.bottom.findData(hp["bottom"])))
         self.diameter = _spin(0.1, 1000, hp.get("diameter_um", 4.0), 2, " µm", 0.5)
@@ -115,9 +160,38 @@ class SampleForm(QWidget):
         form = QFormLayout(self)
         form.addRow("Sample name", self.name)
         form.addRow("Flake material", self.material)
-        form.addRow("Substrate (top down)", self.substrate)
+        form.addRow("Substrate", self.stack)
+        form.addRow("SiO2 thickness", self.oxide)
+        form.addRow("Gold thickness", self.gold)
+        form.addRow("Stack code (top down)", self.substrate)
+        self._form = form
+        self._show_stack_fields()
         form.addRow(self.holes)
         form.addRow("Notes", self.notes)
+
+    def _stack_changed(self, *_args) -> None:
+        fn = dict((k, f) for k, _t, f in STACKS)[self.stack.currentData()]
+        if fn is not None:
+            self._syncing = True
+            self.substrate.setText(fn(self.oxide.value(), self.gold.value()))
+            self._syncing = False
+        self._show_stack_fields()
+
+    def _code_typed(self, _text: str) -> None:
+        if not self._syncing and self.stack.currentData() != "code":
+            self.stack.blockSignals(True)
+            self.stack.setCurrentIndex(self.stack.findData("code"))
+            self.stack.blockSignals(False)
+            self._show_stack_fields()
+
+    def _show_stack_fields(self) -> None:
+        key = self.stack.currentData()
+        for widget, shown in (
+            (self.oxide, key in ("oxide", "gold")),
+            (self.gold, key == "gold"),
+        ):
+            widget.setEnabled(shown)
+            self._form.setRowVisible(widget, shown)
 
     def values(self) -> dict:
         """The checked values; raises InputError naming the bad one."""

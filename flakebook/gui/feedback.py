@@ -34,12 +34,23 @@ _ADVICE = {
 }
 
 
+def _kind(exc: BaseException) -> str:
+    """What kind of problem, in words."""
+    if isinstance(exc, InputError):
+        return "a value or file that was not accepted"
+    if isinstance(exc, ProjectError):
+        return "a problem with the project file"
+    if isinstance(exc, FlakebookError):
+        return "the operation could not be done"
+    return f"internal problem ({type(exc).__name__}, for the report)"
+
+
 def describe(exc: BaseException, action: str) -> tuple[str, str, str]:
     """(headline, advice, details) for an error raised while doing ``action``."""
     if isinstance(exc, Cancelled):
         return (f"{action}: cancelled.", "Nothing was changed.", "")
     if isinstance(exc, FlakebookError):
-        headline = str(exc).strip() or type(exc).__name__
+        headline = str(exc).strip() or _kind(exc).capitalize()
         advice = "Nothing already saved was changed."
         for kind, text in _ADVICE.items():
             if isinstance(exc, kind):
@@ -53,7 +64,7 @@ def describe(exc: BaseException, action: str) -> tuple[str, str, str]:
         )
     details = (
         f"Action: {action}\n"
-        f"Kind: {type(exc).__name__}\n"
+        f"Kind: {_kind(exc)}\n"
         f"Message: {str(exc).strip() or '-'}\n"
         f"Time: {_dt.datetime.now().isoformat(timespec='seconds')}"
     )

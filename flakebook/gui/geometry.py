@@ -53,7 +53,7 @@ def merge_outlines(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     n, _labels = cv2.connectedComponents(union)
     if n - 1 > 1:
         raise InputError(
-            "The two outlines neither touch nor overlap; merge only neighbouring regions."
+            "The two outlines neither touch nor overlap; merge only neighbouring outlines."
         )
     out = _outline(union, origin)
     if out is None:
@@ -78,3 +78,36 @@ def split_outline(poly: np.ndarray, p0, p1) -> tuple[np.ndarray, np.ndarray]:
     if a is None or b is None:
         raise InputError("The split line does not cross the outline; draw it from edge to edge.")
     return a, b
+
+
+def outline_iou(a: np.ndarray, b: np.ndarray) -> float:
+    """Intersection over union of two outlines (polygons in image pixels), 0 to 1, from their
+    rasterised areas (1/4 pixel)."""
+    origin, shape = _raster([a, b])
+    ma, mb = _fill(a, origin, shape).astype(bool), _fill(b, origin, shape).astype(bool)
+    union = np.count_nonzero(ma | mb)
+    return float(np.count_nonzero(ma & mb) / union) if union else 0.0
+
+
+def match_outlines(
+    new: list[np.ndarray], old: dict[int, np.ndarray], min_iou: float = 0.5
+) -> dict[int, int]:
+    """Pair new outlines (by index) with old ones (by key), one to one, best overlap first,
+    where the intersection over union exceeds ``min_iou``."""
+    pairs = []
+    for i, a in enumerate(new):
+        lo_a, hi_a = np.min(a, axis=0), np.max(a, axis=0)
+        for key, b in old.items():
+            lo_b, hi_b = np.min(b, axis=0), np.max(b, axis=0)
+            if np.any(hi_a < lo_b) or np.any(hi_b < lo_a):
+                continue  # boxes apart: no overlap
+            iou = outline_iou(a, b)
+            if iou > min_iou:
+                pairs.append((iou, i, key))
+    out: dict[int, int] = {}
+    used: set[int] = set()
+    for _iou, i, key in sorted(pairs, reverse=True):
+        if i not in out and key not in used:
+            out[i] = key
+            used.add(key)
+    return out

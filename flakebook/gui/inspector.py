@@ -17,6 +17,7 @@ import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QFont
 from PySide6.QtWidgets import (
+    QApplication,
     QComboBox,
     QFormLayout,
     QGroupBox,
@@ -35,6 +36,7 @@ from PySide6.QtWidgets import (
 )
 
 from flakebook.gui import palette
+from flakebook.gui.words import CONTRAST_DEFINITION, p_text
 
 #: Pens for channel curves: red, green and blue channels in Okabe-Ito vermillion, bluish green and
 #: blue, told apart by their symbols as well (o, s, t); other channels in the remaining colours.
@@ -93,6 +95,43 @@ def model_differences(candidates: list[int], model: dict | None, contrast_err: d
     if not parts:
         return ""
     return f"Model contrast difference {a}L–{b}L per channel: " + ", ".join(parts) + "."
+
+
+class PanelPlot(pg.PlotWidget):
+    """A plot in a scrolling panel: the mouse wheel scrolls the panel unless the user has
+    clicked into the plot (until the pointer leaves it); a double-click restores the axes
+    (``reset``, set by the owner)."""
+
+    def __init__(self, parent: QWidget | None = None, **kw) -> None:
+        super().__init__(parent, **kw)
+        self.armed = False
+        self.reset = None
+        self.setToolTip("Click into the plot to zoom it with the wheel; double-click to reset")
+
+    def mousePressEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        self.armed = True
+        super().mousePressEvent(ev)
+
+    def mouseDoubleClickEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        if self.reset is not None:
+            self.reset()
+        ev.accept()
+
+    def leaveEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        self.armed = False
+        super().leaveEvent(ev)
+
+    def wheelEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        if self.armed:
+            super().wheelEvent(ev)
+            return
+        # to the scroll area around (the graphics view would not pass it on by itself)
+        w = self.parentWidget()
+        while w is not None and not isinstance(w, QScrollArea):
+            w = w.parentWidget()
+        if w is not None:
+            QApplication.sendEvent(w.verticalScrollBar(), ev)
+        ev.accept()
 
 
 class Inspector(QScrollArea):
@@ -156,7 +195,8 @@ class Inspector(QScrollArea):
         self.evidence.setTextFormat(Qt.TextFormat.RichText)
 
         # Contrast vs N
-        self.con_plot = pg.PlotWidget(body, background="w")
+        self.con_plot = PanelPlot(body, background="w")
+        self.con_plot.reset = self._reset_contrast_axes
         self.con_plot.setObjectName("contrastPlot")
         self.con_plot.setFixedHeight(210)
         self.con_plot.hideButtons()
@@ -165,8 +205,7 @@ class Inspector(QScrollArea):
         self.con_key = QLabel(body)
         self.con_key.setTextFormat(Qt.TextFormat.RichText)
         self.con_note = QLabel(
-            "Model per channel (points), measured contrast (line, band ±1σ), "
-            "C = (R_substrate − R_flake)/R_substrate.",
+            f"Model per channel (points), measured contrast (line, band ±1σ). {CONTRAST_DEFINITION}.",
             body,
         )
         self.con_note.setWordWrap(True)
@@ -305,6 +344,8 @@ class Inspector(QScrollArea):
         for g in self._groups:
             g.setVisible(flake is not None)
         if flake is None:
+            if self.bars is not None:
+                self.bars.setVisible(False)
             self.title.setText("No flake selected")
             self.subtitle.setText("Select a flake on the image, in the browser or the catalogue.")
             return
@@ -354,14 +395,18 @@ class Inspector(QScrollArea):
         nmax = len(post) - 1
         x = np.arange(1, len(post) + 1)
         brushes = [palette.layer_hex(int(n)) if n <= nmax else palette.THICK_COLOUR for n in x]
-        self.bars = pg.BarGraphItem(
-            x=x, height=post, width=0.8, brushes=brushes, pen=pg.mkPen("#333333")
-        )
-        plot.addItem(self.bars)
+        if self.bars is None:  # one bar item, given each flake's bars (never a second one)
+            self.bars = pg.BarGraphItem(
+                x=x, height=post, width=0.8, brushes=brushes, pen=pg.mkPen("#333333")
+            )
+            plot.addItem(self.bars)
+        else:
+            self.bars.setOpts(x=x, height=post, width=0.8, brushes=brushes)
+            self.bars.setVisible(True)
         if getattr(self, "_post_nmax", None) != nmax:  # axis changes are slow: only when needed
             self._post_nmax = nmax
             ticks = [(int(n), str(int(n))) for n in x[:-1] if n <= 5 or n % 5 == 0 or n == nmax]
-            ticks.append((len(post), f">{nmax}"))
+            ticks.append((len(post), palette.layer_label(len(post))))
             plot.getAxis("bottom").setTicks([ticks])
             plot.setXRange(0.4, len(post) + 0.6, padding=0)
         layers = flake.get("layers")
@@ -370,11 +415,11 @@ class Inspector(QScrollArea):
         if flake.get("manual"):
             text = f"<b>{palette.layer_label(layers)}</b> set by hand: {flake.get('manual_reason') or ''}"
             if p is not None:
-                text += f" (evidence alone: {flake.get('evidence_layers')}L, P = {flake.get('evidence_probability', 0):.2f})"
+                text += f" (evidence alone: {palette.layer_label(flake.get('evidence_layers'))}, {p_text(flake.get('evidence_probability'))})"
         elif layers is None:
             text = "No layer number yet."
         else:
-            text = f"<b>{palette.layer_label(layers)}</b>, P = {p:.2f}"
+            text = f"<b>{palette.layer_label(layers)}</b>, {p_text(p)}"
             if amb:
                 text += " · ambiguous with " + ", ".join(palette.layer_label(n) for n in amb)
         self.verdict.setText(text)
@@ -499,9 +544,11 @@ class Inspector(QScrollArea):
             ranges = (n_show, (round(lo - pad, 3), round(hi + pad, 3)))
         if ranges != getattr(self, "_con_ranges", None):  # range changes are slow: only when needed
             self._con_ranges = ranges
-            plot.setXRange(0.5, n_show + 0.5, padding=0)
-            if ranges[1] is not None:
-                plot.setYRange(*ranges[1], padding=0)
+            # never beyond meaningful limits: N within 0.5 .. N_max + 1.5, C within -1 .. 1
+            plot.getPlotItem().getViewBox().setLimits(
+                xMin=0.5, xMax=nmax + 1.5, yMin=-1.0, yMax=1.0
+            )
+            self._reset_contrast_axes()
         self.con_key.setText("channels: " + " &nbsp; ".join(keys) if keys else "")
         amb = [best] + list(flake.get("ambiguous_with") or []) if best else []
         text = "<b>What would decide:</b> "
@@ -518,8 +565,17 @@ class Inspector(QScrollArea):
         else:
             self.con_note.setText(
                 "Model per channel (points), measured contrast (dashed line, band ±1σ, bar at the "
-                "assigned N). C = (R_substrate − R_flake)/R_substrate."
+                f"assigned N). {CONTRAST_DEFINITION}."
             )
+
+    def _reset_contrast_axes(self) -> None:
+        """The contrast plot's ranges as first shown for this flake."""
+        ranges = getattr(self, "_con_ranges", None)
+        if ranges is None:
+            return
+        self.con_plot.setXRange(0.5, ranges[0] + 0.5, padding=0)
+        if ranges[1] is not None:
+            self.con_plot.setYRange(*ranges[1], padding=0)
 
     def set_model(self, flake_id: int, curves: dict[str, np.ndarray] | None) -> None:
         """Model contrast per channel (arrays over N = 1..) for flake ``flake_id``."""
@@ -571,11 +627,20 @@ class Inspector(QScrollArea):
         self.no_holes.setVisible(not holes)
 
     # ---- edits ---------------------------------------------------------------------------
+    def commit_edits(self) -> None:
+        """Send tags and notes typed but not yet saved (called before the selection changes,
+        the project closes or the window quits, so that nothing typed is lost)."""
+        if self.flake is None or self.read_only:
+            return
+        self._on_tags()
+        self._on_notes()
+
     def _on_tags(self) -> None:
         if self.flake is None or self.read_only:
             return
         tags = [t.strip() for t in self.tags.text().split(",") if t.strip()]
         if tags != list(self.flake.get("tags") or []):
+            self.flake["tags"] = tags  # sent once, also if the window redraws on the way
             self.tagsEdited.emit(self.flake["id"], tags)
 
     def _on_notes(self) -> None:
@@ -583,6 +648,7 @@ class Inspector(QScrollArea):
             return
         text = self.notes.toPlainText()
         if text != (self.flake.get("notes") or ""):
+            self.flake["notes"] = text
             self.notesEdited.emit(self.flake["id"], text)
 
     def _on_assign(self) -> None:

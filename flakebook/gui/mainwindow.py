@@ -12,11 +12,18 @@ from __future__ import annotations
 import logging
 from collections.abc import Callable
 
-from PySide6.QtCore import Qt, Signal
+from PySide6.QtCore import QEvent, QSize, Qt, Signal
 from PySide6.QtGui import QAction, QActionGroup, QKeySequence, QUndoStack
-from PySide6.QtWidgets import QApplication, QDockWidget, QLabel, QMainWindow, QTabWidget
+from PySide6.QtWidgets import (
+    QAbstractSpinBox,
+    QApplication,
+    QDockWidget,
+    QLabel,
+    QMainWindow,
+    QTabWidget,
+)
 
-from flakebook.gui import views
+from flakebook.gui import icons, views
 from flakebook.gui.browser import ProjectBrowser
 from flakebook.gui.feedback import SessionLogHandler, SessionLogWindow
 from flakebook.gui.inspector import Inspector
@@ -37,6 +44,7 @@ from flakebook.gui.window.projects import (
     settings,
 )
 from flakebook.gui.window.samples import Exports, SettingsDialogs
+from flakebook.gui.words import CONTRAST_DEFINITION
 from flakebook.gui.worker import Job, JobBar
 
 
@@ -124,10 +132,9 @@ class MainWindow(
         self.contrast_label.setObjectName("cursorContrast")
         self.contrast_label.setMinimumWidth(230)
         self.contrast_label.setToolTip(
-            "Contrast of the pixel under the cursor, C = (I_substrate − I_pixel)/I_substrate per "
-            "channel in linear intensity, against the image's bare-substrate level "
-            "(flakebook.imaging); no flat-field correction, so it is a guide: the flakes' own "
-            "contrast in the inspector is the measured one."
+            f"{CONTRAST_DEFINITION}, here for the pixel under the cursor against the image's "
+            "bare-substrate level, in linear intensity; no flat-field correction, so it is a "
+            "guide: the flakes' own contrast in the inspector is the measured one."
         )
         self.scale_label = QLabel(self)
         self.scale_label.setObjectName("pixelSize")
@@ -142,6 +149,7 @@ class MainWindow(
 
         self._make_actions()
         self._make_menus()
+        QApplication.instance().installEventFilter(self)
         self._connect()
         self._restore_layout()
         self._update_title()
@@ -216,6 +224,13 @@ class MainWindow(
         self.a_redo.setShortcuts([QKeySequence(k) for k in sorted(redo_keys)])
         self.addAction(self.a_undo)
         self.addAction(self.a_redo)
+        self.a_undo.setObjectName("undo")
+        self.a_redo.setObjectName("redo")
+        # the toolbar shows icons only: undo and redo say what they do in their tooltips
+        self.undo_stack.undoTextChanged.connect(lambda t: self._undo_tip(self.a_undo, "Undo", t))
+        self.undo_stack.redoTextChanged.connect(lambda t: self._undo_tip(self.a_redo, "Redo", t))
+        self._undo_tip(self.a_undo, "Undo", "")
+        self._undo_tip(self.a_redo, "Redo", "")
         self.a_delete = A(
             "&Delete selection",
             self.delete_selected,
@@ -383,6 +398,9 @@ class MainWindow(
         tb = self.addToolBar("Main")
         tb.setObjectName("mainToolbar")
         tb.setMovable(False)
+        # icons of one size (flakebook.gui.icons), so no button moves or changes width
+        tb.setToolButtonStyle(Qt.ToolButtonStyle.ToolButtonIconOnly)
+        tb.setIconSize(QSize(24, 24))
         for a in (self.a_open, self.a_import):
             tb.addAction(a)
         tb.addSeparator()
@@ -394,6 +412,28 @@ class MainWindow(
         tb.addSeparator()
         for a in (self.a_find, self.a_holes, self.a_fit):
             tb.addAction(a)
+        for a in tb.actions():
+            if not a.isSeparator():
+                a.setIcon(icons.icon(a.objectName()))
+
+    @staticmethod
+    def _undo_tip(action: QAction, verb: str, text: str) -> None:
+        keys = action.shortcut().toString(QKeySequence.SequenceFormat.NativeText)
+        what = f"{verb} {text[0].lower() + text[1:]}" if text else f"Nothing to {verb.lower()}"
+        action.setToolTip(f"{what} ({keys})" if keys else what)
+
+    def eventFilter(self, obj, ev) -> bool:  # noqa: N802 - Qt API
+        """Undo and redo keys reach the window while a spin box has the focus, unless the box
+        has a change of its own to undo (or redo)."""
+        if ev.type() == QEvent.Type.ShortcutOverride and isinstance(obj, QAbstractSpinBox):
+            edit = obj.lineEdit()
+            if ev.matches(QKeySequence.StandardKey.Undo) and not edit.isUndoAvailable():
+                ev.ignore()
+                return True
+            if ev.matches(QKeySequence.StandardKey.Redo) and not edit.isRedoAvailable():
+                ev.ignore()
+                return True
+        return super().eventFilter(obj, ev)
 
     def _connect(self) -> None:
         for name in views.NAMES:

@@ -6,6 +6,9 @@ from __future__ import annotations
 from PySide6.QtGui import QColor
 
 from flakebook.render.palette import (
+    HOLE_COLOUR,
+    HOLE_HALO,
+    HOLE_HALO_ALPHA,
     LAYER_ORDER,
     MAX_DISTINCT_LAYERS,
     OKABE_ITO,
@@ -15,9 +18,6 @@ from flakebook.render.palette import (
     layer_hex,
     legend_entries,
 )
-
-# On the canvas holes are white on a dark halo (gold-bottomed holes look yellow themselves).
-HOLE_COLOUR = "#FFFFFF"
 
 #: N_max of the open project: a layer number above it is the likelihood's "more" bin.
 MAX_LAYERS = 15
@@ -39,6 +39,8 @@ def layer_colour(layers: int | None) -> QColor:
 
 __all__ = [
     "HOLE_COLOUR",
+    "HOLE_HALO",
+    "HOLE_HALO_ALPHA",
     "LAYER_ORDER",
     "MAX_DISTINCT_LAYERS",
     "MAX_LAYERS",

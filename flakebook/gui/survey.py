@@ -27,6 +27,7 @@ from PySide6.QtWidgets import (
 
 from flakebook.errors import InputError
 from flakebook.gui import palette
+from flakebook.gui.words import p_text
 from flakebook.gui.worker import Job
 from flakebook.specs import parse_layer_range
 
@@ -51,7 +52,7 @@ def candidate_text(c: dict) -> str:
         return " or ".join(palette.layer_label(n) for n in [layers, *amb[:2]]) + ", ambiguous"
     p = c.get("probability")
     label = palette.layer_label(layers)
-    return f"{label}, {p:.2f}" if p is not None else label
+    return f"{label}, {p_text(p)}" if p is not None else label
 
 
 class CandidateList(QWidget):
@@ -104,7 +105,9 @@ class CandidateList(QWidget):
     def set_candidates(self, items: list[dict], thumbnail=None) -> None:
         self.list.clear()
         for c in items:
-            it = QListWidgetItem(f"{c['label']}   {candidate_text(c)}   (target {c['score']:.2f})")
+            it = QListWidgetItem(
+                f"{c['label']}   {candidate_text(c)}   {p_text(c['score'], 'P(target layers)')}"
+            )
             it.setData(Qt.ItemDataRole.UserRole, c["id"])
             if c.get("layers"):
                 colour = QColor(palette.layer_hex(c["layers"]))

@@ -14,7 +14,7 @@ from PySide6.QtCore import QPointF, QRectF, Qt
 from PySide6.QtGui import QBrush, QColor, QFont, QImage, QPainter, QPen, QPolygonF
 
 from flakebook.errors import InputError
-from flakebook.render.palette import HOLE_COLOUR, layer_hex
+from flakebook.render.palette import HOLE_COLOUR, HOLE_HALO, HOLE_HALO_ALPHA, layer_hex
 from flakebook.store import Appearance, Flake, Image, Project
 
 
@@ -108,16 +108,6 @@ def flake_card(
             return QPolygonF([QPointF((x - left + 0.5) * scale, (y - top + 0.5) * scale)
                               for x, y in pts])  # fmt: skip
 
-        for _link, hole in project.holes_covered_by(flake):
-            if hole.image_id != image.id:
-                continue
-            r = hole.radius_px * scale
-            c = QPointF(
-                (hole.center_x_px - left + 0.5) * scale, (hole.center_y_px - top + 0.5) * scale
-            )
-            painter.setPen(QPen(QColor(HOLE_COLOUR), 1.5, Qt.PenStyle.DashLine))
-            painter.setBrush(Qt.BrushStyle.NoBrush)
-            painter.drawEllipse(c, r, r)
         painter.setBrush(Qt.BrushStyle.NoBrush)
         painter.setPen(QPen(QColor("white"), 1.0, Qt.PenStyle.DashLine))
         painter.drawPolygon(to_card(outline))
@@ -135,6 +125,22 @@ def flake_card(
             painter.setPen(QPen(colour, 2.5))
             painter.setBrush(QBrush(fill))
             painter.drawPolygon(to_card(np.asarray(terrace.outline_px, float)))
+
+        # Holes on top, in the hole colour (used for nothing else) on a translucent halo.
+        halo = QColor(HOLE_HALO)
+        halo.setAlpha(HOLE_HALO_ALPHA)
+        painter.setBrush(Qt.BrushStyle.NoBrush)
+        for _link, hole in project.holes_covered_by(flake):
+            if hole.image_id != image.id:
+                continue
+            r = hole.radius_px * scale
+            c = QPointF(
+                (hole.center_x_px - left + 0.5) * scale, (hole.center_y_px - top + 0.5) * scale
+            )
+            painter.setPen(QPen(halo, 4.0))
+            painter.drawEllipse(c, r, r)
+            painter.setPen(QPen(QColor(HOLE_COLOUR), 2.0))
+            painter.drawEllipse(c, r, r)
 
         # Scale bar: about a quarter of the crop's width, bottom right.
         if image.pixel_size_um:

@@ -4,7 +4,8 @@ Source: M. Okabe and K. Ito, "Color Universal Design (CUD): how to make figures 
 that are friendly to colorblind people" (2008), the eight-colour set. The seven coloured entries
 are used for N = 1..7 in an order chosen so that neighbouring layer numbers differ strongly in
 hue and lightness; N >= 8 (and the "more" bin) share one light grey, and a region without an
-assignment is drawn in white. Plain hex codes: no Qt here, so reports can use them too.
+assignment is drawn in white; holes in black (the set's eighth colour, tests/gui/test_colours.py
+checks it differs from all of them, also in colour-blind vision). Plain hex codes: no Qt here, so reports can use them too.
 """
 
 from __future__ import annotations
@@ -33,7 +34,11 @@ LAYER_ORDER = (
 )
 THICK_COLOUR = "#BBBBBB"
 UNKNOWN_COLOUR = "#FFFFFF"
-HOLE_COLOUR = "#F0E442"  # Okabe-Ito yellow
+#: Holes: Okabe-Ito black, the one colour of the set no layer number uses (and used for
+#: nothing else); drawn on a light halo so that it reads on dark holes too.
+HOLE_COLOUR = OKABE_ITO["black"]
+HOLE_HALO = "#FFFFFF"  # under the hole's ring, drawn translucent (alpha HOLE_HALO_ALPHA)
+HOLE_HALO_ALPHA = 150
 SELECTION_COLOUR = "#FFFFFF"
 MAX_DISTINCT_LAYERS = len(LAYER_ORDER)
 

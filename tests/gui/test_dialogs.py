@@ -143,3 +143,33 @@ def test_internal_error_dialog_has_no_traceback(qtbot, window, monkeypatch):
     assert "Traceback" not in box.detailedText() and "File " not in box.detailedText()
     assert "RuntimeError" in box.detailedText() and "disk quota" in box.detailedText()
     assert window.undo_stack.count() == 0
+
+
+def test_new_project_offers_usual_stacks_and_a_tmd(qtbot):
+    """The new project's form defaults to a TMD (MoSe2) and offers the usual substrate stacks
+    as choices with thicknesses; the code string is the advanced choice."""
+    from flakebook.gui.dialogs import NewProjectDialog, check_substrate
+
+    dlg = NewProjectDialog()
+    qtbot.addWidget(dlg)
+    form = dlg.form
+    assert form.material.currentText() == "MoSe2"
+    dlg.form.name.setText("R2-east")
+    names = [form.stack.itemText(i) for i in range(form.stack.count())]
+    assert any("SiO2 on Si" in n for n in names) and any("gold" in n.lower() for n in names)
+    assert any("code" in n.lower() for n in names)
+    assert form.values()["substrate"] == check_substrate("SiO2:285,Si")
+    form.oxide.setValue(90)
+    assert form.values()["substrate"] == check_substrate("SiO2:90,Si")
+    form.stack.setCurrentIndex(form.stack.findData("gold"))
+    assert form.values()["substrate"].startswith("Au:")
+    assert form.substrate.text() == form.values()["substrate"]  # the code shown follows
+    # holes with gold at the bottom are a choice of the hole pattern, in words
+    bottoms = [form.bottom.itemText(i) for i in range(form.bottom.count())]
+    assert not any("(" in b and b.endswith(")") and len(b.split("(")[-1]) <= 6 for b in bottoms)
+    # an existing sample's code is recognised as its stack
+    from flakebook.gui.dialogs import SampleForm
+
+    other = SampleForm({"name": "x", "material": "WS2", "substrate": "SiO2:90,Si"})
+    qtbot.addWidget(other)
+    assert other.stack.currentData() == "oxide" and other.oxide.value() == 90

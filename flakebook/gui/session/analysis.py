@@ -22,7 +22,11 @@ from flakebook.pipeline import (
     optics_inputs,
     record_hole,
 )
-from flakebook.store import Appearance, Flake, Hole, Image, Sample
+from flakebook.store import Appearance, Assignment, Evidence, Flake, Hole, Image, Sample, Terrace
+
+#: A surveyed outline is a flake already on the image when their intersection over union
+#: exceeds this (common practice for matching regions, no source).
+REFIND_MIN_IOU = 0.5
 
 
 class Analysis:
@@ -60,18 +64,105 @@ class Analysis:
 
     def store_survey(self, image_id: int, result) -> Undo:
         """Write a survey's flakes, terraces, evidence, assignments, holes and coverage
-        (``flakebook.pipeline.store_survey``: the same records the command line writes)."""
+        (``flakebook.pipeline.store_survey``: the same records the command line writes).
+
+        A surveyed flake whose outline overlaps a flake already outlined on this image (
+        intersection over union above :data:`REFIND_MIN_IOU`) is that flake seen again: it keeps
+        its label, tags, notes and manual assignments, and its outline, terraces and contrast
+        evidence on this image are replaced by the survey's (other evidence and manual
+        assignments move to the new terrace that best overlaps their old one). Others become
+        new flakes. :attr:`last_survey` counts both.
+        """
+        from flakebook.gui.geometry import match_outlines, outline_iou
         from flakebook.pipeline import store_survey
 
         p = self.project
         img = self._get(Image, image_id)
         sample = p.get(Sample, img.sample_id)
-        # Each new flake is stored before the next label is drawn, so labels never repeat.
-        stored = store_survey(p, img, result, new_label=lambda: self.next_label(sample))
+        old_apps = {a.id: a for a in p.records(Appearance, image_id=img.id)}
+        matched = match_outlines(
+            [np.asarray(sf.outline_px, float) for sf in result.flakes],
+            {k: np.asarray(a.outline_px, float) for k, a in old_apps.items()},
+            REFIND_MIN_IOU,
+        )
+        seen_again = {
+            result.flakes[i].id: old_apps[k] for i, k in matched.items()
+        }  # survey flake id -> its earlier appearance here
+        moved: list[tuple[type, int, int | None]] = []  # (record class, id, old terrace id)
+        primary: list[tuple[int, int | None]] = []  # (flake id, old primary terrace id)
+        deleted = []
+        copies: list[tuple[type, int]] = []
+        with p.transaction():
+            # Each new flake is stored before the next label is drawn, so labels never repeat.
+            stored = store_survey(
+                p,
+                img,
+                result,
+                flake_for=lambda sf: (
+                    p.get(Flake, seen_again[sf.id].flake_id) if sf.id in seen_again else None
+                ),
+                new_label=lambda: self.next_label(sample),
+            )
+            for old in seen_again.values():
+                new_app = next(
+                    a
+                    for a in p.records(Appearance, image_id=img.id, flake_id=old.flake_id)
+                    if a.id in stored.appearances
+                )
+                new_terraces = p.records(Terrace, appearance_id=new_app.id)
+
+                def best(old_tid, new_terraces=new_terraces):
+                    if old_tid is None or not new_terraces:
+                        return None
+                    o = p.get(Terrace, old_tid).outline_px
+                    overlaps = [outline_iou(o, ter.outline_px) for ter in new_terraces]
+                    return new_terraces[int(np.argmax(overlaps))].id
+
+                old_tids = {ter.id for ter in p.records(Terrace, appearance_id=old.id)}
+                flake = p.get(Flake, old.flake_id)
+                for rec in p.evidence_of(flake):  # spectra, AFM, ...: to the new terrace
+                    if rec.method != CONTRAST_METHOD and rec.terrace_id in old_tids:
+                        moved.append((Evidence, rec.id, rec.terrace_id))
+                        p.update(rec, terrace_id=best(rec.terrace_id))
+                # manual assignments are stored again after the survey's (the latest counts)
+                manual = [
+                    (a, best(a.terrace_id))
+                    for a in p.assignments_of(flake)
+                    if a.manual and (a.terrace_id in old_tids or a.terrace_id is None)
+                ]
+                if flake.primary_terrace_id in old_tids:
+                    primary.append((flake.id, flake.primary_terrace_id))
+                    p.update(flake, primary_terrace_id=best(flake.primary_terrace_id))
+                deleted.append(p.delete(Appearance, old.id))
+                for a, tid in manual:
+                    if a.terrace_id is None:
+                        continue  # the flake's own: untouched, but newer than the survey's
+                    again = p.assign(
+                        flake.id, a.layers, reason=a.reason, terrace=tid, who=a.who or None
+                    )
+                    copies.append((Assignment, again.id))
         for fid in stored.new_flakes:
             self._born("flake", fid)
-        made = [(Flake, fid) for fid in stored.new_flakes] + [(Hole, hid) for hid in stored.holes]
-        return self._undo_made(made)
+        self.last_survey = {"updated": len(seen_again), "new": len(stored.new_flakes)}
+        made = (
+            copies
+            + [(Flake, fid) for fid in stored.new_flakes]
+            + [(Appearance, aid) for aid in stored.appearances]
+            + [(Hole, hid) for hid in stored.holes]
+        )
+        remove = self._undo_made(made)
+
+        def undo():
+            with p.transaction():
+                for d in reversed(deleted):
+                    p.restore(d)
+                for cls, rid, tid in reversed(moved):
+                    p.update(p.get(cls, rid), terrace_id=tid)
+                for fid, tid in primary:
+                    p.update(p.get(Flake, fid), primary_terrace_id=tid)
+                remove()
+
+        return undo
 
     def holes_job(self, image_id: int):
         """Work detecting holes, fitting their lattice and predicting those hidden under flakes

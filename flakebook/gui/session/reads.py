@@ -263,7 +263,7 @@ class Reads:
             "evidence_probability": comp.probability if comp else None,
             "posterior": posterior,
             "max_layers": p.max_layers,
-            "evidence": self._evidence_rows(evidence, report)
+            "evidence": self._evidence_rows(evidence, report, sample)
             + (
                 [
                     {
@@ -312,7 +312,7 @@ class Reads:
             return None
 
     @staticmethod
-    def _evidence_rows(evidence, report) -> list[dict]:
+    def _evidence_rows(evidence, report, sample) -> list[dict]:
         """Each evidence: its kind (contrast, Raman, PL, Si attenuation, AFM), what it alone
         says, and whether it is part of a conflict."""
         from flakebook.pipeline_spectra import category, evidence_name
@@ -330,8 +330,8 @@ class Reads:
                     "method": e.method,
                     "category": category(e),
                     "name": name,
-                    "reason": e.reason,
-                    "source": e.source,
+                    "reason": evidence_reason(e, sample),
+                    "source": evidence_source(e.source, sample),
                     "stale": e.stale,
                     "layers": contrib.posterior.layers if contrib else None,
                     "probability": contrib.posterior.probability if contrib else None,
@@ -390,3 +390,70 @@ def _calibration_text(project, sample) -> str:
     from flakebook.pipeline_calibration import calibration_summary
 
     return calibration_summary(calibration_record(project, sample))
+
+
+# ---- evidence in words (DESIGN.md: methods named with their published source, numbers to the
+# digits their uncertainty supports) -------------------------------------------------------------
+
+
+def _short_reference(ident: str, reference: str) -> str:
+    """``"Hsu 2019"`` from a data set's identifier (book/material/Author-...) and reference."""
+    import re
+
+    author = ident.rsplit("/", 1)[-1].split("-")[0]
+    ref = reference or ""
+    year = re.search(r"\(((?:18|19|20)\d\d)\)", ref)  # the first reference's year
+    head = ref[: year.start()] if year else ref
+    # several authors: their names are comma-separated before the title (the journal's
+    # volume and pages add one comma more)
+    many = head.count(", ") >= 2
+    name = f"{author} et al." if many else author
+    return f"{name} {year.group(1)}" if year else name
+
+
+def material_sources(names: Sequence[str]) -> str:
+    """The optical-constant data behind a model, short: ``"MoSe2: Hsu 2019, Munkhbat 2022;
+    SiO2: Malitson 1965; Si: Green 2008"``."""
+    try:
+        from flakebook.optics.materials import list_materials
+
+        known = {m.name: m for m in list_materials()}
+    except Exception:  # noqa: BLE001 - words only: the window still shows the evidence
+        known = {}
+    parts = []
+    for name in dict.fromkeys(names):
+        m = known.get(name)
+        if m is None:
+            continue
+        refs = list(dict.fromkeys(_short_reference(d.ident, d.reference) for d in m.data_sets))
+        parts.append(f"{name}: {', '.join(refs)}")
+    return "; ".join(parts)
+
+
+def evidence_source(source: str, sample: Sample) -> str:
+    """The published source of a piece of evidence, for people: the contrast model's n,k data
+    by author and year instead of the program's internal name for them."""
+    from flakebook.pipeline import OPTICS_SOURCE
+
+    if source != OPTICS_SOURCE:
+        return source
+    layers = [sample.material] + [getattr(layer, "material", "") for layer in sample.substrate]
+    data = material_sources([n for n in layers if n])
+    return f"thin-film model with the n,k data of {data}" if data else "thin-film model"
+
+
+def evidence_reason(e, sample: Sample) -> str:
+    """The reason of a piece of evidence; a contrast's numbers rounded to their uncertainty."""
+    from flakebook.gui.words import value_error
+    from flakebook.pipeline import CONTRAST_METHOD
+
+    par = e.parameters or {}
+    contrast, err = par.get("contrast"), par.get("contrast_err") or {}
+    if e.method != CONTRAST_METHOD or not contrast:
+        return e.reason
+    parts = [f"{ch} {value_error(float(c), err.get(ch))}" for ch, c in contrast.items()]
+    where = "over a hole" if par.get("geometry") == "suspended" else "on the substrate"
+    return (
+        f"contrast {', '.join(parts)} {where}, against the model of "
+        f"{format_substrate(sample.substrate)}"
+    )

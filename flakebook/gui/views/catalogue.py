@@ -40,6 +40,7 @@ from PySide6.QtWidgets import (
 from flakebook.errors import InputError
 from flakebook.gui import palette
 from flakebook.gui.views import View
+from flakebook.gui.words import probability
 
 #: (key, header, tooltip) of the columns, in order. Keys follow INTERFACE.md's export.
 COLUMNS = (
@@ -47,8 +48,12 @@ COLUMNS = (
     ("sample", "Sample", "The chip the flake lies on"),
     ("area_um2", "Area (µm²)", "Area of the flake's outline in its primary appearance"),
     ("layers", "Layers", "Layer number of the primary terrace (most likely N)"),
-    ("probability", "P", "Probability of that layer number (combined evidence)"),
-    ("ambiguous_with", "Or", "Other layer numbers with posterior >= 5%"),
+    ("probability", "Probability", "Probability of that layer number (combined evidence)"),
+    (
+        "ambiguous_with",
+        "Or perhaps",
+        "Other layer numbers with a probability of 5% or more",
+    ),
     ("manual", "Set by", "'hand' when a person recorded the assignment, else 'evidence'"),
     ("holes_covered", "Holes", "Holes the flake covers fully"),
     (
@@ -83,7 +88,7 @@ def _text(key: str, value) -> str:
     if value is None:
         return ""
     if key == "probability":
-        return f"{value:.2f}"
+        return probability(value)
     if key in ("area_um2", "margin_um", "thickness_nm"):
         return f"{value:.1f}"
     if key == "kappa_w_mk":
@@ -206,7 +211,9 @@ class CatalogueFilter(QSortFilterProxyModel):
             if not all(word in hay for word in self.text.lower().split()):
                 return False
         layers = row.get("layers")
-        if self.layers_min > 0 or self.layers_max < 100:
+        if self.layers_min > 0 or self.layers_max <= palette.MAX_LAYERS:
+            if layers is not None and layers > palette.MAX_LAYERS:
+                layers = palette.MAX_LAYERS + 1  # the "more" bin
             if layers is None or not (self.layers_min <= layers <= self.layers_max):
                 return False
         if self.covers_hole and not row.get("holes_covered"):
@@ -222,6 +229,28 @@ class CatalogueFilter(QSortFilterProxyModel):
     def visible_rows(self) -> list[dict]:
         src = self.sourceModel()
         return [src.rows[self.mapToSource(self.index(i, 0)).row()] for i in range(self.rowCount())]
+
+
+class LayerSpin(QSpinBox):
+    """A layer number; its top value is the "more than N_max" bin, shown as ">15L"."""
+
+    def textFromValue(self, value: int) -> str:  # noqa: N802 - Qt API
+        if value > palette.MAX_LAYERS:
+            return palette.layer_label(value)
+        return str(value)
+
+    def valueFromText(self, text: str) -> int:  # noqa: N802 - Qt API
+        if text.strip().startswith(">"):
+            return palette.MAX_LAYERS + 1
+        return int(text.strip().rstrip("L") or 0)
+
+    def validate(self, text, pos):
+        from PySide6.QtGui import QValidator
+
+        t = text.strip()
+        if t.startswith(">") or t.rstrip("L").isdigit() or not t:
+            return QValidator.State.Acceptable if t else QValidator.State.Intermediate, text, pos
+        return QValidator.State.Invalid, text, pos
 
 
 class CatalogueView(QWidget):
@@ -260,12 +289,13 @@ class CatalogueView(QWidget):
         self.search.setClearButtonEnabled(True)
         self.search.textChanged.connect(lambda t: self.proxy.update(text=t))
         self.lmin = QSpinBox(self)
-        self.lmin.setRange(0, 100)
+        top = palette.MAX_LAYERS + 1  # the "more than N_max" bin
+        self.lmin.setRange(0, top)
         self.lmin.setSpecialValueText("any")
         self.lmin.setToolTip("Fewest layers shown (any: no lower bound)")
-        self.lmax = QSpinBox(self)
-        self.lmax.setRange(1, 100)
-        self.lmax.setValue(100)
+        self.lmax = LayerSpin(self)
+        self.lmax.setRange(1, top)
+        self.lmax.setValue(top)
         self.lmax.setToolTip("Most layers shown")
         self.lmin.valueChanged.connect(lambda v: self.proxy.update(layers_min=v))
         self.lmax.valueChanged.connect(lambda v: self.proxy.update(layers_max=v))
@@ -362,15 +392,15 @@ class CatalogueView(QWidget):
         """Select the row of ``flake_id`` without emitting flakeActivated."""
         quiet, self._quiet = self._quiet, True
         try:
-            if flake_id is None:
-                self.table.clearSelection()
-                return
-            for i in range(self.proxy.rowCount()):
+            for i in range(self.proxy.rowCount() if flake_id is not None else 0):
                 idx = self.proxy.index(i, 0)
                 if idx.data(ID_ROLE) == flake_id:
                     self.table.setCurrentIndex(idx)
                     self.table.scrollTo(idx)
                     return
+            # no row is current either: a click on the row that was current must select it
+            self.table.clearSelection()
+            self.table.selectionModel().clearCurrentIndex()
         finally:
             self._quiet = quiet
 

@@ -21,5 +21,6 @@ def connect(window, canvas: ImageCanvas) -> None:
         lambda: (window.pos_label.setText(""), window.contrast_label.setText(""))
     )
     canvas.toolChanged.connect(window._on_tool)
+    canvas.editEnded.connect(lambda: window._on_tool(canvas.tool))
     for tool in CANVAS_TOOLS.values():
         tool.connect(window)

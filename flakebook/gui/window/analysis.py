@@ -31,10 +31,22 @@ class Analysis:
                 return s.store_survey(image, result)
 
             name = s.image_info(image)["name"]
-            self._guard(
-                lambda: self.edit(f"Find flakes on {name} ({len(result.flakes)} flakes)", do),
-                "Find flakes",
-            )
+
+            def store():
+                undo = do()  # first run here, to say what it did in the undo text
+                n = s.last_survey
+                words = f"{n['updated']} updated, {n['new']} new"
+                first = {"undo": undo}
+
+                def again():  # the edit's first do() is the run above; redo runs it anew
+                    return first.pop("undo") if first else do()
+
+                self.edit(f"Find flakes on {name} ({words})", again)
+                text = f"Find flakes on {name}: {words} (flakes already there matched by outline)"
+                self.hint_label.setText(text)
+                log.info("%s", text)
+
+            self._guard(store, "Find flakes")
             for w in result.warnings:
                 log.warning("Find flakes on %s: %s", name, w)
             if queue:

@@ -161,6 +161,8 @@ class Display:
         self.tabs.setCurrentWidget(self.canvas)
 
     def _show_inspector(self) -> None:
+        # tags and notes typed in the inspector are saved before it shows anything else
+        self.inspector.commit_edits()
         if self.session is None or self.current_flake is None:
             self.inspector.show_flake(None)
             return

@@ -77,6 +77,7 @@ class Projects:
     def close_project(self) -> None:
         if self.session is None:
             return
+        self._guard(self.inspector.commit_edits, "Save notes")
         self.jobs.abandon_all()
         self.canvas.cancel_tool()
         path = self.session.path
