@@ -89,8 +89,13 @@ def run(
             )
     view, arg = parse_show(show)
     _prepare_platform(offscreen=snapshot is not None)
+    from PySide6.QtWidgets import QApplication
+
     from flakebook.gui.mainwindow import MainWindow, make_app
 
+    # The process ends after this when the application is ours (the command line), not when
+    # a caller made it (tests, scripts): only then is the window torn down here.
+    owns_app = QApplication.instance() is None
     app = make_app([sys.argv[0]])
     window = MainWindow()
     if project is not None:
@@ -107,7 +112,10 @@ def run(
         window.show()
         if view != "image" or arg:
             window._guard(lambda: show_view(window, view, arg), "Show")
-        return app.exec()
+        code = app.exec()
+        if owns_app:
+            _tear_down(app, window)
+        return code
     window.resize(1500, 920)
     window.show()
     show_view(window, view, arg)
@@ -117,7 +125,21 @@ def run(
     if not image.save(str(snapshot), "PNG"):
         raise InputError(f"--snapshot {snapshot}: could not write the PNG")
     window.close()
+    if owns_app:
+        _tear_down(app, window)
     return 0
+
+
+def _tear_down(app, window) -> None:
+    """Stop the workers and delete the window while Qt still runs: left to the interpreter's
+    exit, the scene's items could be destroyed after the application (a crash at exit)."""
+    from PySide6.QtCore import QCoreApplication, QEvent, QThreadPool
+
+    window.jobs.abandon_all()
+    QThreadPool.globalInstance().waitForDone(5000)
+    window.deleteLater()
+    QCoreApplication.sendPostedEvents(None, QEvent.Type.DeferredDelete)
+    app.processEvents()
 
 
 def show_view(window, view: str, arg: str | None) -> None:

@@ -23,6 +23,7 @@ import numpy as np
 from flakebook.errors import InputError
 from flakebook.evidence import Evidence, GridLikelihood, ParameterGrid, parameter_grid
 from flakebook.spectra.rules import MAX_N, RuleTable, load_rule_table
+from flakebook.wording import value_with_error
 
 DEFAULT_CALIBRATION_ERR_CM1 = (
     0.5  # a spectrometer checked on the Si line; common practice, no source
@@ -271,7 +272,7 @@ def raman_evidence(
             shared = not feats[0].offset_free
         mu, s = rule.center(n), rule.spread(n)
         var = err**2 + s**2
-        what = f"{rule.feature} {x:.1f} +- {err:.1f} cm^-1"
+        what = f"{rule.feature} {value_with_error(x, err, 'cm^-1')}"
         if shared:
             ll = _gauss_ll(x - grid.nodes[:, None], mu[None, :], var[None, :]) + _log(p_det)
             out.append(_evidence(rule, ll, grid, max_layers, what, inputs))
@@ -312,7 +313,7 @@ def pl_evidence(
             )
         var = e**2 + erule.spread(n) ** 2
         ll = _gauss_ll(pl.peak_ev, erule.center(n), var) + _log(p_det)
-        what = f"PL A exciton at {pl.peak_ev:.3f} +- {e:.3f} eV"
+        what = f"PL A exciton at {value_with_error(pl.peak_ev, e, 'eV')}"
         out.append(_evidence(erule, ll, None, max_layers, what, {"peak_ev": pl.peak_ev}))
     if pl.ratio_to_monolayer is not None and ratio:
         r, rel = pl.ratio_to_monolayer, pl.ratio_err_rel
@@ -374,7 +375,7 @@ def si_attenuation_evidence(
     g = GridLikelihood(oxide_grid, ll, method="Si Raman line attenuation (thin-film model)")
     method = f"Si Raman line attenuation under the flake (thin-film model, {mat.name} n,k)"
     reason = (
-        f"Si line {ratio:.3f} +- {ratio_err:.3f} of the bare substrate: most like "
+        f"Si line {value_with_error(ratio, ratio_err)} of the bare substrate: most like "
         f"{_best_text(g.likelihood, max_layers)}"
     )
     return Evidence.from_grid(method, g, reason, inputs={"ratio": ratio, "ratio_err": ratio_err})
@@ -418,6 +419,7 @@ def afm_evidence(
         f"{offset_nm:g} +- {offset_err_nm:g} nm)"
     )
     reason = (
-        f"step {height_nm:.2f} +- {height_err_nm:.2f} nm: most like {_best_text(like, max_layers)}"
+        f"step {value_with_error(height_nm, height_err_nm, 'nm')}: most like "
+        f"{_best_text(like, max_layers)}"
     )
     return Evidence(method, like, reason, inputs={"height_nm": height_nm})

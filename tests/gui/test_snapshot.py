@@ -59,3 +59,22 @@ def test_snapshot_refuses_bad_options(qapp, project_path, tmp_path, args, capsys
     assert main(["open", str(project_path), *args]) == 2
     err = capsys.readouterr().err
     assert "flakebook:" in err and "Traceback" not in err
+
+
+def test_snapshot_process_exits_cleanly(project_path, tmp_path):
+    """The command-line snapshot ends with exit code 0, not a crash while Qt tears down (the
+    window is deleted, its workers stopped, before the interpreter exits). Run as the user
+    runs it, in its own process, a few times: the fault was intermittent (common practice, no
+    source)."""
+    import subprocess
+    import sys
+
+    for i in range(3):
+        out = tmp_path / f"s{i}.png"
+        proc = subprocess.run(
+            [sys.executable, "-m", "flakebook", "open", str(project_path), "--snapshot", str(out),
+             "--show", "image"],
+            capture_output=True, text=True, timeout=120,
+        )  # fmt: skip
+        assert proc.returncode == 0, (proc.returncode, proc.stderr[-500:])
+        assert out.stat().st_size > 10_000
