@@ -361,6 +361,13 @@ class ModelOptions:
                 f"weighting {self.weighting!r} is not known; accepted: {', '.join(WEIGHTINGS)}"
             )
         g = self.interface_conductance_w_m2k
+        if self.interface_conductance_err_w_m2k:
+            # Not drawn in the Monte Carlo yet: refused rather than silently left out.
+            raise InputError(
+                "an uncertainty of the interface conductance is not yet part of the Monte Carlo "
+                "interval; accepted: --interface-conductance-w-m2k alone (taken as exact), and "
+                "compare intervals at its lower and upper values"
+            )
         if g is not None and not (math.isfinite(g) and g > 0):
             raise InputError(
                 f"interface conductance {g!r} W/m^2/K is not usable; a positive value is accepted"

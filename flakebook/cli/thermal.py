@@ -29,7 +29,7 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
         "--interface-conductance-err-w-m2k",
         type=float,
         default=0.0,
-        help="its s.d., W/m^2/K (not yet drawn in the Monte Carlo)",
+        help="its s.d., W/m^2/K: not yet drawn in the Monte Carlo, so a value other than 0 is refused",
     )
     p.add_argument(
         "--kappa-alpha",

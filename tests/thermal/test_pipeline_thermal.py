@@ -138,3 +138,16 @@ def test_cli_worked_example():
     import json
 
     assert json.loads(run.stdout)["kappa_w_mk"] == pytest.approx(30.1, abs=0.05)
+
+
+def test_interface_conductance_error_is_refused_not_ignored():
+    """The Monte Carlo does not draw the interface conductance: an error given for it is
+    refused with a message, never silently dropped from the interval (common practice, no
+    source)."""
+    from flakebook.errors import InputError
+
+    with pytest.raises(InputError, match="not yet part of the Monte Carlo"):
+        pt.ModelOptions(
+            interface_conductance_w_m2k=1e7, interface_conductance_err_w_m2k=2e6
+        ).heat_model()
+    assert pt.ModelOptions(interface_conductance_w_m2k=1e7).heat_model() is not None
