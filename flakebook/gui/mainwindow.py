@@ -12,7 +12,7 @@ from __future__ import annotations
 import logging
 from collections.abc import Callable
 
-from PySide6.QtCore import QEvent, QSize, Qt, Signal
+from PySide6.QtCore import QEvent, QObject, QSize, Qt, Signal
 from PySide6.QtGui import QAction, QActionGroup, QKeySequence, QUndoStack
 from PySide6.QtWidgets import (
     QAbstractSpinBox,
@@ -149,7 +149,8 @@ class MainWindow(
 
         self._make_actions()
         self._make_menus()
-        QApplication.instance().installEventFilter(self)
+        self._undo_keys = _UndoKeys(self)
+        QApplication.instance().installEventFilter(self._undo_keys)
         self._connect()
         self._restore_layout()
         self._update_title()
@@ -422,19 +423,6 @@ class MainWindow(
         what = f"{verb} {text[0].lower() + text[1:]}" if text else f"Nothing to {verb.lower()}"
         action.setToolTip(f"{what} ({keys})" if keys else what)
 
-    def eventFilter(self, obj, ev) -> bool:  # noqa: N802 - Qt API
-        """Undo and redo keys reach the window while a spin box has the focus, unless the box
-        has a change of its own to undo (or redo)."""
-        if ev.type() == QEvent.Type.ShortcutOverride and isinstance(obj, QAbstractSpinBox):
-            edit = obj.lineEdit()
-            if ev.matches(QKeySequence.StandardKey.Undo) and not edit.isUndoAvailable():
-                ev.ignore()
-                return True
-            if ev.matches(QKeySequence.StandardKey.Redo) and not edit.isRedoAvailable():
-                ev.ignore()
-                return True
-        return super().eventFilter(obj, ev)
-
     def _connect(self) -> None:
         for name in views.NAMES:
             views.module(name).connect(self, self.views[name])
@@ -493,7 +481,29 @@ class MainWindow(
         st.setValue("geometry", self.saveGeometry())
         st.setValue("windowState", self.saveState())
         self.close_project()
+        app = QApplication.instance()
+        if app is not None and self._undo_keys is not None:
+            # An application-wide filter must not outlive the window it serves.
+            app.removeEventFilter(self._undo_keys)
+            self._undo_keys = None
         super().closeEvent(ev)
+
+
+class _UndoKeys(QObject):
+    """Undo and redo keys reach the window while a spin box has the focus, unless the box
+    has a change of its own to undo (or redo). Installed on the application while the window
+    is open."""
+
+    def eventFilter(self, obj, ev) -> bool:  # noqa: N802 - Qt API
+        if ev.type() == QEvent.Type.ShortcutOverride and isinstance(obj, QAbstractSpinBox):
+            edit = obj.lineEdit()
+            if ev.matches(QKeySequence.StandardKey.Undo) and not edit.isUndoAvailable():
+                ev.ignore()
+                return True
+            if ev.matches(QKeySequence.StandardKey.Redo) and not edit.isRedoAvailable():
+                ev.ignore()
+                return True
+        return False
 
 
 def _install_log_handler() -> SessionLogHandler:

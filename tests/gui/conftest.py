@@ -202,3 +202,13 @@ def window(qtbot, project_path):
     qtbot.waitUntil(lambda: not w.jobs.busy, timeout=10000)
     yield w
     w.close_project()
+    _stop_workers(w)
+
+
+def _stop_workers(w) -> None:
+    """Stop the window's worker jobs before pytest-qt deletes it: a job finishing into a deleted
+    window, or left running at the interpreter's exit, can crash Qt."""
+    from PySide6.QtCore import QThreadPool
+
+    w.jobs.abandon_all()
+    QThreadPool.globalInstance().waitForDone(5000)
