@@ -15,7 +15,16 @@ from flakebook.cli import _common
 
 # Each module has ``register(subparsers)`` that adds its commands; a command's parser sets
 # ``func`` to a callable taking the parsed namespace and returning an exit code.
-_COMMAND_MODULES = ("project", "desktop", "optics", "imaging", "spectra", "thermal", "demo")
+_COMMAND_MODULES = (
+    "project",
+    "desktop",
+    "optics",
+    "imaging",
+    "spectra",
+    "thermal",
+    "demo",
+    "report",
+)
 
 
 def build_parser() -> argparse.ArgumentParser:
