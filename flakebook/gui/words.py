@@ -8,27 +8,15 @@ from __future__ import annotations
 
 import math
 
-#: The one wording of the contrast definition the window uses (DESIGN.md).
-CONTRAST_DEFINITION = (
-    "Contrast C = (R_substrate − R_flake) / R_substrate per channel, positive when the flake "
-    "is darker than the bare substrate"
-)
+from flakebook.wording import CONTRAST_DEFINITION, probability_text, record_count_text
 
-#: Record kinds in words.
-KIND_WORDS = {
-    "flake_hole": ("flake-hole link", "flake-hole links"),
-    "evidence": ("piece of evidence", "pieces of evidence"),
-    "thermometry_series": ("thermometry series", "thermometry series"),
-    "thermometry_result": ("thermometry result", "thermometry results"),
-    "beam_profile": ("beam profile", "beam profiles"),
-}
+__all__ = ["CONTRAST_DEFINITION", "p_text", "plural", "probability", "value_error"]
 
 
 def plural(n: int, word: str) -> str:
     """``plural(1, "image") == "1 image"``, ``plural(14, "image") == "14 images"``; record kinds
-    such as ``"flake_hole"`` in words ("24 flake-hole links")."""
-    one, many = KIND_WORDS.get(word, (word.replace("_", " "), word.replace("_", " ") + "s"))
-    return f"{n} {one if n == 1 else many}"
+    such as ``"flake_hole"`` in the words of flakebook.wording ("24 flake-hole pairs")."""
+    return record_count_text(word, n)
 
 
 def _digits_of(err: float, sig: int = 2) -> int:
@@ -60,14 +48,10 @@ def value_error(value: float, error: float | None, unit: str = "", sig: int = 2)
 
 
 def probability(p: float | None) -> str:
-    """A probability to two decimals; ``"< 0.01"`` below 0.005 and ``"> 0.99"`` above 0.995."""
-    if p is None or not math.isfinite(p):
-        return "–"
-    if p < 0.005:
-        return "< 0.01"
-    if p > 0.995:
-        return "> 0.99"
-    return f"{p:.2f}"
+    """A probability to two decimals; ``"< 0.01"`` and ``"> 0.99"`` at the ends
+    (flakebook.wording.probability_text; ``"–"`` when unknown)."""
+    text = probability_text(p)
+    return "–" if text == "-" else text
 
 
 def _superscript(n: int) -> str:

@@ -286,7 +286,7 @@ def test_numbers_are_rounded_to_their_uncertainty():
     assert probability(7.56e-225) == "< 0.01"
     assert probability(0.760209665135969) == "0.76"
     assert plural(2, "sample") == "2 samples" and plural(1, "image") == "1 image"
-    assert plural(24, "flake_hole") == "24 flake-hole links"
+    assert plural(24, "flake_hole") == "24 flake-hole pairs"
 
 
 def test_window_words_are_for_people(qtbot, window):
