@@ -151,3 +151,44 @@ def test_interface_conductance_error_is_refused_not_ignored():
             interface_conductance_w_m2k=1e7, interface_conductance_err_w_m2k=2e6
         ).heat_model()
     assert pt.ModelOptions(interface_conductance_w_m2k=1e7).heat_model() is not None
+
+
+def test_cli_series_import_then_kappa_from_the_project(project):
+    """The command line end to end: `series import` of a temperature and a power series (a
+    folder with its CSV), then `kappa --project --flake` gives the drawn coefficients back and
+    a kappa matching the published disk formula (REFERENCES.md); a folder without the CSV's
+    value column is refused with exit 2 and nothing stored."""
+    import json
+
+    p, tmp = project
+    path = str(p.path)
+    p.close()
+    temps = _series(tmp / "tt", "temperature", [295.0, 315.0, 335.0, 355.0, 375.0],
+                    lambda v: CHI_T * (v - 295), 5)  # fmt: skip
+    powers = _series(tmp / "pp", "power", [0.05, 0.1, 0.15, 0.2, 0.25, 0.2, 0.1],
+                     lambda v: CHI_P * v, 6)  # fmt: skip
+
+    def cli(*args):
+        return subprocess.run(
+            [sys.executable, "-m", "flakebook", *args, "--format", "json"],
+            capture_output=True, text=True, timeout=300,
+        )  # fmt: skip
+
+    bad = cli("series", "import", path, "--flake", "Z1-001", "--kind", "power",
+              str(temps / "series.csv"))  # fmt: skip
+    assert bad.returncode == 2 and len(bad.stderr.strip().splitlines()) <= 3, bad.stderr
+    for kind, folder in (("temperature", temps), ("power", powers)):
+        done = cli("series", "import", path, "--flake", "Z1-001", "--kind", kind, str(folder))
+        assert done.returncode == 0, done.stderr
+    out = cli("kappa", "--project", path, "--flake", "Z1-001", "--draws", "400")
+    assert out.returncode == 0, out.stderr
+    res = json.loads(out.stdout)
+    assert res["kappa_p16_w_mk"] <= res["kappa_median_w_mk"] <= res["kappa_p84_w_mk"]
+    with Project.open(path, read_only=True) as q:
+        _, results = q.thermometry_of(q.find_flake("Z1-001"))
+        coeff = [r for r in results if r.method == pt.SERIES_METHOD][-1]
+    assert coeff.chi_t_cm1_per_k == pytest.approx(CHI_T, abs=3 * coeff.chi_t_err_cm1_per_k + 1e-4)
+    assert coeff.chi_p_cm1_per_mw == pytest.approx(CHI_P, abs=3 * coeff.chi_p_err_cm1_per_mw + 0.05)
+    r_meas = coeff.chi_p_cm1_per_mw * 1e3 / (res["absorptance"] * coeff.chi_t_cm1_per_k)
+    g = math.log(2.5 / 0.5) + 0.5772156649015329 / 2
+    assert res["kappa_w_mk"] == pytest.approx(g / (2 * math.pi * 3 * 0.646e-9 * r_meas), rel=1e-3)
