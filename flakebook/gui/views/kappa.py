@@ -73,6 +73,8 @@ class KappaView(QWidget):
         self.plot.clear()
         self._scatter = []
         lx, ly = self.log_x.isChecked(), self.log_y.isChecked()
+        # Error bars and scatter points know nothing of the plot's log mode: both are given
+        # log10 values, on linear axes labelled as logarithmic.
         self.plot.setLogMode(x=lx, y=ly)
         groups = [("flakebook", "o", (80, 170, 255)), ("external", "s", (255, 170, 60))]
         sets = [(name, sym, col, [r for r in self.rows if r["source"] == name])
@@ -96,10 +98,10 @@ class KappaView(QWidget):
             else:
                 ys, top, bottom = k, hi - k, k - lo
             self.plot.addItem(pg.ErrorBarItem(x=xs, y=ys, top=top, bottom=bottom, pen=col))
-            sc = pg.ScatterPlotItem(x=n, y=k, symbol=sym, size=10, brush=col, name=name,
+            sc = pg.ScatterPlotItem(x=xs, y=ys, symbol=sym, size=10, brush=col, name=name,
                                     data=list(range(len(rows))))  # fmt: skip
             if name != "comparison":
-                sc.sigClicked.connect(lambda item, pts, rows=rows: self._clicked(rows, pts))
+                sc.sigClicked.connect(lambda item, pts, *_, rows=rows: self._clicked(rows, pts))
             self.plot.addItem(sc)
             self._scatter.append((sc, rows))
 
