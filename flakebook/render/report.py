@@ -7,16 +7,20 @@ from __future__ import annotations
 
 import base64
 import html
+import threading
 from collections.abc import Callable
 from pathlib import Path
 
-from flakebook.errors import InputError
+from flakebook.errors import InputError, check_cancel
 from flakebook.report.content import ReportContent, Selection, appearance_for_card, build_report
 from flakebook.store import Flake, Project
 from flakebook.store.outfile import write_file
 
 PAPERS = ("a4", "letter")
 SUFFIXES = (".html", ".pdf")
+
+#: Parts of a report's progress: gathering the content, drawing the cards, then the file.
+CONTENT_SHARE, CARDS_SHARE = 0.3, 0.6
 
 _CSS = """
 body { font-family: sans-serif; font-size: 10pt; color: #111; max-width: 60em; margin: 1em auto; }
@@ -101,8 +105,16 @@ def _card_png(project: Project, flake_id: int, missing: set[int]) -> bytes | Non
     return image_png(flake_card(project, flake, appearance=app, size_px=360))
 
 
-def compose(project: Project, content: ReportContent, *, pdf: bool = False) -> _Doc:
-    """The report's HTML and figures (figures drawn here, offscreen)."""
+def compose(
+    project: Project,
+    content: ReportContent,
+    *,
+    pdf: bool = False,
+    progress: Callable[[float, str], None] | None = None,
+    cancel: threading.Event | None = None,
+) -> _Doc:
+    """The report's HTML and figures (figures drawn here, offscreen). ``progress(fraction,
+    text)`` hears of each flake card drawn; a set ``cancel`` raises Cancelled between cards."""
     from flakebook.render.figures import (
         contrast_figure,
         kappa_figure,
@@ -155,7 +167,11 @@ def compose(project: Project, content: ReportContent, *, pdf: bool = False) -> _
     else:
         d.add("<p>No flakes to list.</p>")
     missing = {c.image_id for c in project.check_images() if c.status != "ok" and not c.embedded}
-    for card in content.cards:
+    for n_card, card in enumerate(content.cards):
+        check_cancel(cancel)
+        if progress is not None:
+            progress(n_card / len(content.cards),
+                     f"card of flake {card.label} ({n_card + 1} of {len(content.cards)})")  # fmt: skip
         d.add(f'<div class="card" id="flake-{_e(card.label)}">')
         d.add(f"<h2{break_before}>Flake {_e(card.label)}</h2>")
         d.add(
@@ -247,6 +263,7 @@ def compose(project: Project, content: ReportContent, *, pdf: bool = False) -> _
         for x in card.external:
             d.add(f"<p>Outside analysis: {_e(x)}</p>")
         d.add("</div>")
+    check_cancel(cancel)
     d.add(f"<h2{break_before}>Methods</h2>")
     for heading, paragraphs, bullets in content.methods.parts:
         d.add(f"<h3>{_e(heading)}</h3>")
@@ -308,9 +325,15 @@ def write_report(
     select: str | Selection | None = None,
     paper: str = "a4",
     combined: Callable | None = None,
+    progress: Callable[[float, str], None] | None = None,
+    cancel: threading.Event | None = None,
 ) -> dict:
     """Write the campaign report to ``out`` (.html or .pdf) through a temporary file; returns
-    a summary (path, flakes, figures, pages for a PDF is left to the reader)."""
+    a summary (path, flakes, figures, pages for a PDF is left to the reader).
+
+    ``progress(fraction, text)`` hears of each flake gathered and each card drawn; a set
+    ``cancel`` raises :class:`~flakebook.errors.Cancelled` before the file is written, so a
+    cancelled report leaves no file (and an earlier file of that name as it was)."""
     from flakebook.render.export import ensure_app
 
     out = Path(out)
@@ -327,10 +350,21 @@ def write_report(
     if combined is None:
         from flakebook.pipeline_spectra import flake_report as combined
     ensure_app()
-    content = build_report(project, select, combined=combined)
-    doc = compose(project, content, pdf=suffix == ".pdf")
+    content = build_report(
+        project, select, combined=combined, progress=_part(progress, 0.0, CONTENT_SHARE),
+        cancel=cancel,
+    )  # fmt: skip
+    doc = compose(
+        project, content, pdf=suffix == ".pdf",
+        progress=_part(progress, CONTENT_SHARE, CARDS_SHARE), cancel=cancel,
+    )  # fmt: skip
+    if progress is not None:
+        progress(CONTENT_SHARE + CARDS_SHARE, f"writing {out.name}")
     data: str | bytes = doc.html(embed=True) if suffix == ".html" else _pdf_bytes(doc, paper)
+    check_cancel(cancel)  # the last moment: from here the file is written whole
     write_file(out, data)
+    if progress is not None:
+        progress(1.0, f"{out.name} written")
     return {
         "out": str(out),
         "format": suffix[1:],
@@ -338,3 +372,12 @@ def write_report(
         "figures": len(doc.figures),
         "problems": list(content.problems),
     }
+
+
+def _part(
+    progress: Callable[[float, str], None] | None, start: float, share: float
+) -> Callable[[float, str], None] | None:
+    """``progress`` of one part of the work: its fraction 0-1 mapped onto start..start+share."""
+    if progress is None:
+        return None
+    return lambda fraction, text="": progress(start + share * fraction, text)

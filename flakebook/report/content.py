@@ -9,13 +9,14 @@ the caller as ``combined`` so that this package stays below the pipeline.
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from flakebook import __version__
-from flakebook.errors import InputError
+from flakebook.errors import InputError, check_cancel
 from flakebook.report.methods import MethodsSection, methods_section
 from flakebook.store import (
     Appearance,
@@ -75,10 +76,17 @@ def cell_text(key: str, value: Any, max_layers: int = 15) -> str:
 
 @dataclass(frozen=True)
 class Selection:
-    """Which flakes a report covers: ``kind`` all|sample|tag|thermal and its ``value``."""
+    """Which flakes a report covers: ``kind`` all|sample|tag|thermal and its ``value``, or
+    ``flakes``: the flakes named in ``labels`` (chosen in the window; :meth:`of_flakes`)."""
 
     kind: str = "all"
     value: str = ""
+    labels: tuple[str, ...] = ()
+
+    @classmethod
+    def of_flakes(cls, labels) -> Selection:
+        """The flakes with these labels (in the catalogue's order when the report is built)."""
+        return cls("flakes", labels=tuple(dict.fromkeys(str(x) for x in labels)))
 
     @classmethod
     def parse(cls, text: str | None) -> Selection:
@@ -92,6 +100,12 @@ class Selection:
         raise InputError(f"--select {text!r} is not a selection; accepted: {SELECT_HELP}")
 
     def describe(self) -> str:
+        if self.kind == "flakes":
+            if not self.labels:
+                return "no chosen flakes"
+            if len(self.labels) == 1:
+                return f"the chosen flake {self.labels[0]}"
+            return f"{len(self.labels)} chosen flakes ({', '.join(self.labels)})"
         return {
             "all": "all flakes",
             "thermal": "flakes with a thermal-conductivity result",
@@ -113,6 +127,16 @@ class Selection:
             return [f for f in flakes if f.sample_id == sample.id]
         if self.kind == "tag":
             return [f for f in flakes if self.value in f.tags]
+        if self.kind == "flakes":
+            known = {f.label for f in flakes}
+            gone = [x for x in self.labels if x not in known]
+            if gone:
+                raise InputError(
+                    f"the chosen flakes {', '.join(gone)} are not in the project (deleted "
+                    "meanwhile?); accepted: labels of flakes in the project"
+                )
+            wanted = set(self.labels)
+            return [f for f in flakes if f.label in wanted]
         if self.kind == "thermal":
             with_kappa = {
                 r.flake_id for r in project.records(ThermometryResult) if r.kappa_w_mk is not None
@@ -403,11 +427,15 @@ def build_report(
     selection: Selection | str | None = None,
     *,
     combined: Callable | None = None,
+    progress: Callable[[float, str], None] | None = None,
+    cancel: threading.Event | None = None,
 ) -> ReportContent:
     """The content of the campaign report of ``project`` for ``selection``.
 
     ``combined(project, flake) -> (CombinedReport | None, evidence records)`` gives a flake's
-    combined layer report (flakebook.pipeline_spectra.flake_report)."""
+    combined layer report (flakebook.pipeline_spectra.flake_report). ``progress(fraction,
+    text)`` hears of each flake gathered; a set ``cancel`` raises Cancelled between flakes
+    (INTERFACE.md, "Inside the core")."""
     if not isinstance(selection, Selection):
         selection = Selection.parse(selection)
     nmax = project.max_layers
@@ -469,7 +497,13 @@ def build_report(
             if project.count(Flake)
             else "The project holds no flakes yet: there is no catalogue and no flake card to show."
         )
-    cards = [_flake_entry(project, f, samples, missing, combined) for f in flakes]
+    cards = []
+    for i, f in enumerate(flakes):
+        check_cancel(cancel)
+        cards.append(_flake_entry(project, f, samples, missing, combined))
+        if progress is not None:
+            progress((i + 1) / len(flakes), f"flake {f.label} gathered ({i + 1} of {len(flakes)})")
+    check_cancel(cancel)
     return ReportContent(
         title=f"Campaign report: {project.path.stem}",
         project_file=project.path.name,
