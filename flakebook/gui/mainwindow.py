@@ -43,6 +43,7 @@ from flakebook.gui.window.projects import (
     recent_projects,
     settings,
 )
+from flakebook.gui.window.reports import Reports
 from flakebook.gui.window.samples import Exports, SettingsDialogs
 from flakebook.gui.words import CONTRAST_DEFINITION
 from flakebook.gui.worker import Job, JobBar
@@ -56,6 +57,7 @@ class MainWindow(
     Analysis,
     SettingsDialogs,
     Exports,
+    Reports,
     WindowBase,
     QMainWindow,
 ):
@@ -216,6 +218,13 @@ class MainWindow(
             "Save the image view or the catalogue as PNG or SVG",
             "exportPicture",
         )
+        self.a_report = A(
+            "Write &report…",
+            self.report_dialog,
+            "Ctrl+Shift+R",
+            "Write the campaign report (HTML or PDF) of all or some flakes",
+            "writeReport",
+        )
         self.a_quit = A("&Quit", self.close, S.Quit, "Quit flakebook", "quit")
 
         self.a_undo = self.undo_stack.createUndoAction(self, "&Undo")
@@ -365,6 +374,7 @@ class MainWindow(
         m.addSeparator()
         m.addAction(self.a_export_csv)
         m.addAction(self.a_export_pic)
+        m.addAction(self.a_report)
         m.addSeparator()
         m.addAction(self.a_quit)
         m = mb.addMenu("&Edit")

@@ -100,7 +100,7 @@ class WindowBase:
     def _update_enabled(self) -> None:
         has = self.session is not None
         rw = has and not self.session.read_only
-        for a in (self.a_close, self.a_export_csv, self.a_export_pic):
+        for a in (self.a_close, self.a_export_csv, self.a_export_pic, self.a_report):
             a.setEnabled(has)
         for a in (
             self.a_import,
