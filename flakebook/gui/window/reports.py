@@ -87,6 +87,7 @@ class Reports:
         self._show_open_report(None)
         job = Job(f"Write report {out.name}", report_job(s.path, out, select, paper))
         self._report_job = job
+        self.hint_label.setText(f"Writing the report of {select.describe()} to {out}…")
 
         def done(summary: dict) -> None:
             self.last_report = Path(summary["out"])
