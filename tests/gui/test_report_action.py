@@ -242,6 +242,26 @@ def test_cancel_midway_leaves_no_file(qtbot, demo_window, tmp_path, monkeypatch)
     assert w.findChild(type(w.jobs.cancel_button), "openReport") is None
 
 
+def test_cancel_after_the_file_is_written_says_written(qtbot, demo_window, tmp_path, monkeypatch):
+    """Cancel pressed once the file is whole: the report is there and the window says so."""
+    import flakebook.gui.window.reports as reports
+    from flakebook.gui.worker import Job
+
+    class Late(Job):
+        def _progress(self, fraction, text=""):
+            super()._progress(fraction, text)
+            if text.endswith(" written"):
+                self.cancel()
+
+    monkeypatch.setattr(reports, "Job", Late)
+    w = demo_window
+    out = tmp_path / "late.html"
+    w.write_report_file(out, Selection("thermal"))
+    _wait(qtbot, w)
+    assert out.exists() and _cards(out)
+    assert w.hint_label.text().startswith("Report written") and w.last_report == out
+
+
 @pytest.mark.parametrize("case", ["folder_missing", "name_is_a_folder"])
 def test_a_file_that_cannot_be_written_gives_the_clear_message(qtbot, demo_window, tmp_path, case):
     w = demo_window

@@ -39,9 +39,12 @@ def report_job(project_path: Path, out: Path, select: Selection, paper: str):
         from flakebook.store import Project
 
         with Project.open(project_path, read_only=True) as project:
-            return write_report(
+            summary = write_report(
                 project, out, select=select, paper=paper, progress=progress, cancel=cancel
             )
+        if cancel is not None:
+            cancel.clear()  # Cancel pressed while the file was being written came too late
+        return summary
 
     return run
 
