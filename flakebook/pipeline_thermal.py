@@ -361,12 +361,17 @@ class ModelOptions:
                 f"weighting {self.weighting!r} is not known; accepted: {', '.join(WEIGHTINGS)}"
             )
         g = self.interface_conductance_w_m2k
-        if self.interface_conductance_err_w_m2k:
-            # Not drawn in the Monte Carlo yet: refused rather than silently left out.
+        ge = self.interface_conductance_err_w_m2k
+        if ge and g is None:
             raise InputError(
-                "an uncertainty of the interface conductance is not yet part of the Monte Carlo "
-                "interval; accepted: --interface-conductance-w-m2k alone (taken as exact), and "
-                "compare intervals at its lower and upper values"
+                "an interface conductance error was given without an interface conductance; "
+                "accepted: --interface-conductance-err-w-m2k together with "
+                "--interface-conductance-w-m2k"
+            )
+        if not (math.isfinite(ge) and ge >= 0):
+            raise InputError(
+                f"interface conductance error {ge!r} W/m^2/K is not usable; a standard "
+                "deviation >= 0 is accepted"
             )
         if g is not None and not (math.isfinite(g) and g > 0):
             raise InputError(
@@ -482,11 +487,15 @@ def kappa_inputs(
     na_abs = float(na or 0.0)
     depth = None if ohole is None or ohole.bottom == "open" else ohole.depth_nm
     depth_err = options.hole_depth_err_nm
+    pattern = sample.hole_pattern
+    if depth is not None and depth_err is None and pattern is not None:
+        if pattern.depth_err_nm is not None and pattern.depth_nm == depth:
+            depth_err = float(pattern.depth_err_nm)
     if depth is not None and depth_err is None:
         depth_err = 0.05 * depth
         warnings.append(
             f"the hole depth's error is not recorded; taken as 5% of {depth:g} nm "
-            "(give --hole-depth-err-nm)"
+            "(record it with the sample's hole pattern, or give --hole-depth-err-nm)"
         )
     a0 = absorptance(material, int(n_central), laser, substrate, geometry="suspended",
                      hole=ohole, na_objective=na_abs)  # fmt: skip
@@ -595,6 +604,7 @@ def run_kappa(
         beam_radius_err_um=inputs["beam_radius_err_um"],
         hole_depth_nm=inputs["hole_depth_nm"] if table else None,
         hole_depth_err_nm=inputs["hole_depth_err_nm"] if table else 0.0,
+        interface_conductance_err_w_m2k=float(opts.interface_conductance_err_w_m2k or 0.0),
         model=model,
         draws=int(opts.draws),
         seed=seed,

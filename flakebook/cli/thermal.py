@@ -29,7 +29,7 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
         "--interface-conductance-err-w-m2k",
         type=float,
         default=0.0,
-        help="its s.d., W/m^2/K: not yet drawn in the Monte Carlo, so a value other than 0 is refused",
+        help="its s.d., W/m^2/K (drawn log-normal in the Monte Carlo)",
     )
     p.add_argument(
         "--kappa-alpha",
@@ -252,6 +252,7 @@ def _kappa(args) -> int:
         beam_radius_err_um=args.beam_radius_err_um,
         hole_depth_nm=depth,
         hole_depth_err_nm=depth_err,
+        interface_conductance_err_w_m2k=options.interface_conductance_err_w_m2k,
         model=options.heat_model(),
         draws=options.draws,
         progress=_common.Progress(),

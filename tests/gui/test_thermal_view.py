@@ -56,3 +56,21 @@ def test_import_see_kappa_change_weighting_undo(qtbot, window, tmp_path, monkeyp
     assert view.details["kappa"]["kappa_w_mk"] == first
     window.show_view("kappa")
     assert any(r["label"] == "Q3W-002" for r in window.kappa_view.rows)
+
+
+def test_power_limit_is_kept_and_g_error_reaches_the_options(qtbot, window):
+    """The power limit a user sets is kept for the next session (a new view reads it back,
+    with the test's own settings folder from tests/conftest.py); the error of g goes into the
+    heat-model options only together with g."""
+    from flakebook.gui.views.thermal import ThermalView
+
+    view = window.thermal
+    view.max_power.setValue(0.35)
+    again = ThermalView(window)
+    assert again.max_power.value() == 0.35
+    view.conductance_err.setValue(2e5)
+    assert view.options().interface_conductance_err_w_m2k == 0.0  # no g: nothing to draw
+    view.conductance.setValue(1e6)
+    opts = view.options()
+    assert (opts.interface_conductance_w_m2k, opts.interface_conductance_err_w_m2k) == (1e6, 2e5)
+    again.deleteLater()

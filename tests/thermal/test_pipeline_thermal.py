@@ -140,17 +140,32 @@ def test_cli_worked_example():
     assert json.loads(run.stdout)["kappa_w_mk"] == pytest.approx(30.1, abs=0.05)
 
 
-def test_interface_conductance_error_is_refused_not_ignored():
-    """The Monte Carlo does not draw the interface conductance: an error given for it is
-    refused with a message, never silently dropped from the interval (common practice, no
-    source)."""
+def test_interface_conductance_error_and_hole_depth_error_reach_the_interval(project):
+    """The interface conductance's error is drawn in the Monte Carlo (its own variance_share
+    key) and the hole depth's error recorded on the sample's hole pattern is used instead of
+    the 5% stand-in; an error without a conductance is refused."""
     from flakebook.errors import InputError
 
-    with pytest.raises(InputError, match="not yet part of the Monte Carlo"):
-        pt.ModelOptions(
-            interface_conductance_w_m2k=1e7, interface_conductance_err_w_m2k=2e6
-        ).heat_model()
-    assert pt.ModelOptions(interface_conductance_w_m2k=1e7).heat_model() is not None
+    with pytest.raises(InputError, match="without an interface conductance"):
+        pt.ModelOptions(interface_conductance_err_w_m2k=2e6).heat_model()
+    p, tmp = project
+    temps = [295.0, 315.0, 335.0, 355.0, 375.0]
+    pt.import_series(p, "Z1-001", "temperature",
+                     _series(tmp / "t", "temperature", temps, lambda v: CHI_T * (v - 295), 1))  # fmt: skip
+    powers = [0.05, 0.1, 0.15, 0.2, 0.1]
+    pt.import_series(p, "Z1-001", "power", _series(tmp / "p", "power", powers,
+                                                   lambda v: CHI_P * v, 2))  # fmt: skip
+    opts = pt.ModelOptions(draws=500, interface_conductance_w_m2k=1e5,
+                           interface_conductance_err_w_m2k=4e4)  # fmt: skip
+    _, rec = pt.flake_kappa(p, "Z1-001", opts)
+    assert rec.details["result"]["variance_share"]["interface_conductance"] > 0
+    assert any("taken as 5%" in w for w in rec.details["result"]["warnings"])
+    s = p.sample_by_name("Z1")
+    p.update(s, hole_pattern={"bottom": "au", "diameter_um": 5.0, "depth_nm": 250.0,
+                                     "depth_err_nm": 4.0})  # fmt: skip
+    _, rec = pt.flake_kappa(p, "Z1-001", pt.ModelOptions(draws=500))
+    assert not any("taken as 5%" in w for w in rec.details["result"]["warnings"])
+    assert rec.details["inputs"]["hole_depth_err_nm"] == 4.0
 
 
 def test_cli_series_import_then_kappa_from_the_project(project):

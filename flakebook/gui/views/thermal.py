@@ -80,6 +80,16 @@ class ThermalView(QWidget):
         self.conductance.setDecimals(0)
         self.conductance.setSpecialValueText("none (edge at the sink)")
         self.conductance.setSuffix(" W/m²K")
+        self.conductance_err = QDoubleSpinBox(self)
+        self.conductance_err.setObjectName("interfaceConductanceErr")
+        self.conductance_err.setRange(0.0, 1e9)
+        self.conductance_err.setDecimals(0)
+        self.conductance_err.setSpecialValueText("exact")
+        self.conductance_err.setPrefix("± ")
+        self.conductance_err.setSuffix(" W/m²K")
+        self.conductance_err.setToolTip(
+            "Standard deviation of g, drawn in the Monte Carlo (log-normal)"
+        )
         self.alpha = QDoubleSpinBox(self)
         self.alpha.setObjectName("kappaAlpha")
         self.alpha.setRange(0.0, 3.0)
@@ -88,8 +98,9 @@ class ThermalView(QWidget):
         self.max_power.setObjectName("maxPower")
         self.max_power.setRange(0.001, 100.0)
         self.max_power.setDecimals(3)
-        self.max_power.setValue(DEFAULT_MAX_POWER_MW)
+        self.max_power.setValue(_saved_power_limit())
         self.max_power.setSuffix(" mW")
+        self.max_power.valueChanged.connect(_save_power_limit)
         self.max_power.setToolTip("A power step above this asks for confirmation: it can "
                                   "destroy a membrane")  # fmt: skip
         self.recompute = QPushButton("Recompute κ", self)
@@ -102,6 +113,7 @@ class ThermalView(QWidget):
         form = QFormLayout()
         form.addRow("Weighting", self.weighting)
         form.addRow("Supported region, g", self.conductance)
+        form.addRow("Error of g", self.conductance_err)
         form.addRow("κ(T) exponent α", self.alpha)
         form.addRow("Power limit", self.max_power)
         side = QVBoxLayout()
@@ -129,6 +141,7 @@ class ThermalView(QWidget):
         return ModelOptions(
             weighting=self.weighting.currentText(),
             interface_conductance_w_m2k=g if g > 0 else None,
+            interface_conductance_err_w_m2k=self.conductance_err.value() if g > 0 else 0.0,
             kappa_alpha=self.alpha.value(),
             draws=4000,
         )
@@ -197,12 +210,14 @@ class ThermalView(QWidget):
         self.warnings.setText("\n".join(f"• {w}" for w in warns[:6]))
 
     def _set_options(self, opts: dict) -> None:
-        for w in (self.weighting, self.conductance, self.alpha):
+        boxes = (self.weighting, self.conductance, self.conductance_err, self.alpha)
+        for w in boxes:
             w.blockSignals(True)
         self.weighting.setCurrentText(opts.get("weighting", "intensity"))
         self.conductance.setValue(opts.get("interface_conductance_w_m2k") or 0.0)
+        self.conductance_err.setValue(opts.get("interface_conductance_err_w_m2k") or 0.0)
         self.alpha.setValue(opts.get("kappa_alpha", 0.0))
-        for w in (self.weighting, self.conductance, self.alpha):
+        for w in boxes:
             w.blockSignals(False)
 
     def _plot_series(self, kind: str, s: dict) -> None:
@@ -244,6 +259,26 @@ class ThermalView(QWidget):
             + LASER_SAFETY,
         )
         return answer == QMessageBox.StandardButton.Yes
+
+
+POWER_LIMIT_KEY = "thermometry/max_power_mw"
+
+
+def _saved_power_limit() -> float:
+    """The user's power limit (mW at the sample), kept across sessions; the default without."""
+    from flakebook.gui.window.projects import settings
+
+    try:
+        value = float(settings().value(POWER_LIMIT_KEY, DEFAULT_MAX_POWER_MW))
+    except (TypeError, ValueError):
+        return DEFAULT_MAX_POWER_MW
+    return value if 0.001 <= value <= 100.0 else DEFAULT_MAX_POWER_MW
+
+
+def _save_power_limit(value: float) -> None:
+    from flakebook.gui.window.projects import settings
+
+    settings().setValue(POWER_LIMIT_KEY, float(value))
 
 
 VIEW = View(
