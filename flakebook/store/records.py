@@ -34,7 +34,7 @@ SPECTRUM_KINDS = ("raman", "pl", "reflectance")
 HOLE_BOTTOMS = ("si", "au", "open")
 LATTICES = ("square", "hexagonal")
 HOLE_SOURCES = ("manual", "detected", "lattice")
-SERIES_KINDS = ("temperature", "power")
+SERIES_KINDS = ("temperature", "power", "supported-power")
 
 
 def layer_spacing_nm(material: str) -> float | None:

@@ -26,7 +26,11 @@ import numpy as np
 
 from flakebook.errors import InputError
 
-KINDS = {"temperature": ("stage temperature", "K"), "power": ("power at the sample", "mW")}
+KINDS = {
+    "temperature": ("stage temperature", "K"),
+    "power": ("power at the sample", "mW"),
+    "supported-power": ("power at the sample, beam on the supported part", "mW"),
+}
 
 
 @dataclass(frozen=True)
@@ -179,7 +183,7 @@ def _hysteresis(x, y, s, order, kind: str, unit: str) -> list[str]:
     if worst is None:
         return []
     z, xv, dy = worst
-    what = "power" if kind == "power" else "temperature"
+    what = "temperature" if kind == "temperature" else "power"
     return [
         f"the mode does not come back when the {what} steps down: at {xv:.4g} {unit} it differs "
         f"by {dy:+.3g} cm^-1 ({z:.1f} combined sigma) between the way up and the way down "

@@ -74,3 +74,34 @@ def test_power_limit_is_kept_and_g_error_reaches_the_options(qtbot, window):
     opts = view.options()
     assert (opts.interface_conductance_w_m2k, opts.interface_conductance_err_w_m2k) == (1e6, 2e5)
     again.deleteLater()
+
+
+def test_conductance_from_a_supported_series_in_the_view(qtbot, window, tmp_path, monkeypatch):
+    """A supported-part power series imported from the view is drawn with the membrane's power
+    series; ticking 'g from the supported-part series' recomputes kappa with the fitted g,
+    whose note reaches the view's warnings."""
+    from flakebook.gui.views import thermal
+
+    s = window.session
+    flake = s.project.find_flake("Q3W-002")
+    s.project.add_beam_profile("50x", 532.0, 0.4, radius_err_um=0.02, method="edge scan")
+    window.select_flake(flake.id)
+    window.show_view("thermal")
+    view = window.thermal
+    monkeypatch.setattr(view, "confirm_power", lambda powers: True)
+    t = _series(tmp_path / "t", "temperature", [295, 315, 335, 355, 375],
+                lambda v: -0.011 * (v - 295), 1)  # fmt: skip
+    p = _series(tmp_path / "p", "power", [0.05, 0.1, 0.15, 0.2, 0.1], lambda v: -4.0 * v, 2)
+    sp = _series(tmp_path / "s", "power", [0.05, 0.1, 0.15, 0.2, 0.1], lambda v: -0.6 * v, 3)
+    for kind, path in (("temperature", t), ("power", p), ("supported-power", sp)):
+        thermal.import_series(window, view, kind, path)
+    assert "supported part" in view.chi.text()
+    job = thermal.recompute_kappa(window, view)
+    qtbot.waitUntil(lambda: bool(job.done.is_set() and view.details.get("kappa")), timeout=60000)
+    view.g_from_series.setChecked(True)  # recomputes in a worker
+    qtbot.waitUntil(
+        lambda: view.details["kappa"]["options"].get("conductance_from_series") is True,
+        timeout=60000,
+    )
+    assert not view.conductance.isEnabled()
+    assert "from the supported-part power series" in view.warnings.text()

@@ -7,8 +7,9 @@ from __future__ import annotations
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import Signal
+from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import (
+    QCheckBox,
     QComboBox,
     QDoubleSpinBox,
     QFileDialog,
@@ -110,10 +111,17 @@ class ThermalView(QWidget):
         self.import_t.clicked.connect(lambda: self.importRequested.emit("temperature"))
         self.import_p = QPushButton("Import power series…", self)
         self.import_p.clicked.connect(lambda: self.importRequested.emit("power"))
+        self.import_s = QPushButton("Import supported-part power series…", self)
+        self.import_s.setToolTip("A power series with the beam on the supported part of the "
+                                 "same flake: it fixes the interface conductance g")  # fmt: skip
+        self.import_s.clicked.connect(lambda: self.importRequested.emit("supported-power"))
+        self.g_from_series = QCheckBox("g from the supported-part series", self)
+        self.g_from_series.setObjectName("conductanceFromSeries")
         form = QFormLayout()
         form.addRow("Weighting", self.weighting)
         form.addRow("Supported region, g", self.conductance)
         form.addRow("Error of g", self.conductance_err)
+        form.addRow("", self.g_from_series)
         form.addRow("κ(T) exponent α", self.alpha)
         form.addRow("Power limit", self.max_power)
         side = QVBoxLayout()
@@ -121,6 +129,7 @@ class ThermalView(QWidget):
         side.addWidget(self.recompute)
         side.addWidget(self.import_t)
         side.addWidget(self.import_p)
+        side.addWidget(self.import_s)
         side.addWidget(self.chi)
         side.addWidget(self.absorptance)
         side.addWidget(self.kappa)
@@ -135,13 +144,21 @@ class ThermalView(QWidget):
         lay.addLayout(body, 1)
         lay.addWidget(self.warnings)
 
+    def _g_fields(self, *_args) -> None:
+        """A fitted g replaces the typed one."""
+        typed = not self.g_from_series.isChecked()
+        self.conductance.setEnabled(typed)
+        self.conductance_err.setEnabled(typed)
+
     def options(self) -> ModelOptions:
         """The heat-model settings as chosen."""
-        g = self.conductance.value()
+        fitted = self.g_from_series.isChecked()
+        g = 0.0 if fitted else self.conductance.value()
         return ModelOptions(
             weighting=self.weighting.currentText(),
             interface_conductance_w_m2k=g if g > 0 else None,
             interface_conductance_err_w_m2k=self.conductance_err.value() if g > 0 else 0.0,
+            conductance_from_series=fitted,
             kappa_alpha=self.alpha.value(),
             draws=4000,
         )
@@ -171,6 +188,10 @@ class ThermalView(QWidget):
             if c["chi_p_cm1_per_mw"] is not None:
                 parts.append(f"χ_P = {c['chi_p_cm1_per_mw']:.3g} ± {c['chi_p_err_cm1_per_mw']:.2g}"
                              " cm⁻¹/mW")  # fmt: skip
+            sup = c.get("supported")
+            if sup:
+                parts.append(f"χ_P on the supported part = {sup['chi_p_cm1_per_mw']:.3g} ± "
+                             f"{sup['chi_p_err_cm1_per_mw']:.2g} cm⁻¹/mW")  # fmt: skip
             self.chi.setText("\n".join(parts))
         k = details.get("kappa")
         warns = list(c["warnings"]) if c else []
@@ -210,13 +231,16 @@ class ThermalView(QWidget):
         self.warnings.setText("\n".join(f"• {w}" for w in warns[:6]))
 
     def _set_options(self, opts: dict) -> None:
-        boxes = (self.weighting, self.conductance, self.conductance_err, self.alpha)
+        boxes = (self.weighting, self.conductance, self.conductance_err, self.alpha,
+                 self.g_from_series)  # fmt: skip
         for w in boxes:
             w.blockSignals(True)
         self.weighting.setCurrentText(opts.get("weighting", "intensity"))
         self.conductance.setValue(opts.get("interface_conductance_w_m2k") or 0.0)
         self.conductance_err.setValue(opts.get("interface_conductance_err_w_m2k") or 0.0)
         self.alpha.setValue(opts.get("kappa_alpha", 0.0))
+        self.g_from_series.setChecked(bool(opts.get("conductance_from_series")))
+        self._g_fields()
         for w in boxes:
             w.blockSignals(False)
 
@@ -226,16 +250,24 @@ class ThermalView(QWidget):
         y = np.array([p["center_cm1"] for p in pts])
         e = np.array([p["center_err_cm1"] for p in pts])
         fit = s["fit"]
-        plot, res = self.plots[kind], self.residuals[kind]
+        supported = kind == "supported-power"  # drawn with the membrane's power series
+        plot, res = (
+            self.plots["power" if supported else kind],
+            self.residuals["power" if supported else kind],
+        )
         top = int(np.argmax(x))
         down = np.arange(x.size) > top  # taken on the way back down (hysteresis check)
         plot.addItem(pg.ErrorBarItem(x=x, y=y, top=e, bottom=e))
-        plot.plot(x[~down], y[~down], pen=None, symbol="o", symbolBrush="w")
+        plot.plot(x[~down], y[~down], pen=None, symbol="s" if supported else "o",
+                  symbolBrush="c" if supported else "w",
+                  name="beam on the supported part" if supported else None)  # fmt: skip
         if down.any():
             plot.plot(x[down], y[down], pen=None, symbol="t", symbolBrush="r",
                       name="on the way down")  # fmt: skip
         xs = np.linspace(x.min(), x.max(), 50)
-        plot.plot(xs, fit["intercept"] + fit["slope"] * xs, pen=pg.mkPen("y", width=2))
+        line = pg.mkPen("c" if supported else "y", width=2, style=Qt.PenStyle.DashLine if supported
+                        else Qt.PenStyle.SolidLine)  # fmt: skip
+        plot.plot(xs, fit["intercept"] + fit["slope"] * xs, pen=line)
         if any("does not come back" in w for w in fit["warnings"]):
             t = pg.TextItem("does not come back on the way down", color="r", anchor=(0, 1))
             t.setPos(float(x.min()), float(y.min()))
@@ -313,7 +345,7 @@ def import_series(window, view: ThermalView, kind: str, path: str | None = None)
         path, _ = QFileDialog.getOpenFileName(view, f"{kind} series table", "", "CSV (*.csv)")
         if not path:
             return
-    if kind == "power" and not view.confirm_power(s.series_powers(path)):
+    if kind != "temperature" and not view.confirm_power(s.series_powers(path)):
         return
     limit = view.max_power.value()
     window.edit(f"Import {kind} series",
@@ -346,7 +378,9 @@ def connect(window, view: ThermalView) -> None:
     guard = window._guard
     view.importRequested.connect(lambda k: guard(lambda: import_series(window, view, k), "Import"))
     view.recomputeRequested.connect(lambda: guard(lambda: recompute_kappa(window, view), "κ"))
+    view.g_from_series.toggled.connect(view._g_fields)
     for sig in (view.weighting.currentTextChanged, view.conductance.editingFinished,
+                view.conductance_err.editingFinished, view.g_from_series.toggled,
                 view.alpha.editingFinished):  # fmt: skip
         sig.connect(lambda *_: view.details and view.details.get("kappa") and guard(
             lambda: recompute_kappa(window, view), "κ"))  # fmt: skip
