@@ -94,7 +94,7 @@ def mode_spec(material: str, mode: str, layers: int | None, laser_nm: float | No
 def fit_mode(x: np.ndarray, y: np.ndarray, spec) -> dict:
     """The mode's centre, its error and width in one spectrum (spikes removed, no Si-line
     calibration: within a temperature series the Si line moves too)."""
-    from flakebook.spectra.peaks import fit_peaks
+    from flakebook.spectra.peaks import fit_peaks, shot_noise_variance
     from flakebook.spectra.processing import calibrate, remove_spikes
 
     x = np.asarray(x, dtype=float)
@@ -102,8 +102,9 @@ def fit_mode(x: np.ndarray, y: np.ndarray, spec) -> dict:
     order = np.argsort(x)
     x, y = x[order], y[order]
     x = calibrate(x, y, auto_calibrate=False).x_corrected
+    variance = shot_noise_variance(y)  # raw counts: weighted by their own shot noise
     y = remove_spikes(y).y
-    fit = fit_peaks(x, y, [spec])
+    fit = fit_peaks(x, y, [spec], variance=variance)
     peak = fit.peaks[0]
     if not peak.found or not math.isfinite(peak.center_err) or peak.center_err <= 0:
         raise InputError(

@@ -23,6 +23,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import special
 
 from flakebook.errors import InputError
 
@@ -124,11 +125,13 @@ def fit_series(
     red = chi2 / dof if dof > 0 else float("nan")
     scaled = bool(dof > 0 and red > 1)
     if scaled:
-        cov = cov * red
-        warnings.append(
-            f"the {kind} series scatters more than its centre errors (reduced chi-square "
-            f"{red:.2f}); the slope error is scaled by sqrt({red:.2f})"
-        )
+        cov = cov * red  # the slope error never below what the scatter says (Birge ratio)
+        p_value = float(special.chdtrc(dof, chi2))
+        if p_value < 0.05:  # said only where the scatter is beyond chance
+            warnings.append(
+                f"the {kind} series scatters more than its centre errors (reduced chi-square "
+                f"{red:.2f}, p = {p_value:.2g}); the slope error is scaled by sqrt({red:.2f})"
+            )
     slope = float(coef[1])
     slope_var = float(cov[1, 1])
     # back to the intercept at x = 0

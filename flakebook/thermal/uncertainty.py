@@ -115,7 +115,7 @@ def _layer_probabilities(
             "has no thickness; give the layer number (more than 5% there is not accepted)"
         )
     warns = []
-    if more > 0:
+    if more >= 1e-3:  # below 0.1% the bin changes nothing worth a word
         warns.append(
             f"the layer posterior's >{post.size - 1}L bin ({more:.1%}) has no "
             "thickness; it was dropped and the rest renormalised"

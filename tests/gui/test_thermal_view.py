@@ -105,3 +105,14 @@ def test_conductance_from_a_supported_series_in_the_view(qtbot, window, tmp_path
     )
     assert not view.conductance.isEnabled()
     assert "from the supported-part power series" in view.warnings.text()
+
+
+def test_kappa_and_its_interval_share_one_rounding():
+    """The project's rounding rule (two significant figures of the uncertainty, here the
+    narrower side of the interval) applied to kappa and both ends alike."""
+    from flakebook.gui.views.thermal import SHARE_NAMES, kappa_interval_text
+
+    assert kappa_interval_text(25.96, 21.08, 33.04) == "26.0 W/mK (16–84%: 21.1–33.0)"
+    assert kappa_interval_text(30.1, 30.1, 30.1) == "30 W/mK (16–84%: 30–30)"
+    assert kappa_interval_text(31.237, 30.412, 32.15) == "31.24 W/mK (16–84%: 30.41–32.15)"
+    assert SHARE_NAMES["hole_depth"] == "hole depth"

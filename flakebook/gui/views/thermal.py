@@ -26,6 +26,7 @@ from PySide6.QtWidgets import (
 from flakebook.gui.views import View
 from flakebook.gui.worker import Job
 from flakebook.pipeline_thermal import DEFAULT_MAX_POWER_MW, LASER_SAFETY, ModelOptions
+from flakebook.wording import count_text
 
 _AXES = {"temperature": ("stage temperature", "K"), "power": ("power at the sample", "mW")}
 
@@ -63,6 +64,7 @@ class ThermalView(QWidget):
         self.chi.setObjectName("chiLabel")
         self.absorptance = QLabel(self)
         self.absorptance.setObjectName("absorptanceLabel")
+        self.absorptance.setWordWrap(True)
         self.kappa = QLabel(self)
         self.kappa.setObjectName("kappaLabel")
         self.warnings = QLabel(self)
@@ -135,9 +137,12 @@ class ThermalView(QWidget):
         side.addWidget(self.kappa)
         side.addWidget(self.shares)
         side.addStretch(1)
+        panel = QWidget(self)
+        panel.setLayout(side)
+        panel.setMaximumWidth(420)  # the plots get the rest of the width
         body = QHBoxLayout()
-        body.addLayout(grid, 3)
-        body.addLayout(side, 1)
+        body.addLayout(grid, 1)
+        body.addWidget(panel)
         lay = QVBoxLayout(self)
         lay.addWidget(self.caution)
         lay.addWidget(self.title)
@@ -201,8 +206,9 @@ class ThermalView(QWidget):
         else:
             stale = " (stale)" if k["stale"] else ""
             self.kappa.setText(
-                f"<b>κ = {k['kappa_w_mk']:.3g} W/mK</b> (16–84%: {k['kappa_p16_w_mk']:.3g}–"
-                f"{k['kappa_p84_w_mk']:.3g}){stale}"
+                "<b>κ = "
+                + kappa_interval_text(k["kappa_w_mk"], k["kappa_p16_w_mk"], k["kappa_p84_w_mk"])
+                + f"</b>{stale}"
             )
             where = k.get("hole_bottom") or "?"
             depth = f", {k['hole_depth_nm']:g} nm deep" if k.get("hole_depth_nm") else ""
@@ -220,11 +226,13 @@ class ThermalView(QWidget):
                 self.shares.addItem(pg.BarGraphItem(x0=[left], y=[0], width=[v], height=0.8,
                                                     brush=color))  # fmt: skip
                 if v > 0.06:
-                    t = pg.TextItem(n, anchor=(0.5, 0.5))
+                    t = pg.TextItem(SHARE_NAMES.get(n, n.replace("_", " ")), anchor=(0.5, 0.5))
                     t.setPos(left + v / 2, 0)
                     self.shares.addItem(t)
                 left += v
-            self.shares.setToolTip(", ".join(f"{n} {shares[n]:.0%}" for n in names))
+            self.shares.setToolTip(
+                ", ".join(f"{SHARE_NAMES.get(n, n)} {shares[n]:.0%}" for n in names)
+            )
             warns = list(k["warnings"])
             opts = k.get("options") or {}
             self._set_options(opts)
@@ -286,7 +294,7 @@ class ThermalView(QWidget):
         answer = QMessageBox.question(
             self,
             "Power above the limit",
-            f"{len(high)} step(s) of this power series exceed {limit:g} mW at the sample "
+            f"{count_text(len(high), 'step')} of this power series exceed {limit:g} mW at the sample "
             f"(highest {max(high):g} mW). Such a power can destroy a membrane. Import anyway?\n\n"
             + LASER_SAFETY,
         )
@@ -294,6 +302,29 @@ class ThermalView(QWidget):
 
 
 POWER_LIMIT_KEY = "thermometry/max_power_mw"
+
+#: The Monte Carlo inputs of ``variance_share`` (INTERFACE.md) in words.
+SHARE_NAMES = {
+    "chi_t": "χ_T",
+    "chi_p": "χ_P",
+    "chi_t+chi_p": "χ_T and χ_P",
+    "absorptance": "absorptance",
+    "hole_radius": "hole radius",
+    "beam_radius": "beam radius",
+    "hole_depth": "hole depth",
+    "layers": "layer number",
+    "interface_conductance": "g",
+}
+
+
+def kappa_interval_text(kappa: float, p16: float, p84: float) -> str:
+    """``"26.0 W/mK (16–84%: 21.1–33.0)"``: every number to the decimals of two significant
+    figures of the narrower side of the interval (the project's rounding rule)."""
+    import math
+
+    half = min(abs(kappa - p16), abs(p84 - kappa))
+    digits = 0 if not half > 0 else max(0, 1 - math.floor(math.log10(half)))
+    return f"{kappa:.{digits}f} W/mK (16–84%: {p16:.{digits}f}–{p84:.{digits}f})"
 
 
 def _saved_power_limit() -> float:
