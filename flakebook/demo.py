@@ -37,6 +37,7 @@ DARK_OFFSET = 0.012  # fraction of full scale, the invented camera's dark offset
 HOLE_DIAMETER_UM = 5.0
 HOLE_PITCH_UM = 12.0
 HOLE_DEPTH_NM = 250.0  # air gap from the membrane down to the gold at the hole's bottom
+HOLE_DEPTH_ERR_NM = 6.0  # its s.d., as a profilometer scan of the chip would give (invented)
 OBJECTIVES = {"10x": (0.345, 0.30), "50x": (0.069, 0.80)}  # um/px, objective NA (examples)
 NA_ILLUMINATION = 0.3
 START = _dt.datetime(2026, 3, 9, 9, 0, 0, tzinfo=_dt.UTC)
@@ -422,6 +423,7 @@ def build_demo(
                 "lattice": "square",
                 "angle_deg": 0.0,
                 "depth_nm": HOLE_DEPTH_NM,
+                "depth_err_nm": HOLE_DEPTH_ERR_NM,
             },
             notes="holey chip: square lattice of gold-bottomed holes",
         )

@@ -23,7 +23,7 @@ from __future__ import annotations
 import math
 import threading
 from collections.abc import Callable
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -94,7 +94,7 @@ def mode_spec(material: str, mode: str, layers: int | None, laser_nm: float | No
 def fit_mode(x: np.ndarray, y: np.ndarray, spec) -> dict:
     """The mode's centre, its error and width in one spectrum (spikes removed, no Si-line
     calibration: within a temperature series the Si line moves too)."""
-    from flakebook.spectra.peaks import fit_peaks
+    from flakebook.spectra.peaks import fit_peaks, shot_noise_variance
     from flakebook.spectra.processing import calibrate, remove_spikes
 
     x = np.asarray(x, dtype=float)
@@ -102,8 +102,9 @@ def fit_mode(x: np.ndarray, y: np.ndarray, spec) -> dict:
     order = np.argsort(x)
     x, y = x[order], y[order]
     x = calibrate(x, y, auto_calibrate=False).x_corrected
+    variance = shot_noise_variance(y)  # raw counts: weighted by their own shot noise
     y = remove_spikes(y).y
-    fit = fit_peaks(x, y, [spec])
+    fit = fit_peaks(x, y, [spec], variance=variance)
     peak = fit.peaks[0]
     if not peak.found or not math.isfinite(peak.center_err) or peak.center_err <= 0:
         raise InputError(
@@ -217,9 +218,9 @@ def coefficients_fields(
             "points": points,
             "fit": _fit_dict(fit),
         }
-        if kind == "power" and np.any(x > limit):
+        if kind != "temperature" and np.any(x > limit):
             warnings.append(
-                f"power series: {int(np.sum(x > limit))} point(s) above the power limit of "
+                f"{kind} series: {int(np.sum(x > limit))} point(s) above the power limit of "
                 f"{limit:g} mW at the sample (highest {x.max():g} mW): such a power can destroy "
                 "a membrane; check the flake"
             )
@@ -241,6 +242,13 @@ def coefficients_fields(
         missing = "power" if p is None else "temperature"
         warnings.append(f"no {missing} series yet: kappa needs both")
         details["covariance"] = None
+    sup = fits.get("supported-power")
+    if sup is not None:
+        details["supported"] = {
+            "chi_p_cm1_per_mw": sup.slope,
+            "chi_p_err_cm1_per_mw": sup.slope_err,
+        }
+        warnings = [f"supported-part power series: {w}" for w in sup.warnings] + warnings
     details["warnings"] = warnings
     fields.update(
         chi_t_cm1_per_k=None if t is None else t.slope,
@@ -312,7 +320,7 @@ def import_series(
                 x_unit="cm-1",
                 laser_nm=laser_nm or meta.get("laser_nm"),
                 series_id=series.id,
-                power_mw=f.value if kind == "power" else None,
+                power_mw=None if kind == "temperature" else f.value,
                 stage_temperature_k=f.value if kind == "temperature" else None,
                 source_path=rel,
                 metadata={**meta, "step": f.order},
@@ -351,6 +359,7 @@ class ModelOptions:
     draws: int = 10_000
     na_objective: float | None = None
     hole_depth_err_nm: float | None = None
+    conductance_from_series: bool = False
 
     def heat_model(self, powers_mw=None):
         from flakebook.thermal.inversion import HeatModel
@@ -361,12 +370,22 @@ class ModelOptions:
                 f"weighting {self.weighting!r} is not known; accepted: {', '.join(WEIGHTINGS)}"
             )
         g = self.interface_conductance_w_m2k
-        if self.interface_conductance_err_w_m2k:
-            # Not drawn in the Monte Carlo yet: refused rather than silently left out.
+        ge = self.interface_conductance_err_w_m2k
+        if self.conductance_from_series and g is not None:
             raise InputError(
-                "an uncertainty of the interface conductance is not yet part of the Monte Carlo "
-                "interval; accepted: --interface-conductance-w-m2k alone (taken as exact), and "
-                "compare intervals at its lower and upper values"
+                "the interface conductance is both given and to be fitted from the "
+                "supported-part series; accepted: one of the two"
+            )
+        if ge and g is None:
+            raise InputError(
+                "an interface conductance error was given without an interface conductance; "
+                "accepted: --interface-conductance-err-w-m2k together with "
+                "--interface-conductance-w-m2k"
+            )
+        if not (math.isfinite(ge) and ge >= 0):
+            raise InputError(
+                f"interface conductance error {ge!r} W/m^2/K is not usable; a standard "
+                "deviation >= 0 is accepted"
             )
         if g is not None and not (math.isfinite(g) and g > 0):
             raise InputError(
@@ -482,11 +501,15 @@ def kappa_inputs(
     na_abs = float(na or 0.0)
     depth = None if ohole is None or ohole.bottom == "open" else ohole.depth_nm
     depth_err = options.hole_depth_err_nm
+    pattern = sample.hole_pattern
+    if depth is not None and depth_err is None and pattern is not None:
+        if pattern.depth_err_nm is not None and pattern.depth_nm == depth:
+            depth_err = float(pattern.depth_err_nm)
     if depth is not None and depth_err is None:
         depth_err = 0.05 * depth
         warnings.append(
             f"the hole depth's error is not recorded; taken as 5% of {depth:g} nm "
-            "(give --hole-depth-err-nm)"
+            "(record it with the sample's hole pattern, or give --hole-depth-err-nm)"
         )
     a0 = absorptance(material, int(n_central), laser, substrate, geometry="suspended",
                      hole=ohole, na_objective=na_abs)  # fmt: skip
@@ -512,6 +535,12 @@ def kappa_inputs(
             for d in depths
         ]  # fmt: skip
         table = (depths.tolist(), values)
+    fitted = None
+    if options.conductance_from_series:
+        fitted = _fitted_conductance(project, flake, coeff, material, int(n_central), laser,
+                                     substrate, na_abs, a0.absorptance_flake, float(hole.radius_um),
+                                     float(w), float(w_err), options.weighting)  # fmt: skip
+        warnings.append(fitted["note"])
     spectra_ids = [
         p["spectrum_id"] for s in coeff.details.get("series", {}).values() for p in s["points"]
     ]
@@ -549,6 +578,7 @@ def kappa_inputs(
         "powers_mw": powers,
         "max_power_mw": max(powers) if powers else None,
         "options": asdict(options),
+        "fitted_conductance": fitted,
         "warnings": warnings,
         "absorptance_method": a0.provenance.get("method", ""),
         "records": {
@@ -559,6 +589,40 @@ def kappa_inputs(
             "sample": sample,
             "spectra": spectra_ids,
         },
+    }
+
+
+def _fitted_conductance(project, flake, coeff, material, n, laser, substrate, na, a_flake,
+                        r_um, w_um, w_err, weighting) -> dict:  # fmt: skip
+    """g from the flake's supported-part power series (see flakebook/thermal/conductance.py)."""
+    from flakebook.optics.absorptance import absorptance, absorptance_spread
+    from flakebook.thermal.conductance import conductance_from_series
+
+    sup = coeff.details.get("supported")
+    if not sup:
+        raise InputError(
+            f"flake {flake.label} has no supported-part power series to fit g from; import one "
+            "with `flakebook series import --kind supported-power`, or give the conductance"
+        )
+    a_sup = absorptance(material, n, laser, substrate, geometry="supported", na_objective=na)
+    a_sup_err = 0.0
+    if na > 0:
+        a_sup_err = absorptance_spread(material, n, laser, substrate, geometry="supported",
+                                       na_objective=na, na_objective_err=0.05, draws=300,
+                                       rng=np.random.default_rng(0)).std  # fmt: skip
+    fit = conductance_from_series(
+        coeff.chi_t_cm1_per_k, coeff.chi_p_cm1_per_mw, a_flake, sup["chi_p_cm1_per_mw"],
+        a_sup.absorptance_flake, n * material.layer_spacing_nm, r_um, w_um,
+        chi_t_err_cm1_per_k=coeff.chi_t_err_cm1_per_k or 0.0,
+        chi_p_supported_err_cm1_per_mw=sup["chi_p_err_cm1_per_mw"] or 0.0,
+        absorptance_supported_err=a_sup_err, beam_radius_err_um=w_err, weighting=weighting,
+    )  # fmt: skip
+    return {
+        "conductance_w_m2k": fit.conductance_w_m2k,
+        "conductance_err_w_m2k": fit.conductance_err_w_m2k,
+        "absorptance_supported": a_sup.absorptance_flake,
+        "absorptance_supported_err": a_sup_err,
+        "note": fit.note,
     }
 
 
@@ -574,6 +638,14 @@ def run_kappa(
     from flakebook.thermal.uncertainty import kappa_with_uncertainty
 
     opts = ModelOptions(**inputs["options"])
+    fitted = inputs.get("fitted_conductance")
+    if opts.conductance_from_series and fitted:
+        opts = replace(
+            opts,
+            conductance_from_series=False,
+            interface_conductance_w_m2k=fitted["conductance_w_m2k"],
+            interface_conductance_err_w_m2k=fitted["conductance_err_w_m2k"],
+        )
     model = opts.heat_model(inputs["powers_mw"] or None)
     table = inputs.get("absorptance_table")
     a = (np.asarray(table[0]), np.asarray(table[1])) if table else inputs["absorptance"]
@@ -595,6 +667,7 @@ def run_kappa(
         beam_radius_err_um=inputs["beam_radius_err_um"],
         hole_depth_nm=inputs["hole_depth_nm"] if table else None,
         hole_depth_err_nm=inputs["hole_depth_err_nm"] if table else 0.0,
+        interface_conductance_err_w_m2k=float(opts.interface_conductance_err_w_m2k or 0.0),
         model=model,
         draws=int(opts.draws),
         seed=seed,

@@ -30,7 +30,7 @@ from flakebook.cli.optics import (
     add_hole_options,
 )
 from flakebook.errors import Cancelled, InputError
-from flakebook.wording import layers_text
+from flakebook.wording import count_text, layers_text
 
 IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".tif", ".tiff", ".bmp")
 
@@ -423,7 +423,9 @@ def _cmd_survey(args) -> int:
         try:
             return _survey(args, opts, sink)
         finally:
-            _common.message(f"flakebook: {sink.stored} image(s) stored in {args.project}")
+            _common.message(
+                f"flakebook: {count_text(sink.stored, 'image')} stored in {args.project}"
+            )
             sink.close()
     return _survey(args, opts, None)
 

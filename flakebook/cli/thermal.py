@@ -29,7 +29,12 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
         "--interface-conductance-err-w-m2k",
         type=float,
         default=0.0,
-        help="its s.d., W/m^2/K: not yet drawn in the Monte Carlo, so a value other than 0 is refused",
+        help="its s.d., W/m^2/K (drawn log-normal in the Monte Carlo)",
+    )
+    p.add_argument(
+        "--interface-conductance-from-series",
+        action="store_true",
+        help="with --project: fit g from the flake's supported-power series (and draw its error)",
     )
     p.add_argument(
         "--kappa-alpha",
@@ -155,8 +160,9 @@ def register(sub: argparse._SubParsersAction) -> None:
     i.add_argument(
         "--kind",
         required=True,
-        choices=("temperature", "power"),
-        help="a stage-temperature series or a laser-power series",
+        choices=("temperature", "power", "supported-power"),
+        help="a stage-temperature series, a laser-power series on the membrane, or a "
+        "laser-power series with the beam on the supported part of the same flake (to fit g)",
     )
     i.add_argument(
         "source",
@@ -180,6 +186,7 @@ def _options(args):
         weighting=args.weighting,
         interface_conductance_w_m2k=args.interface_conductance_w_m2k,
         interface_conductance_err_w_m2k=args.interface_conductance_err_w_m2k,
+        conductance_from_series=args.interface_conductance_from_series,
         kappa_alpha=args.kappa_alpha,
         beam_offset_um=args.beam_offset_um,
         draws=args.draws,
@@ -220,6 +227,11 @@ def _kappa(args) -> int:
             )
         _emit(args, result)
         return 0
+    if options.conductance_from_series:
+        raise InputError(
+            "--interface-conductance-from-series reads the flake's stored supported-power "
+            "series; accepted with --project P --flake ID (or give --interface-conductance-w-m2k)"
+        )
     missing = [
         f"--{n.replace('_', '-')}"
         for n in ("material", "layers", "chi_t_cm1_per_k", "chi_p_cm1_per_mw", "hole_radius_um",
@@ -252,6 +264,7 @@ def _kappa(args) -> int:
         beam_radius_err_um=args.beam_radius_err_um,
         hole_depth_nm=depth,
         hole_depth_err_nm=depth_err,
+        interface_conductance_err_w_m2k=options.interface_conductance_err_w_m2k,
         model=options.heat_model(),
         draws=options.draws,
         progress=_common.Progress(),

@@ -145,10 +145,19 @@ class SampleForm(QWidget):
         self.angle = _spin(-180, 180, hp.get("angle_deg", 0.0), 1, " °")
         self.depth = _spin(0.0, 1e6, hp.get("depth_nm") or 0.0, 1, " nm", 10)
         self.depth.setSpecialValueText("default (through the top layers)")
-        self.bottom.currentIndexChanged.connect(
-            lambda *_: self.depth.setEnabled(self.bottom.currentData() != "open")
-        )
-        self.depth.setEnabled(self.bottom.currentData() != "open")
+        self.depth_err = _spin(0.0, 1e5, hp.get("depth_err_nm") or 0.0, 1, " nm", 1)
+        self.depth_err.setPrefix("± ")
+        self.depth_err.setSpecialValueText("not measured (5% is assumed in thermometry)")
+        self.depth_err.setToolTip("Standard deviation of the hole depth, e.g. from a profilometer")
+
+        def _depth_fields(*_args) -> None:
+            open_hole = self.bottom.currentData() == "open"
+            self.depth.setEnabled(not open_hole)
+            self.depth_err.setEnabled(not open_hole and self.depth.value() > 0)
+
+        self.bottom.currentIndexChanged.connect(_depth_fields)
+        self.depth.valueChanged.connect(_depth_fields)
+        _depth_fields()
         hl = QFormLayout(self.holes)
         hl.addRow("Bottom", self.bottom)
         hl.addRow("Diameter", self.diameter)
@@ -156,6 +165,7 @@ class SampleForm(QWidget):
         hl.addRow("Lattice", self.lattice)
         hl.addRow("Angle", self.angle)
         hl.addRow("Depth", self.depth)
+        hl.addRow("Depth error", self.depth_err)
         self.notes = QLineEdit(v.get("notes", ""))
         form = QFormLayout(self)
         form.addRow("Sample name", self.name)
@@ -214,6 +224,8 @@ class SampleForm(QWidget):
                 if self.bottom.currentData() != "open"
                 else None,
             }
+            if pattern["depth_nm"] is not None and self.depth_err.value() > 0:
+                pattern["depth_err_nm"] = self.depth_err.value()
             if pattern["pitch_um"] is not None and pattern["pitch_um"] <= pattern["diameter_um"]:
                 raise InputError(
                     f"Hole pitch {pattern['pitch_um']:g} µm is not larger than the diameter "

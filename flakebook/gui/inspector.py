@@ -428,19 +428,32 @@ class Inspector(QScrollArea):
         # Contrast, Raman, PL, Si attenuation and AFM side by side: what each says alone, a
         # conflict mark, and the combined probability (flakebook.evidence.combine_report).
         lines = []
+        sources_seen: list[str] = []
         for ev in flake.get("evidence") or []:
-            src = f" <i>({ev['source']})</i>" if ev.get("source") else ""
+            src = ""
+            if ev.get("source"):
+                # a long source (the contrast model's n,k data) once, then by reference
+                if ev["source"] in sources_seen:
+                    src = " <i>(source as above)</i>"
+                else:
+                    sources_seen.append(ev["source"])
+                    src = f" <i>({ev['source']})</i>"
             stale = " <span style='color:#B05A00'>[stale]</span>" if ev.get("stale") else ""
             says = ""
             if ev.get("layers") is not None:
-                says = f" → {ev['layers']}L, P = {ev['probability']:.2f}"
+                weak = " (weak)" if (ev.get("probability") or 0) < 0.5 else ""
+                says = (
+                    f" → alone most like {palette.layer_label(ev['layers'])}, "
+                    f"{p_text(ev['probability'])}{weak}"
+                )
             mark = " <b style='color:#C0392B'>⚠ conflict</b>" if ev.get("conflict") else ""
             name = ev.get("name") or ev.get("method", "?")
             lines.append(f"• <b>{name}</b>{says}{mark}: {ev.get('reason') or ''}{src}{stale}")
         combined = flake.get("combined")
         if combined and lines:
             lines.append(
-                f"<b>Combined: {combined['layers']}L, P = {combined['probability']:.2f}</b>"
+                f"<b>Combined: {palette.layer_label(combined['layers'])}, "
+                f"{p_text(combined['probability'])}</b>"
             )
             for text in combined.get("conflicts") or []:
                 lines.append(f"<span style='color:#C0392B'>⚠ {text}</span>")

@@ -43,7 +43,13 @@ from flakebook.spectra.layer_evidence import (
     raman_evidence,
     raman_offset_grid,
 )
-from flakebook.spectra.peaks import PEAK_MODELS, PeakFit, PeakSpec, fit_peaks
+from flakebook.spectra.peaks import (
+    PEAK_MODELS,
+    PeakFit,
+    PeakSpec,
+    fit_peaks,
+    shot_noise_variance,
+)
 from flakebook.spectra.processing import (
     BASELINE_METHODS,
     SI_LINE_CM1,
@@ -345,21 +351,29 @@ def analyse_spectrum(
         raise InputError(
             f"the rule table is for {table.material}, the spectrum's material is {material}"
         )
+    variance = shot_noise_variance(spectrum.y)  # raw counts: their own shot noise
     if kind == "raman":
         x = raman_axis(spectrum.x, spectrum.x_unit, laser_nm)
         y = np.asarray(spectrum.y, dtype=float)
         x_unit = "cm1"
     else:
         x, y = pl_axis(spectrum.x, spectrum.y, spectrum.x_unit, laser_nm)
+        if variance is not None:  # the Jacobian scales the noise with the intensity
+            _, jac = pl_axis(spectrum.x, np.ones(np.shape(spectrum.y)), spectrum.x_unit, laser_nm)
+            variance = variance * np.asarray(jac, dtype=float) ** 2
         x_unit = "ev"
     order = np.argsort(x, kind="stable")
     x, y = np.array(x[order]), np.array(y[order])
+    if variance is not None:
+        variance = np.asarray(variance, dtype=float)[order]
     if x.size < 8:
         raise InputError(f"a spectrum of {x.size} points is too short to fit; accepted: 8 or more")
     spikes = remove_spikes(y)
     y = np.array(spikes.y, dtype=float)
     if spikes.n_spikes:
-        warnings.append(f"{spikes.n_spikes} cosmic-ray spike(s) replaced")
+        warnings.append(
+            f"{spikes.n_spikes} cosmic-ray {'spike' if spikes.n_spikes == 1 else 'spikes'} replaced"
+        )
     cal = None
     calibration_err = DEFAULT_CALIBRATION_ERR_CM1
     if kind == "raman":
@@ -398,7 +412,9 @@ def analyse_spectrum(
                 f"{x.min():.0f}-{x.max():.0f} cm^-1: no layer evidence"
             )
         else:
-            fit = fit_peaks(x, corrected, specs, model=peak_model, baseline="linear")
+            fit = fit_peaks(
+                x, corrected, specs, model=peak_model, baseline="linear", variance=variance
+            )
             warnings.extend(fit.warnings)
             usable = []
             for p in fit.peaks:
@@ -440,7 +456,9 @@ def analyse_spectrum(
                 f"of {material}: no layer evidence"
             )
         else:
-            fit = fit_peaks(x, corrected, [spec], model=peak_model, baseline="linear")
+            fit = fit_peaks(
+                x, corrected, [spec], model=peak_model, baseline="linear", variance=variance
+            )
             warnings.extend(fit.warnings)
             p = fit.peaks[0]
             if p.found:

@@ -120,7 +120,10 @@ def analyse_map(
         if progress is not None:
             progress(0.8 + 0.2 * (r + 1) / rows, "layer number per spectrum")
     if skipped:
-        warnings.append(f"{skipped} spectrum(s) of the map fit no layer number of the table")
+        warnings.append(
+            f"{skipped} {'spectrum' if skipped == 1 else 'spectra'} of the map fit no layer "
+            "number of the table"
+        )
     maps["layers"] = layers
     maps["probability"] = prob
     for v in maps.values():

@@ -14,7 +14,9 @@ noise is the caller's ``noise_sd`` if given, else the s.d. of the data in a quie
 
 Uncertainties are lmfit's (the covariance of the least-squares fit); when the noise is not
 given by the caller it is estimated from the data and the covariance is scaled by the reduced
-chi-square (lmfit's ``scale_covar``). Centres, widths and areas are in the units of the x axis
+chi-square (lmfit's ``scale_covar``). Noise that grows with the signal (the shot noise of
+detector counts) is found from the residuals and the fit repeated with weights, so a strong
+line's centre error is not set by the quieter baseline. Centres, widths and areas are in the units of the x axis
 given (cm^-1 for Raman shift).
 """
 
@@ -36,6 +38,7 @@ __all__ = [
     "PeakFit",
     "fit_regions",
     "fit_peaks",
+    "shot_noise_variance",
 ]
 
 PEAK_MODELS = ("lorentzian", "gaussian", "voigt", "pseudo-voigt")
@@ -215,7 +218,7 @@ def _quiet_noise(x, y, region) -> float:
     return float(np.std(y[sel] - np.polyval(coef, x[sel]), ddof=2))
 
 
-def _fit_group(x, y, items, model, baseline, noise_sd):
+def _fit_group(x, y, items, model, baseline, noise_sd, variance=None):
     """Fit items [(index, spec, doublet?)] jointly; return (lmfit result, [(index, comp, prefix, kind)])."""
     from lmfit import Parameters
 
@@ -291,9 +294,54 @@ def _fit_group(x, y, items, model, baseline, noise_sd):
             parts.append((index, comp, pre, kind))
     if noise_sd is not None:
         result = total.fit(y, params, x=x, weights=np.full(n, 1.0 / noise_sd), scale_covar=False)
+    elif variance is not None:
+        result = total.fit(y, params, x=x, weights=1.0 / np.sqrt(variance))
     else:
         result = total.fit(y, params, x=x)
+        for _ in range(2):  # noise that grows with the signal: refit weighted (twice)
+            sd = _noise_model(y - result.best_fit, result.best_fit)
+            if sd is None:
+                break
+            result = total.fit(y, result.params, x=x, weights=1.0 / sd)
     return result, parts
+
+
+def shot_noise_variance(counts) -> np.ndarray | None:
+    """The shot-noise variance of raw detector counts (the counts, at least 1), or None when
+    the data are not counts (see :func:`flakebook.spectra.processing.is_counts`)."""
+    from flakebook.spectra.processing import is_counts
+
+    c = np.asarray(counts, dtype=float)
+    return np.maximum(c, 1.0) if is_counts(c) else None
+
+
+def _noise_model(resid: np.ndarray, model: np.ndarray) -> np.ndarray | None:
+    """The noise s.d. per point when it grows with the signal, else None.
+
+    Detector counts carry shot noise, variance ~ a + b * signal; fitted unweighted, the noise
+    of the baseline sets the covariance and a strong line's centre error comes out several
+    times too small. The variance model is fitted to the squared residuals of the unweighted
+    fit (least squares on (1, signal)); None when b is not significant (three standard errors)
+    or the variance less than doubles over the signal's range, so homoscedastic noise keeps the
+    plain fit (iteratively reweighted least
+    squares with a variance function: common practice, no source)."""
+    n = resid.size
+    if n < 20:
+        return None
+    m = model - float(np.min(model))
+    r2 = resid**2
+    design = np.column_stack([np.ones(n), m])
+    coef, *_ = np.linalg.lstsq(design, r2, rcond=None)
+    a, b = (float(c) for c in coef)
+    if not (b > 0 and np.isfinite(b)):
+        return None
+    dof = max(n - 2, 1)
+    s2 = float(np.sum((r2 - design @ coef) ** 2)) / dof
+    cov = s2 * np.linalg.pinv(design.T @ design)
+    if b < 3.0 * math.sqrt(max(cov[1, 1], 0.0)) or b * float(np.max(m)) < max(a, 0.0):
+        return None  # not significant, or the variance less than doubles over the signal
+    floor = max(a, 1e-3 * float(np.mean(r2)), np.finfo(float).tiny)
+    return np.sqrt(floor + b * m)
 
 
 def fit_peaks(
@@ -307,6 +355,7 @@ def fit_peaks(
     noise_sd: float | None = None,
     noise_region: tuple[float, float] | None = None,
     margin_fwhm: float = 3.0,
+    variance=None,
 ) -> PeakFit:
     """Fit the lines ``specs`` (PeakSpec list) in spectrum ``y`` on axis ``x`` (ascending).
 
@@ -316,6 +365,9 @@ def fit_peaks(
     subtracted first, leaving no baseline terms in the fit. ``snr_threshold``: lines below it
     are reported not found. ``noise_sd``: the known noise standard deviation (then the
     covariance is not rescaled); ``noise_region``: a quiet (lo, hi) range to measure it in.
+    ``variance``: the relative noise variance of each point where it is known in form (for raw
+    detector counts the counts themselves, :func:`shot_noise_variance`): the fit is weighted by
+    it and its covariance scaled by the reduced chi-square.
     """
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
@@ -346,6 +398,13 @@ def fit_peaks(
         base_kind, work = "none", y - arr
     if noise_sd is not None and not noise_sd > 0:
         raise InputError(f"noise_sd = {noise_sd!r}; accepted: a positive number or None")
+    if variance is not None:
+        variance = np.asarray(variance, dtype=float)
+        if variance.shape != y.shape or not np.all(np.isfinite(variance) & (variance > 0)):
+            raise InputError(
+                f"variance of shape {variance.shape} with values <= 0 or not finite; accepted: "
+                "one positive variance per point"
+            )
     quiet = _quiet_noise(x, work, noise_region) if noise_region is not None else None
     noise_source = "given" if noise_sd is not None else "quiet region" if quiet else "residual"
     n_base = {"linear": 2, "constant": 1, "quadratic": 3, "none": 0}[base_kind]
@@ -374,7 +433,8 @@ def fit_peaks(
                     f"{lo:g}-{hi:g}; accepted: spectra covering the peaks with at least "
                     f"{n_par + 3} points"
                 )
-            res, parts = _fit_group(xs, ys, items, model, base_kind, noise_sd)
+            var_s = None if variance is None else variance[sel]
+            res, parts = _fit_group(xs, ys, items, model, base_kind, noise_sd, var_s)
             resid_sd = float(np.sqrt(np.sum((ys - res.best_fit) ** 2) / max(res.nfree, 1)))
             noise = noise_sd if noise_sd is not None else quiet if quiet else resid_sd
             weak = set()

@@ -8,6 +8,10 @@
   (z > threshold / 3): the (+1, -2, +1) signature of a narrow spike. The
   top of a Raman peak sampled by five or more points per FWHM has a negative second difference
   over a wider run with small ones at its edges, so it is not taken for a spike however strong.
+  Raw detector counts (non-negative whole numbers) carry shot noise that grows with the
+  signal, which on the top of a strong line would read as spikes against the baseline's noise:
+  their second differences are taken of the Anscombe transform 2 sqrt(y + 3/8) (F. J.
+  Anscombe, Biometrika 35, 246 (1948)), whose noise is about 1 everywhere.
   Spike points are replaced by linear interpolation between their unflagged neighbours. Not
   seen: a spike in the first or last point, and a spike on the top of a strong peak (whose
   own negative curvature hides the spike's signature).
@@ -66,6 +70,16 @@ def _modified_z(d: np.ndarray) -> np.ndarray:
     return 0.6745 * (d - med) / mad
 
 
+def is_counts(y: np.ndarray) -> bool:
+    """True for raw detector counts: non-negative whole numbers reaching above 20, whose noise
+    is the Poisson shot noise (variance = counts)."""
+    y = np.asarray(y, dtype=float)
+    return bool(
+        y.size and np.all(np.isfinite(y)) and y.min() >= 0 and y.max() > 20
+        and np.all(y == np.round(y))
+    )  # fmt: skip
+
+
 def remove_spikes(y, *, threshold: float = 6.0, max_width: int = 3) -> SpikeResult:
     """Find and replace cosmic-ray spikes in one spectrum ``y`` (1-D; see module docstring).
 
@@ -79,8 +93,11 @@ def remove_spikes(y, *, threshold: float = 6.0, max_width: int = 3) -> SpikeResu
             f"remove_spikes: got an array of shape {y.shape}; accepted: one spectrum of at "
             "least 5 points"
         )
+    v = y
+    if is_counts(y):  # shot noise: the same noise everywhere after the Anscombe transform
+        v = 2.0 * np.sqrt(y + 0.375)
     d = np.zeros_like(y)
-    d[1:-1] = y[:-2] - 2 * y[1:-1] + y[2:]
+    d[1:-1] = v[:-2] - 2 * v[1:-1] + v[2:]
     z = _modified_z(d[1:-1])
     zfull = np.zeros_like(y)
     zfull[1:-1] = z

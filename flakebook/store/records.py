@@ -34,7 +34,7 @@ SPECTRUM_KINDS = ("raman", "pl", "reflectance")
 HOLE_BOTTOMS = ("si", "au", "open")
 LATTICES = ("square", "hexagonal")
 HOLE_SOURCES = ("manual", "detected", "lattice")
-SERIES_KINDS = ("temperature", "power")
+SERIES_KINDS = ("temperature", "power", "supported-power")
 
 
 def layer_spacing_nm(material: str) -> float | None:
@@ -141,7 +141,8 @@ def polygon_area(points: np.ndarray | None) -> float | None:
 
 @dataclass(frozen=True, kw_only=True)
 class HolePattern:
-    """A sample's hole array: bottom si|au|open, depth, diameter, lattice, pitch and angle."""
+    """A sample's hole array: bottom si|au|open, depth (and its s.d.), diameter, lattice, pitch
+    and angle."""
 
     bottom: str
     diameter_um: float
@@ -149,6 +150,7 @@ class HolePattern:
     lattice: str = "square"
     angle_deg: float = 0.0
     depth_nm: float | None = None
+    depth_err_nm: float | None = None
 
     def __post_init__(self):
         _choice(self, "bottom", HOLE_BOTTOMS)
@@ -157,8 +159,14 @@ class HolePattern:
         _number(self, "pitch_um", positive=True, unit=" um")
         _number(self, "angle_deg", optional=False)
         _number(self, "depth_nm", positive=True, unit=" nm")
+        _number(self, "depth_err_nm", positive=True, unit=" nm")
         if self.bottom == "open" and self.depth_nm is not None:
             raise InputError("a through-hole (bottom 'open') has no depth; leave depth_nm empty")
+        if self.depth_err_nm is not None and self.depth_nm is None:
+            raise InputError(
+                "a hole depth error was given without the depth; accepted: depth_err_nm "
+                "together with depth_nm"
+            )
 
     def to_dict(self) -> dict:
         """The JSON form."""

@@ -23,10 +23,15 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import special
 
 from flakebook.errors import InputError
 
-KINDS = {"temperature": ("stage temperature", "K"), "power": ("power at the sample", "mW")}
+KINDS = {
+    "temperature": ("stage temperature", "K"),
+    "power": ("power at the sample", "mW"),
+    "supported-power": ("power at the sample, beam on the supported part", "mW"),
+}
 
 
 @dataclass(frozen=True)
@@ -120,11 +125,13 @@ def fit_series(
     red = chi2 / dof if dof > 0 else float("nan")
     scaled = bool(dof > 0 and red > 1)
     if scaled:
-        cov = cov * red
-        warnings.append(
-            f"the {kind} series scatters more than its centre errors (reduced chi-square "
-            f"{red:.2f}); the slope error is scaled by sqrt({red:.2f})"
-        )
+        cov = cov * red  # the slope error never below what the scatter says (Birge ratio)
+        p_value = float(special.chdtrc(dof, chi2))
+        if p_value < 0.05:  # said only where the scatter is beyond chance
+            warnings.append(
+                f"the {kind} series scatters more than its centre errors (reduced chi-square "
+                f"{red:.2f}, p = {p_value:.2g}); the slope error is scaled by sqrt({red:.2f})"
+            )
     slope = float(coef[1])
     slope_var = float(cov[1, 1])
     # back to the intercept at x = 0
@@ -179,7 +186,7 @@ def _hysteresis(x, y, s, order, kind: str, unit: str) -> list[str]:
     if worst is None:
         return []
     z, xv, dy = worst
-    what = "power" if kind == "power" else "temperature"
+    what = "temperature" if kind == "temperature" else "power"
     return [
         f"the mode does not come back when the {what} steps down: at {xv:.4g} {unit} it differs "
         f"by {dy:+.3g} cm^-1 ({z:.1f} combined sigma) between the way up and the way down "

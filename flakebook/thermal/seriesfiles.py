@@ -14,7 +14,11 @@ from pathlib import Path
 
 from flakebook.errors import InputError
 
-VALUE_COLUMN = {"temperature": "stage_temperature_k", "power": "power_mw"}
+VALUE_COLUMN = {
+    "temperature": "stage_temperature_k",
+    "power": "power_mw",
+    "supported-power": "power_mw",
+}
 _SPECTRUM_SUFFIXES = (".csv", ".txt", ".dat", ".tsv", ".dx", ".jdx", ".asc")
 
 

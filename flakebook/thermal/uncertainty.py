@@ -18,7 +18,7 @@ from __future__ import annotations
 import math
 import threading
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy import interpolate, special
@@ -115,7 +115,7 @@ def _layer_probabilities(
             "has no thickness; give the layer number (more than 5% there is not accepted)"
         )
     warns = []
-    if more > 0:
+    if more >= 1e-3:  # below 0.1% the bin changes nothing worth a word
         warns.append(
             f"the layer posterior's >{post.size - 1}L bin ({more:.1%}) has no "
             "thickness; it was dropped and the rest renormalised"
@@ -156,6 +156,17 @@ def _draw(rng: np.random.Generator, mean: float, err: float, n: int, vary: bool)
     if not vary or err == 0:
         return np.full(n, float(mean))
     return rng.normal(mean, err, n)
+
+
+def _draw_lognormal(
+    rng: np.random.Generator, mean: float, err: float, n: int, vary: bool
+) -> np.ndarray:
+    """A positive quantity (the interface conductance) given as mean +/- s.d.: log-normal draws
+    with that mean and s.d., so no draw is negative (common practice, no source)."""
+    if not vary or err == 0:
+        return np.full(n, float(mean))
+    s2 = math.log1p((err / mean) ** 2)
+    return rng.lognormal(math.log(mean) - 0.5 * s2, math.sqrt(s2), n)
 
 
 # ---- vectorised kappa ------------------------------------------------------------------------
@@ -250,11 +261,11 @@ def _kappa_offset(chi_t, chi_p, a, t_nm, r_um, w_um, model: HeatModel, cancel) -
     return g / (2 * np.pi * t_nm * 1e-9 * r_meas)
 
 
-def _kappa_supported(chi_t, chi_p, a, t_nm, r_um, w_um, model: HeatModel, cancel) -> np.ndarray:
-    """Supported annulus with conductance g: 2 pi kappa t R_m = F(R/W, beta), beta = g W^2 /
-    (kappa t), tabulated over the draws' range; beta F(beta) = 2 pi g W^2 R_meas is solved for
-    beta by bisection on the interpolant (it rises monotonically with beta)."""
-    g = float(model.interface_conductance_w_m2k)
+def _kappa_supported(chi_t, chi_p, a, t_nm, r_um, w_um, g, model: HeatModel, cancel) -> np.ndarray:
+    """Supported annulus with conductance g (one per draw): 2 pi kappa t R_m = F(R/W, beta),
+    beta = g W^2 / (kappa t), tabulated over the draws' range; beta F(beta) = 2 pi g W^2 R_meas
+    is solved for beta by bisection on the interpolant (it rises monotonically with beta)."""
+    g = np.asarray(g, dtype=float)
     rho = r_um / w_um
     w_m, t_m = w_um * 1e-6, t_nm * 1e-9
     r_meas = chi_p * 1e3 / (a * chi_t)
@@ -293,7 +304,10 @@ def _kappa_supported(chi_t, chi_p, a, t_nm, r_um, w_um, model: HeatModel, cancel
 
 def _kappa_draws(inputs: dict, model: HeatModel, cancel, progress, frac0, frac1) -> np.ndarray:
     chi_t, chi_p, a, t, r, w = (inputs[k] for k in ("chi_t", "chi_p", "a", "t", "r", "w"))
+    g = inputs.get("g")
     ok = (a > 0) & (a < 1) & (w > 0) & (r > w) & (chi_t * chi_p > 0) & np.isfinite(a)
+    if g is not None:
+        ok &= np.isfinite(g) & (g > 0)
     out = np.full(chi_t.size, np.nan)
     if not np.any(ok):
         return out
@@ -308,7 +322,9 @@ def _kappa_draws(inputs: dict, model: HeatModel, cancel, progress, frac0, frac1)
         ok &= abs(model.beam_offset_um) < r
         out[ok] = _kappa_offset(chi_t[ok], chi_p[ok], a[ok], t[ok], r[ok], w[ok], model, cancel)
     elif linear and model.beam_offset_um == 0 and model.supported_outer_radius_um is None:
-        out[ok] = _kappa_supported(chi_t[ok], chi_p[ok], a[ok], t[ok], r[ok], w[ok], model, cancel)
+        out[ok] = _kappa_supported(
+            chi_t[ok], chi_p[ok], a[ok], t[ok], r[ok], w[ok], g[ok], model, cancel
+        )
     else:
         idx = np.flatnonzero(ok)
         for j, i in enumerate(idx):
@@ -316,10 +332,9 @@ def _kappa_draws(inputs: dict, model: HeatModel, cancel, progress, frac0, frac1)
                 check_cancel(cancel)
                 if progress is not None:
                     progress(frac0 + (frac1 - frac0) * j / idx.size, "Monte Carlo draws")
+            m = model if g is None else replace(model, interface_conductance_w_m2k=float(g[i]))
             try:
-                out[i] = _inv.invert_kappa(
-                    chi_t[i], chi_p[i], a[i], t[i], r[i], w[i], model
-                ).kappa_w_mk
+                out[i] = _inv.invert_kappa(chi_t[i], chi_p[i], a[i], t[i], r[i], w[i], m).kappa_w_mk
             except InputError:
                 pass
     return out
@@ -346,6 +361,7 @@ def kappa_with_uncertainty(
     beam_radius_err_um: float = 0.0,
     hole_depth_nm: float | None = None,
     hole_depth_err_nm: float = 0.0,
+    interface_conductance_err_w_m2k: float = 0.0,
     model: HeatModel = HeatModel(),  # noqa: B008 (frozen)
     draws: int = 10_000,
     seed: int | None = 0,
@@ -385,6 +401,7 @@ def kappa_with_uncertainty(
         "hole radius error": hole_radius_err_um,
         "beam radius error": beam_radius_err_um,
         "hole depth error": hole_depth_err_nm,
+        "interface conductance error": interface_conductance_err_w_m2k,
     }
     for name, v in errs.items():
         if not (np.isfinite(v) and v >= 0):
@@ -393,6 +410,12 @@ def kappa_with_uncertainty(
         raise InputError(
             f"chi correlation {chi_correlation!r} is outside (-1, 1); a correlation coefficient "
             "strictly between -1 and 1 is accepted"
+        )
+    g0 = model.interface_conductance_w_m2k
+    if interface_conductance_err_w_m2k > 0 and g0 is None:
+        raise InputError(
+            "an interface conductance error was given without an interface conductance; "
+            "accepted: the error together with the conductance of the supported region"
         )
     warnings: list[str] = list(extra_warnings)
     p_layers, layer_warns = _layer_probabilities(layers, layer_posterior)
@@ -437,6 +460,8 @@ def kappa_with_uncertainty(
         groups["chi_p"] = {"chi_p"}
     for key in ("absorptance", "hole_radius", "beam_radius", "hole_depth", "layers"):
         groups[key] = {key}
+    if g0 is not None:  # its own key only where the model has a supported region
+        groups["interface_conductance"] = {"interface_conductance"}
     spread = {
         "chi_t": chi_t_err_cm1_per_k > 0,
         "chi_p": chi_p_err_cm1_per_mw > 0,
@@ -444,6 +469,7 @@ def kappa_with_uncertainty(
         "hole_radius": hole_radius_err_um > 0,
         "beam_radius": beam_radius_err_um > 0,
         "hole_depth": a_fn is not None and hole_depth_err_nm > 0,
+        "interface_conductance": interface_conductance_err_w_m2k > 0,
         "layers": np.count_nonzero(p_layers) > 1,
     }
     rng = np.random.default_rng(seed)
@@ -475,7 +501,11 @@ def kappa_with_uncertainty(
             nl = rng.choice(np.arange(1, p_layers.size + 1), size=n, p=p_layers)
         else:
             nl = np.full(n, n_central)
-        return {"chi_t": chi_t, "chi_p": chi_p, "a": a, "t": nl * layer_spacing_nm, "r": r, "w": w}
+        out = {"chi_t": chi_t, "chi_p": chi_p, "a": a, "t": nl * layer_spacing_nm, "r": r, "w": w}
+        if g0 is not None:
+            out["g"] = _draw_lognormal(rng, g0, interface_conductance_err_w_m2k, n,
+                                       v["interface_conductance"])  # fmt: skip
+        return out
 
     varying = [g for g, members in groups.items() if any(spread[m] for m in members)]
     k0 = central.kappa_w_mk

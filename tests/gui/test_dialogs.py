@@ -173,3 +173,18 @@ def test_new_project_offers_usual_stacks_and_a_tmd(qtbot):
     other = SampleForm({"name": "x", "material": "WS2", "substrate": "SiO2:90,Si"})
     qtbot.addWidget(other)
     assert other.stack.currentData() == "oxide" and other.oxide.value() == 90
+
+
+def test_sample_form_keeps_the_hole_depth_error(qtbot):
+    """The hole depth's measured error is entered with the pattern and comes back when the
+    form is opened again; with no depth there is no error to enter."""
+    from flakebook.gui.dialogs import SampleForm
+
+    hp = {"bottom": "au", "diameter_um": 5.0, "depth_nm": 250.0, "depth_err_nm": 4.0}
+    form = SampleForm({"name": "Z1", "material": "MoSe2", "hole_pattern": hp})
+    qtbot.addWidget(form)
+    assert form.depth_err.value() == 4.0 and form.depth_err.isEnabled()
+    assert form.values()["hole_pattern"]["depth_err_nm"] == 4.0
+    form.depth.setValue(0.0)
+    assert not form.depth_err.isEnabled()
+    assert "depth_err_nm" not in form.values()["hole_pattern"]

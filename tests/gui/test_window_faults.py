@@ -303,6 +303,16 @@ def test_window_words_are_for_people(qtbot, window):
     text = ins.evidence.text()
     assert "flakebook." not in text and "Hsu et al. 2019" in text
     assert not re.search(r"\d\.\d{6,}|\de-\d", text), text
+    # probabilities as everywhere else ("P > 0.99", never "P = 1.00"); a long source once
+    src = "thin-film model with the n,k data of MoSe2: Hsu et al. 2019"
+    ev = {"name": "contrast", "layers": 3, "probability": 0.9996, "reason": "r 0.47", "source": src}
+    weak = {**ev, "probability": 0.09, "name": "Raman: A1g position", "source": "lit. table"}
+    ins._show_evidence({"evidence": [ev, {**ev, "reason": "over a hole"}, weak],
+                        "combined": {"layers": 3, "probability": 0.99996}})  # fmt: skip
+    shown = ins.evidence.text()
+    assert "P = 1.00" not in shown and "P > 0.99" in shown
+    assert shown.count("Hsu et al. 2019") == 1 and "source as above" in shown
+    assert "P = 0.09 (weak)" in shown and "Combined: 3L, P > 0.99" in shown
     # catalogue headers
     heads = [c[1] for c in COLUMNS]
     assert "P" not in heads and "Or" not in heads and "Probability" in heads

@@ -7,7 +7,7 @@ import pytest
 from scipy.special import voigt_profile
 
 from flakebook.errors import InputError
-from flakebook.spectra.peaks import PeakSpec, fit_peaks
+from flakebook.spectra.peaks import PeakSpec, fit_peaks, shot_noise_variance
 from flakebook.spectra.processing import estimate_baseline, remove_spikes
 
 
@@ -48,6 +48,53 @@ def test_centre_bias_rms_and_coverage_over_400_repeats():
     assert np.all(np.abs(bias) <= 0.02), bias
     assert np.all(rms <= 0.05), rms
     assert np.all(np.abs(coverage - 0.68) <= 0.05), coverage
+
+
+def test_shot_noise_errors_cover_over_400_repeats():
+    """Detector counts: a strong line (3,000 counts on a 60-count background) drawn with Poisson
+    noise (numpy's generator, outside the code), through spike removal, the default baseline and
+    the fit weighted by the counts' own shot noise. Fitted unweighted, the background's noise
+    sets the covariance and the centre error comes out about three times too small (coverage
+    about 0.3). The reported 1-sigma interval must cover the truth in 68 +/- 5 % (a Gaussian's
+    68.27 %; statistics, common practice, no source), and no point of the line is taken for a
+    cosmic-ray spike."""
+    rng = np.random.default_rng(20261202)
+    x = np.arange(200.0, 300.0, 0.375)
+    spec = [PeakSpec("A1g", 241.0, 3.0, 4.2)]
+    hits, flagged = [], 0
+    for _ in range(400):
+        c = 241.0 + rng.uniform(-0.5, 0.5)
+        y = rng.poisson(60.0 + 0.05 * (x - 200) + _lorentz(x, c, 4.2, 3000.0)).astype(float)
+        clean = remove_spikes(y)
+        flagged += clean.n_spikes
+        var = shot_noise_variance(y)
+        assert var is not None
+        corrected = estimate_baseline(x, clean.y).corrected
+        peak = fit_peaks(x, corrected, spec, variance=var).peaks[0]
+        hits.append(abs(peak.center - c) <= peak.center_err)
+    assert abs(np.mean(hits) - 0.68) <= 0.05, np.mean(hits)
+    assert flagged == 0
+
+
+def test_noise_growing_with_the_signal_without_counts_is_reweighted():
+    """Data that are not raw counts (scaled, baseline-subtracted) but whose noise grows with the
+    signal: the fit finds the variance function from its residuals and refits weighted. This
+    is an approximation (the residuals at a line's top are smaller than its noise): the 1-sigma
+    coverage measured 0.60-0.63, against about 0.3 for the plain fit, so the check is that it
+    is well above the plain fit's and not above the nominal 0.68 + 0.05 (statistics, common
+    practice, no source)."""
+    rng = np.random.default_rng(7)
+    x = np.arange(200.0, 300.0, 0.375)
+    spec = [PeakSpec("A1g", 241.0, 3.0, 4.2)]
+    hits = []
+    for _ in range(300):
+        c = 241.0 + rng.uniform(-0.5, 0.5)
+        level = 60.0 + _lorentz(x, c, 4.2, 3000.0)
+        y = 0.37 * (level + rng.normal(0.0, np.sqrt(level)))  # scaled: not whole numbers
+        assert shot_noise_variance(y) is None
+        peak = fit_peaks(x, y, spec).peaks[0]
+        hits.append(abs(peak.center - c) <= peak.center_err)
+    assert 0.5 <= np.mean(hits) <= 0.73, np.mean(hits)
 
 
 def test_lorentzian_heights_widths_areas():

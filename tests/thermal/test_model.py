@@ -229,3 +229,20 @@ def test_supported_annulus_with_kappa_of_t_iterates():
             kappa_alpha=1.0,
             nonlinear="kirchhoff",
         )
+
+
+def test_hole_with_supported_annulus_against_bessel_edge_resistance():
+    """Standard result (fin with lateral loss): beyond the hole the flake on the substrate is
+    a fin of healing length L = sqrt(kappa t / g), whose edge resistance is K0(R/L) /
+    (2 pi kappa t (R/L) K1(R/L)); the Raman-weighted rise over the hole is the edge-at-sink
+    disk's plus that edge rise, so G = G_disk + K0(x)/(x K1(x)), x = R/L. scipy.special k0, k1
+    against the finite-volume solve, from L << W to L ~ R."""
+    kappa, t_nm, r_um, w_um = 30.0, 1.938, 2.5, 0.5
+    g_disk = model.solve_membrane(kappa, t_nm, r_um, w_um).geometry_factor
+    for g in (1e9, 1e7, 1e5, 1e4):
+        x = r_um / (math.sqrt(kappa * t_nm * 1e-9 / g) * 1e6)
+        want = g_disk + special.k0(x) / (x * special.k1(x))
+        got = model.solve_membrane(
+            kappa, t_nm, r_um, w_um, interface_conductance_w_m2k=g
+        ).geometry_factor
+        assert got == pytest.approx(want, rel=1e-3)

@@ -140,17 +140,32 @@ def test_cli_worked_example():
     assert json.loads(run.stdout)["kappa_w_mk"] == pytest.approx(30.1, abs=0.05)
 
 
-def test_interface_conductance_error_is_refused_not_ignored():
-    """The Monte Carlo does not draw the interface conductance: an error given for it is
-    refused with a message, never silently dropped from the interval (common practice, no
-    source)."""
+def test_interface_conductance_error_and_hole_depth_error_reach_the_interval(project):
+    """The interface conductance's error is drawn in the Monte Carlo (its own variance_share
+    key) and the hole depth's error recorded on the sample's hole pattern is used instead of
+    the 5% stand-in; an error without a conductance is refused."""
     from flakebook.errors import InputError
 
-    with pytest.raises(InputError, match="not yet part of the Monte Carlo"):
-        pt.ModelOptions(
-            interface_conductance_w_m2k=1e7, interface_conductance_err_w_m2k=2e6
-        ).heat_model()
-    assert pt.ModelOptions(interface_conductance_w_m2k=1e7).heat_model() is not None
+    with pytest.raises(InputError, match="without an interface conductance"):
+        pt.ModelOptions(interface_conductance_err_w_m2k=2e6).heat_model()
+    p, tmp = project
+    temps = [295.0, 315.0, 335.0, 355.0, 375.0]
+    pt.import_series(p, "Z1-001", "temperature",
+                     _series(tmp / "t", "temperature", temps, lambda v: CHI_T * (v - 295), 1))  # fmt: skip
+    powers = [0.05, 0.1, 0.15, 0.2, 0.1]
+    pt.import_series(p, "Z1-001", "power", _series(tmp / "p", "power", powers,
+                                                   lambda v: CHI_P * v, 2))  # fmt: skip
+    opts = pt.ModelOptions(draws=500, interface_conductance_w_m2k=1e5,
+                           interface_conductance_err_w_m2k=4e4)  # fmt: skip
+    _, rec = pt.flake_kappa(p, "Z1-001", opts)
+    assert rec.details["result"]["variance_share"]["interface_conductance"] > 0
+    assert any("taken as 5%" in w for w in rec.details["result"]["warnings"])
+    s = p.sample_by_name("Z1")
+    p.update(s, hole_pattern={"bottom": "au", "diameter_um": 5.0, "depth_nm": 250.0,
+                                     "depth_err_nm": 4.0})  # fmt: skip
+    _, rec = pt.flake_kappa(p, "Z1-001", pt.ModelOptions(draws=500))
+    assert not any("taken as 5%" in w for w in rec.details["result"]["warnings"])
+    assert rec.details["inputs"]["hole_depth_err_nm"] == 4.0
 
 
 def test_cli_series_import_then_kappa_from_the_project(project):
@@ -192,3 +207,59 @@ def test_cli_series_import_then_kappa_from_the_project(project):
     r_meas = coeff.chi_p_cm1_per_mw * 1e3 / (res["absorptance"] * coeff.chi_t_cm1_per_k)
     g = math.log(2.5 / 0.5) + 0.5772156649015329 / 2
     assert res["kappa_w_mk"] == pytest.approx(g / (2 * math.pi * 3 * 0.646e-9 * r_meas), rel=1e-3)
+
+
+def test_conductance_fitted_from_a_supported_power_series(project):
+    """A power series with the beam on the supported part of the same flake fixes g: series
+    drawn from a true kappa and g (the membrane with its supported annulus, and the flake on
+    the substrate, whose model is checked against the K0 Green's function in test_model), the
+    analysis returns both, with g's spread drawn in the Monte Carlo; without the series it says
+    what is missing, and g given as well is refused."""
+    from flakebook.errors import InputError
+    from flakebook.optics.absorptance import absorptance
+    from flakebook.optics.materials import get_material
+    from flakebook.optics.substrate import parse_substrate
+    from flakebook.thermal import model
+
+    p, tmp = project
+    kappa, g, t_nm, w_um, r_um = 28.0, 2e6, 3 * 0.646, 0.5, 2.5
+    mat = get_material("MoSe2")
+    a_sup = absorptance(mat, 3, 532.0, parse_substrate("SiO2:285,Si"), geometry="supported",
+                        na_objective=0.8).absorptance_flake  # fmt: skip
+    temps = [295.0, 315.0, 335.0, 355.0, 375.0]
+    pt.import_series(p, "Z1-001", "temperature",
+                     _series(tmp / "t", "temperature", temps, lambda v: CHI_T * (v - 295), 1))  # fmt: skip
+    # the membrane's chi_P from the true kappa and g, for its own absorptance
+    geo = model.solve_membrane(kappa, t_nm, r_um, w_um, interface_conductance_w_m2k=g)
+    powers = [0.05, 0.1, 0.15, 0.2, 0.1]
+    with pytest.raises(InputError):
+        pt.ModelOptions(conductance_from_series=True, interface_conductance_w_m2k=1e6).heat_model()
+    _, coeff = pt.import_series(p, "Z1-001", "power", _series(tmp / "p", "power", powers,
+                                lambda v: CHI_P * v, 2))  # fmt: skip
+    with pytest.raises(InputError, match="no supported-part power series"):
+        pt.flake_kappa(p, "Z1-001", pt.ModelOptions(draws=300, conductance_from_series=True))
+    base = pt.kappa_inputs(p, "Z1-001")
+    a_mem = base["absorptance"]
+    chi_t = coeff.chi_t_cm1_per_k
+    chi_p_mem = chi_t * a_mem * geo.geometry_factor / (2 * math.pi * kappa * t_nm * 1e-9) * 1e-3
+    gs = model.supported_geometry_factor(g, kappa, t_nm, w_um)
+    chi_p_sup = chi_t * a_sup * gs / (2 * math.pi * kappa * t_nm * 1e-9) * 1e-3
+    pt.import_series(p, "Z1-001", "power", _series(tmp / "p2", "power", powers,
+                                                   lambda v: chi_p_mem * v, 4))  # fmt: skip
+    pt.import_series(p, "Z1-001", "supported-power", _series(tmp / "s", "power", powers,
+                                                             lambda v: chi_p_sup * v, 5))  # fmt: skip
+    opts = pt.ModelOptions(draws=500, conductance_from_series=True)
+    result, rec = pt.flake_kappa(p, "Z1-001", opts)
+    fitted = rec.details["inputs"]["fitted_conductance"]
+    co = pt.latest_coefficients(p, p.find_flake("Z1-001"))
+    # the drawn series scatter: compare with what the fitted slopes imply, to their errors
+    rel_p = co.chi_p_err_cm1_per_mw / abs(co.chi_p_cm1_per_mw)
+    assert result.kappa_w_mk == pytest.approx(kappa, rel=3 * rel_p + 0.02)
+    assert fitted["conductance_err_w_m2k"] > 0
+    assert fitted["conductance_w_m2k"] == pytest.approx(g, abs=3 * fitted["conductance_err_w_m2k"])
+    assert result.variance_share["interface_conductance"] > 0
+    assert any("supported-part power series" in w for w in result.warnings)
+    # recompute reads the options back and fits g again
+    p.assign(p.find_flake("Z1-001"), 3, reason="again")
+    p.recompute_stale()
+    assert not p.get("thermometry_result", rec.id).stale

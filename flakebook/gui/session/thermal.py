@@ -54,6 +54,7 @@ class Thermal:
                 "chi_p_cm1_per_mw": coeff.chi_p_cm1_per_mw,
                 "chi_p_err_cm1_per_mw": coeff.chi_p_err_cm1_per_mw,
                 "warnings": list(coeff.details.get("warnings", [])),
+                "supported": coeff.details.get("supported"),
                 "stale": coeff.stale,
             }
         if kappa is not None:

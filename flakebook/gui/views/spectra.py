@@ -160,7 +160,7 @@ class SpectraView(QWidget):
             label = session.flake_label(flake_id)
             n = len(self.spectra)
             self.title.setText(
-                f"<b>{label}</b>: {n} spectrum(s)"
+                f"<b>{label}</b>: {n} {'spectrum' if n == 1 else 'spectra'}"
                 if n
                 else f"<b>{label}</b>: no spectra yet. Drop Raman or PL files on the flake "
                 "(browser, catalogue or canvas) to fit them."

@@ -9,6 +9,7 @@ import logging
 from PySide6.QtWidgets import QInputDialog
 
 from flakebook.errors import InputError
+from flakebook.wording import count_text
 
 log = logging.getLogger("flakebook.gui")
 
@@ -84,7 +85,7 @@ class FlakeEdits:
 
             return undo
 
-        self.edit(f"Tag {len(flake_ids)} flake(s) {tag}", do)
+        self.edit(f"Tag {count_text(len(flake_ids), 'flake')} {tag}", do)
 
     def set_notes(self, flake_id: int, notes: str) -> None:
         s = self._need_session()

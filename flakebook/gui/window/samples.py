@@ -12,6 +12,7 @@ from PySide6.QtWidgets import QFileDialog, QInputDialog, QMessageBox
 from flakebook import __version__
 from flakebook.gui import palette
 from flakebook.gui.feedback import SessionLogWindow
+from flakebook.wording import count_text
 
 log = logging.getLogger("flakebook.gui")
 
@@ -42,7 +43,7 @@ class SettingsDialogs:
             added[:] = s.add_images(sample_id, paths, settings)
             return lambda: s.delete_images(added)
 
-        self.edit(f"Add {len(paths)} image(s)", do)
+        self.edit(f"Add {count_text(len(paths), 'image')}", do)
         if added:
             self.show_image(added[0])
         return added
