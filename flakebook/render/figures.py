@@ -151,9 +151,15 @@ def kappa_figure(rows: list[dict], *, max_layers: int = 15) -> bytes | None:
     )
     ns = sorted({int(r["layers"]) for r in rows})
     plot.x_ticks = list(range(min(ns), max(ns) + 1))
+    # flakebook's and an external analysis's result at one N stand side by side, not on top
+    # of each other (the same offsets as the window's view)
+    both = {int(r["layers"]) for r in rows if r.get("source") == "external"} & {
+        int(r["layers"]) for r in rows if r.get("source", "flakebook") == "flakebook"
+    }
     for r in rows:
         n = int(r["layers"])
-        plot.points([n], [r["kappa_w_mk"]], layer_hex(n) if n <= 7 else "#555555",
+        x = n + (0.12 if r.get("source") == "external" else -0.12) * (n in both)
+        plot.points([x], [r["kappa_w_mk"]], layer_hex(n) if n <= 7 else "#555555",
                     ylo=[r.get("kappa_p16_w_mk") or np.nan],
                     yhi=[r.get("kappa_p84_w_mk") or np.nan])  # fmt: skip
     return plot.png()

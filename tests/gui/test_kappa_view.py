@@ -75,3 +75,27 @@ def test_click_selects_and_exports_and_comparison(window, tmp_path):
     bad.write_text("layers,kappa_w_mk\n1,40\n2,abc\n", encoding="utf-8")
     with pytest.raises(InputError, match="line 3"):
         view.load_comparison(bad)
+
+
+@pytest.mark.parametrize("log", [False, True])
+def test_layer_axis_is_whole_numbers_and_groups_stand_side_by_side(window, log):
+    """Common practice, no source: N is an integer, so the axis is labelled at whole layer
+    numbers only and spans half a layer beyond the points; flakebook's result and an external
+    one for the same N stand side by side (not one hidden behind the other), each nearer its own
+    integer than any other."""
+    view = window.views["kappa"]
+    rows = _rows(window)
+    ext = dict(rows[1], source="external", kappa_w_mk=24.0)
+    view.log_x.setChecked(log)
+    view.set_points([*rows, ext])
+    _, dots = _bars_and_points(view)
+    ours, theirs = (np.asarray(d.getData()[0], float) for d in dots)
+    to_n = (lambda x: 10**x) if log else (lambda x: x)
+    assert np.all(np.abs(to_n(ours) - np.array([1, 2, 3])) < 0.25)
+    assert abs(to_n(theirs[0]) - 2) < 0.25
+    assert abs(ours[1] - theirs[0]) > 0.01
+    ticks = view.plot.getAxis("bottom")._tickLevels[0]
+    assert [label for _, label in ticks] == ["1", "2", "3"]
+    lo, hi = view.plot.getViewBox().viewRange()[0]
+    if not log:
+        assert (lo, hi) == pytest.approx((0.5, 3.5))

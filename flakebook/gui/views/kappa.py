@@ -25,6 +25,12 @@ from PySide6.QtWidgets import (
 from flakebook.errors import InputError
 from flakebook.gui.views import View
 
+# Where flakebook's, an external analysis's and a comparison series' points at one N would sit on
+# top of each other, each set is moved sideways by this many layers (on log axes by this many
+# hundredths of a decade): the groups stand side by side at every N, each within a quarter-layer
+# of its integer.
+DODGE = {"flakebook": -0.12, "external": 0.12, "comparison": 0.0}
+
 CSV_COLUMNS = ("flake_id", "source", "layers", "kappa_w_mk", "kappa_p16_w_mk", "kappa_p84_w_mk",
                "stale", "method")  # fmt: skip
 
@@ -88,7 +94,8 @@ class KappaView(QWidget):
             k = np.array([float(r["kappa_w_mk"]) for r in rows])
             lo = np.array([float(r.get("kappa_p16_w_mk") or r["kappa_w_mk"]) for r in rows])
             hi = np.array([float(r.get("kappa_p84_w_mk") or r["kappa_w_mk"]) for r in rows])
-            xs = np.log10(n) if lx else n
+            d = DODGE[name]
+            xs = np.log10(n) + 0.1 * d if lx else n + d
             if ly:
                 ys, top, bottom = (
                     np.log10(k),
@@ -104,6 +111,23 @@ class KappaView(QWidget):
                 sc.sigClicked.connect(lambda item, pts, *_, rows=rows: self._clicked(rows, pts))
             self.plot.addItem(sc)
             self._scatter.append((sc, rows))
+        self._layer_axis(lx, sets)
+
+    def _layer_axis(self, log_x: bool, sets) -> None:
+        """The layer number is an integer: ticks at whole N only, the range half a layer beyond
+        the outermost points (on log axes the same in decades)."""
+        ns = [float(r["layers"]) for *_, rows in sets for r in rows]
+        top = max([3.0, *ns])
+        whole = range(1, int(np.ceil(top)) + 1)
+        step = max(1, int(np.ceil(len(whole) / 12)))  # at most about a dozen labels
+        shown = [i for i in whole if (i - 1) % step == 0 or i == whole[-1]]
+        axis = self.plot.getAxis("bottom")
+        if log_x:
+            axis.setTicks([[(float(np.log10(i)), str(i)) for i in shown]])
+            self.plot.setXRange(np.log10(0.8), np.log10(top * 1.25), padding=0)
+        else:
+            axis.setTicks([[(float(i), str(i)) for i in shown]])
+            self.plot.setXRange(0.5, top + 0.5, padding=0)
 
     def _clicked(self, rows: list[dict], points) -> None:
         if len(points):
