@@ -118,6 +118,42 @@ def likelihood_options(cal: dict | None, substrate) -> tuple[dict, str]:
     return opts, note
 
 
+def shared_oxide_grid(project: Project, sample: Sample):
+    """The grid of the oxide thickness that the sample's oxide-dependent evidence (optical
+    contrast, the Si-line attenuation) is computed on, so that flakebook.evidence.combine
+    marginalises the oxide once for all of it instead of once per piece: 41 nodes over +-3 sigma
+    of the calibrated oxide. None where the oxide is taken as exact (no calibration, or one with
+    no oxide error): then the contrast does not marginalise it and nothing is counted twice."""
+    from flakebook.evidence import parameter_grid
+
+    cal = calibration_values(project, sample)
+    if cal is None or not cal["oxide_err_nm"] > 0:
+        return None
+    return parameter_grid("oxide_nm", cal["oxide_nm"], cal["oxide_err_nm"], max_nodes=41)
+
+
+def oxide_grid_name(sample: Sample) -> str:
+    """The stored name of a sample's shared oxide grid (evidence of two samples never share)."""
+    return f"oxide_nm@sample{sample.id}"
+
+
+def grid_parameters(grid, name: str) -> dict:
+    """A GridLikelihood as stored in an evidence record's ``parameters["grid"]`` (read back by
+    flakebook.pipeline_spectra.evidence_item); -inf kept as -1e30 for JSON."""
+    import numpy as np
+
+    def finite(a):
+        a = np.asarray(a, dtype=float)
+        return np.where(np.isfinite(a), a, -1e30).tolist()
+
+    return {
+        "parameter": name,
+        "nodes": finite(grid.grid.nodes),
+        "weights": finite(grid.grid.weights),
+        "log_likelihood": [finite(row) for row in grid.log_likelihood],
+    }
+
+
 def survey_options(project: Project, sample: Sample, image: Image) -> dict:
     """Keyword arguments for ``flakebook.imaging.survey.survey_image`` of an image of a sample:
     material, (calibrated) substrate, microscope, hole, dark offset and the calibrated
@@ -411,11 +447,13 @@ def contrast_likelihood(
     geometry: str = "supported",
     max_layers: int = 15,
     explain: bool = True,
+    oxide_grid=None,
 ):
     """The layer likelihood (``flakebook.optics.layers.layer_likelihood``) of a contrast
     measured in ``image`` of ``sample``, with the calibration values of
-    :func:`calibration_values` (or None); returns it and the calibration note. Reads no
-    project, so it can run in a worker thread."""
+    :func:`calibration_values` (or None); returns it and the calibration note. With
+    ``oxide_grid`` (:func:`shared_oxide_grid`) the result's ``grid`` holds it per oxide node.
+    Reads no project, so it can run in a worker thread."""
     from flakebook.optics.layers import layer_likelihood
 
     material, substrate, microscope = optics_inputs(sample, image)
@@ -428,6 +466,7 @@ def contrast_likelihood(
         microscope=microscope,
         max_layers=max_layers,
         explain=explain,
+        oxide_grid=oxide_grid,
         **opts,
         **kw,
     )
@@ -460,6 +499,7 @@ def _recompute_contrast(project: Project, rec: Evidence):
     if image_id is None:
         raise InputError("the evidence does not name the image its contrast was measured in")
     img = project.get(Image, image_id)
+    grid = shared_oxide_grid(project, sample) if shares_oxide(project, rec) else None
     lk, note = contrast_likelihood(
         sample,
         img,
@@ -468,10 +508,14 @@ def _recompute_contrast(project: Project, rec: Evidence):
         rec.parameters.get("contrast_err"),
         geometry=rec.parameters.get("geometry", "supported"),
         max_layers=rec.max_layers,
+        oxide_grid=grid,
     )
     from flakebook.pipeline_calibration import model_used
 
     params = dict(rec.parameters)
+    params.pop("grid", None)
+    if grid is not None:
+        params["grid"] = grid_parameters(lk.grid, oxide_grid_name(sample))
     params["decider"] = lk.decider
     params["calibration"] = note or "none (nominal oxide)"
     params["previous_model"] = rec.parameters.get("model")
@@ -492,6 +536,41 @@ def _recompute_contrast(project: Project, rec: Evidence):
             format_substrate(sample.substrate),
         ),
     }
+
+
+def shares_oxide(project: Project, rec: Evidence) -> bool:
+    """Whether a contrast evidence record has to be kept on the shared oxide grid: it is kept
+    there already, or its terrace also has Si-line evidence (which depends on the same oxide)."""
+    from flakebook.pipeline_spectra import SI_METHOD
+
+    if "grid" in rec.parameters:
+        return True
+    return any(
+        e.method == SI_METHOD and e.terrace_id in (rec.terrace_id, None)
+        for e in project.evidence_of(rec.flake_id)
+    )
+
+
+def put_contrast_on_oxide_grid(project: Project, flake, terrace_id) -> list[int]:
+    """Recompute the terrace's contrast evidence on the sample's shared oxide grid (once Si-line
+    evidence joins it), so the two are combined with the oxide marginalised once. Returns the
+    ids of the records changed (none where the oxide is taken as exact)."""
+    import dataclasses
+
+    fid = flake if isinstance(flake, int) else flake.id
+    changed = []
+    for rec in project.evidence_of(fid):
+        if rec.method != CONTRAST_METHOD or "grid" in rec.parameters:
+            continue
+        if rec.terrace_id not in (terrace_id, None) or rec.parameters.get("image_id") is None:
+            continue
+        sample = project.get(Sample, project.get(Flake, fid).sample_id)
+        if shared_oxide_grid(project, sample) is None:
+            return []
+        fields = _recompute_contrast(project, rec)
+        project.update(dataclasses.replace(rec, stale=False, **fields))
+        changed.append(rec.id)
+    return changed
 
 
 def _recompute_combined(project: Project, rec: Assignment):

@@ -147,11 +147,6 @@ def analyse_stored(project: Project, spec: Spectrum, settings: dict | None = Non
     return analysis, cal
 
 
-def _finite(a) -> list:
-    a = np.asarray(a, dtype=float)
-    return np.where(np.isfinite(a), a, -1e30).tolist()
-
-
 def _evidence_parameters(item, fit: SpectrumFit, spec: Spectrum) -> dict:
     feature = item.method.split(" (")[0]
     params = {
@@ -163,13 +158,9 @@ def _evidence_parameters(item, fit: SpectrumFit, spec: Spectrum) -> dict:
         "warnings": list(item.warnings),
     }
     if item.grid is not None:
-        g = item.grid
-        params["grid"] = {
-            "parameter": f"{g.grid.parameter}@spectrum{spec.id}",
-            "nodes": _finite(g.grid.nodes),
-            "weights": _finite(g.grid.weights),
-            "log_likelihood": [_finite(row) for row in g.log_likelihood],
-        }
+        from flakebook.pipeline import grid_parameters
+
+        params["grid"] = grid_parameters(item.grid, f"{item.grid.grid.parameter}@spectrum{spec.id}")
     return params
 
 
@@ -599,7 +590,7 @@ def _si_item(
 ):
     from flakebook.evidence import parameter_grid
     from flakebook.optics.substrate import parse_substrate
-    from flakebook.pipeline import calibration_values
+    from flakebook.pipeline import calibration_values, shared_oxide_grid
     from flakebook.spectra.layer_evidence import si_attenuation_evidence
     from flakebook.substrate import format_substrate
 
@@ -609,9 +600,15 @@ def _si_item(
     )
     if oxide is None:
         raise InputError(f"sample {sample.name} has no SiO2 layer: the Si-line ratio needs one")
-    cal = calibration_values(project, sample)
-    centre, err = (cal["oxide_nm"], cal["oxide_err_nm"]) if cal else (oxide, 5.0)
-    grid = parameter_grid("oxide_nm", centre, err, max_nodes=41)
+    # On the sample's shared oxide grid where the contrast marginalises the oxide too (a
+    # calibration with an oxide error): the two are then combined with the oxide integrated
+    # once. Without one the contrast takes the nominal oxide as exact, and the Si line, far
+    # more sensitive to the oxide than to N, gets a 5 nm uncertainty of its own (common
+    # practice, no source: a thermal oxide's thickness is known to a few per cent).
+    grid = shared_oxide_grid(project, sample)
+    if grid is None:
+        cal = calibration_values(project, sample)
+        grid = parameter_grid("oxide_nm", cal["oxide_nm"] if cal else oxide, 5.0, max_nodes=41)
     return si_attenuation_evidence(
         ratio, ratio_err, sample.material, substrate, grid, max_layers=max_layers, laser_nm=laser_nm
     )
@@ -622,19 +619,44 @@ def add_si_evidence(
 ) -> Evidence:
     """Record I_Si(under the flake) / I_Si(bare substrate) as evidence (the thin-film model on
     the sample's oxide, its uncertainty marginalised)."""
+    from flakebook.pipeline import put_contrast_on_oxide_grid
+
     flake = project.get(Flake, flake) if isinstance(flake, int) else flake
     sample = project.get(Sample, flake.sample_id)
     ev = _si_item(project, sample, float(ratio), float(ratio_err), laser_nm, project.max_layers)
-    return project.add_evidence(
-        flake,
-        ev.likelihood,
-        method=SI_METHOD,
-        terrace=project.primary_terrace_id(flake),
-        inputs=[sample],
-        parameters={"ratio": float(ratio), "ratio_err": float(ratio_err), "laser_nm": laser_nm},
-        source="optical constants of flakebook.optics.materials (see flakebook materials)",
-        reason=ev.reason,
-    )
+    params = {"ratio": float(ratio), "ratio_err": float(ratio_err), "laser_nm": laser_nm}
+    terrace = project.primary_terrace_id(flake)
+    with project.transaction():
+        rec = project.add_evidence(
+            flake,
+            ev.likelihood,
+            method=SI_METHOD,
+            terrace=terrace,
+            inputs=_si_inputs(project, sample),
+            parameters={**params, **_si_grid(project, sample, ev)},
+            source="optical constants of flakebook.optics.materials (see flakebook materials)",
+            reason=ev.reason,
+        )
+        put_contrast_on_oxide_grid(project, flake, terrace)
+    return rec
+
+
+def _si_inputs(project: Project, sample: Sample) -> list:
+    """The sample, and its calibration where there is one (a new one makes the evidence stale)."""
+    from flakebook.pipeline import calibration_record
+
+    cal = calibration_record(project, sample)
+    return [sample] if cal is None else [sample, cal]
+
+
+def _si_grid(project: Project, sample: Sample, ev) -> dict:
+    """``{"grid": ...}`` when the evidence is on the sample's shared oxide grid, else {}."""
+    from flakebook.pipeline import grid_parameters, oxide_grid_name, shared_oxide_grid
+
+    shared = shared_oxide_grid(project, sample)
+    if shared is None or ev.grid is None or not ev.grid.grid.same_as(shared):
+        return {}
+    return {"grid": grid_parameters(ev.grid, oxide_grid_name(sample))}
 
 
 def _recompute_si(project: Project, rec: Evidence) -> dict:
@@ -643,7 +665,13 @@ def _recompute_si(project: Project, rec: Evidence) -> dict:
     ev = _si_item(
         project, sample, p["ratio"], p["ratio_err"], p.get("laser_nm", 532.0), rec.max_layers
     )
-    return {"likelihood": ev.likelihood, "reason": ev.reason}
+    params = {k: v for k, v in p.items() if k != "grid"}
+    return {
+        "likelihood": ev.likelihood,
+        "reason": ev.reason,
+        "parameters": {**params, **_si_grid(project, sample, ev)},
+        "inputs": tuple(_si_inputs(project, sample)),
+    }
 
 
 # ---- calibrating the rule table on known flakes --------------------------------------------
