@@ -615,16 +615,28 @@ def _si_item(
 
 
 def add_si_evidence(
-    project: Project, flake, ratio: float, ratio_err: float, *, laser_nm: float = 532.0
+    project: Project,
+    flake,
+    ratio: float,
+    ratio_err: float,
+    *,
+    laser_nm: float = 532.0,
+    spectra: Sequence[Spectrum] = (),
+    details: dict | None = None,
 ) -> Evidence:
     """Record I_Si(under the flake) / I_Si(bare substrate) as evidence (the thin-film model on
-    the sample's oxide, its uncertainty marginalised)."""
+    the sample's oxide, its uncertainty marginalised). ``spectra``: the two stored spectra the
+    ratio was measured from (flakebook.pipeline_si), so that the evidence depends on them;
+    ``details``: how (kept in its parameters)."""
     from flakebook.pipeline import put_contrast_on_oxide_grid
 
     flake = project.get(Flake, flake) if isinstance(flake, int) else flake
     sample = project.get(Sample, flake.sample_id)
     ev = _si_item(project, sample, float(ratio), float(ratio_err), laser_nm, project.max_layers)
     params = {"ratio": float(ratio), "ratio_err": float(ratio_err), "laser_nm": laser_nm}
+    params.update(details or {})
+    if spectra:
+        params["spectrum_ids"] = [int(x.id) for x in spectra]
     terrace = project.primary_terrace_id(flake)
     with project.transaction():
         rec = project.add_evidence(
@@ -632,7 +644,7 @@ def add_si_evidence(
             ev.likelihood,
             method=SI_METHOD,
             terrace=terrace,
-            inputs=_si_inputs(project, sample),
+            inputs=[*_si_inputs(project, sample), *spectra],
             parameters={**params, **_si_grid(project, sample, ev)},
             source="optical constants of flakebook.optics.materials (see flakebook materials)",
             reason=ev.reason,
@@ -661,7 +673,13 @@ def _si_grid(project: Project, sample: Sample, ev) -> dict:
 
 def _recompute_si(project: Project, rec: Evidence) -> dict:
     sample = project.get(Sample, project.get(Flake, rec.flake_id).sample_id)
-    p = rec.parameters
+    p = dict(rec.parameters)
+    if p.get("measured_from") == "spectra":  # measured again from its two spectra
+        from flakebook.pipeline_si import details_of, measure
+
+        flake_spec, bare_spec = (project.get(Spectrum, i) for i in p["spectrum_ids"])
+        result = measure(flake_spec, bare_spec)
+        p.update(ratio=result.ratio, ratio_err=result.ratio_err, **details_of(result))
     ev = _si_item(
         project, sample, p["ratio"], p["ratio_err"], p.get("laser_nm", 532.0), rec.max_layers
     )
@@ -670,7 +688,9 @@ def _recompute_si(project: Project, rec: Evidence) -> dict:
         "likelihood": ev.likelihood,
         "reason": ev.reason,
         "parameters": {**params, **_si_grid(project, sample, ev)},
-        "inputs": tuple(_si_inputs(project, sample)),
+        "inputs": tuple(
+            [*_si_inputs(project, sample), *(x for x in rec.inputs if x.kind == "spectrum")]
+        ),
     }
 
 

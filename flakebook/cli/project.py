@@ -108,6 +108,14 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     p.add_argument("--si-ratio-err", type=float, metavar="E", help="its standard error")
     p.add_argument("--laser-nm", type=float, default=532.0, help="laser line of --si-ratio (532)")
+    p.add_argument(
+        "--si-from-spectra",
+        nargs="?",
+        const="",
+        metavar="BARE",
+        help="measure the Si-line ratio from the flake's Raman spectrum against a bare-substrate "
+        "spectrum (BARE, a file, stored on the sample; without it, the sample's stored one)",
+    )
     add_format_option(p)
     p.set_defaults(func=_assign)
 
@@ -347,8 +355,9 @@ def _parse_layers(text: str, max_layers: int) -> int:
 
 
 def _record_measured_evidence(args: argparse.Namespace) -> bool:
-    """Record --afm-height-nm / --si-ratio as evidence and recombine; True if any was given."""
-    from flakebook.store import Project
+    """Record --afm-height-nm / --si-ratio / --si-from-spectra as evidence and recombine; True
+    if any was given."""
+    from flakebook.store import Project, Sample
 
     afm = (args.afm_height_nm, args.afm_height_err_nm)
     si = (args.si_ratio, args.si_ratio_err)
@@ -358,10 +367,21 @@ def _record_measured_evidence(args: argparse.Namespace) -> bool:
     for name in ("afm_height_nm", "afm_height_err_nm", "si_ratio", "si_ratio_err", "laser_nm"):
         if getattr(args, name) is not None:
             positive_float("--" + name.replace("_", "-"), getattr(args, name))
-    if afm[0] is None and si[0] is None:
+    spectra = getattr(args, "si_from_spectra", None)
+    if spectra is not None and si[0] is not None:
+        raise InputError(
+            "--si-ratio and --si-from-spectra both give the Si-line ratio: one of them"
+        )
+    if afm[0] is None and si[0] is None and spectra is None:
         return False
     from flakebook import pipeline
+    from flakebook.pipeline_si import add_si_from_spectra, store_bare_reference
 
+    bare = None
+    if spectra:  # read (and checked) before the project is opened for writing
+        from flakebook.spectra.io import read_spectrum
+
+        bare = read_spectrum(spectra, kind="raman")
     with Project.open(args.project) as project:
         _show_warnings(project)
         flake = project.find_flake(args.flake)
@@ -370,6 +390,21 @@ def _record_measured_evidence(args: argparse.Namespace) -> bool:
                 pipeline.add_afm_evidence(project, flake, *afm)
             if si[0] is not None:
                 pipeline.add_si_evidence(project, flake, *si, laser_nm=args.laser_nm)
+            if spectra is not None:
+                ref = None
+                if bare is not None:
+                    sample = project.get(Sample, flake.sample_id)
+                    laser = None if bare.metadata.get("laser_nm") else args.laser_nm
+                    ref = store_bare_reference(
+                        project, sample, bare, source_path=spectra, laser_nm=laser
+                    )
+                _, result = add_si_from_spectra(project, flake, reference=ref)
+                message(
+                    f"flakebook: Si line under {flake.label}: {result.ratio:.3f} +- "
+                    f"{result.ratio_err:.3f} of the bare substrate ({result.dose_note})"
+                )
+                for text in result.warnings:
+                    message(f"flakebook: warning: {text}")
             pipeline.assign_flake(project, flake)
     return True
 

@@ -484,6 +484,10 @@ class RecordKinds:
             return self._select(Spectrum, "flake_id = ?", (id_of(flake),))
         return self._select(Spectrum, "flake_id = ? AND kind = ?", (id_of(flake), kind))
 
+    def spectra_of_sample(self, sample: RecordRef) -> list[Spectrum]:
+        """The spectra stored on a sample but on no flake (bare-substrate references)."""
+        return self._select(Spectrum, "sample_id = ? AND flake_id IS NULL", (id_of(sample),))
+
     def spectra_of_series(self, series: RecordRef) -> list[Spectrum]:
         """The spectra of a thermometry series."""
         return self._select(Spectrum, "series_id = ?", (id_of(series),))
