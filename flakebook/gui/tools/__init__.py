@@ -12,6 +12,7 @@ on the toolbar and in the Tools menu), :class:`~flakebook.gui.session.Session` i
 from __future__ import annotations
 
 from flakebook.gui.tools import (
+    evidence,
     hole,
     link,
     measure,
@@ -26,7 +27,7 @@ from flakebook.gui.tools import (
 from flakebook.gui.tools.base import CanvasTool
 
 #: Every tool, in the order of the toolbar.
-MODULES = (select, outline, segment, hole, scale, measure, split, merge, link, spectra)
+MODULES = (select, outline, segment, hole, scale, measure, split, merge, link, spectra, evidence)
 
 CANVAS_TOOLS: dict[str, CanvasTool] = {m.TOOL.name: m.TOOL for m in MODULES if hasattr(m, "TOOL")}
 SESSION_PARTS: tuple[type, ...] = tuple(

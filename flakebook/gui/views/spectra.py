@@ -83,6 +83,13 @@ class SpectraView(QWidget):
         self.refit_button.setObjectName("refitButton")
         self.refit_button.setToolTip("Fit this spectrum again with the settings chosen (undoable)")
         self.refit_button.clicked.connect(self._refit)
+        self.measured_button = QPushButton("AFM / Si line…", self)
+        self.measured_button.setObjectName("measuredButton")
+        self.measured_button.setToolTip(
+            "Record an AFM step height, or the Si Raman line under the flake against the bare "
+            "substrate, as layer evidence of this flake (undoable)"
+        )
+        self.measured_button.setEnabled(False)
         bar = QHBoxLayout()
         bar.addWidget(self.chooser, 2)
         for label, w in (
@@ -93,6 +100,7 @@ class SpectraView(QWidget):
             bar.addWidget(QLabel(label, self))
             bar.addWidget(w)
         bar.addWidget(self.refit_button)
+        bar.addWidget(self.measured_button)
         self.plot = pg.PlotWidget(self)
         self.plot.setBackground("w")
         self.plot.showGrid(x=True, y=True, alpha=0.2)
@@ -167,6 +175,9 @@ class SpectraView(QWidget):
             )
         self._set_enabled(bool(self.spectra) and not (session and session.read_only))
         self.chooser.setEnabled(bool(self.spectra))
+        self.measured_button.setEnabled(
+            flake_id is not None and session is not None and not session.read_only
+        )
         self._draw_current()
 
     def current_spectrum(self) -> int | None:
@@ -296,6 +307,9 @@ def connect(window, view: SpectraView) -> None:
     def update(*_args) -> None:
         QTimer.singleShot(0, show)  # after the window has taken the new selection
 
+    view.measured_button.clicked.connect(
+        lambda: window._guard(lambda: window.add_measured_dialog(view.flake_id), "AFM / Si line")
+    )
     window.tabs.currentChanged.connect(update)
     window.undo_stack.indexChanged.connect(update)
     window.browser.flakeActivated.connect(update)
