@@ -62,7 +62,14 @@ class MeasuredDialog(QDialog):
         form = QFormLayout(self.afm_box)
         form.addRow("Height", self.height)
         form.addRow("± (1σ)", self.height_err)
-        form.addRow(QLabel("Flake over substrate; a residue layer under the flake is allowed for."))
+        from flakebook.spectra.layer_evidence import AFM_OFFSET_ERR_NM, AFM_OFFSET_NM
+
+        form.addRow(
+            QLabel(
+                f"The step from substrate to flake; an offset of {AFM_OFFSET_NM:g} ± "
+                f"{AFM_OFFSET_ERR_NM:g} nm (residue, adsorbed water) is allowed for."
+            )
+        )
 
         self.si_box = QGroupBox("Si Raman line under the flake / on bare substrate", self)
         self.si_box.setCheckable(True)
