@@ -57,6 +57,11 @@ class ThermalView(QWidget):
             res.setMaximumHeight(130)
             res.setLabel("left", "residual (cm⁻¹)")
             res.setXLink(plot)
+            # The axes say their unit; a factor pyqtgraph would put beside it ("x0.001") on
+            # one plot and not on its linked residuals reads as another unit.
+            for w in (plot, res):
+                for side in ("left", "bottom"):
+                    w.getAxis(side).enableAutoSIPrefix(False)
             self.plots[kind], self.residuals[kind] = plot, res
             grid.addWidget(plot, 0, col)
             grid.addWidget(res, 1, col)
@@ -70,6 +75,9 @@ class ThermalView(QWidget):
         self.warnings = QLabel(self)
         self.warnings.setWordWrap(True)
         self.shares = pg.PlotWidget(self)
+        self.share_text = QLabel(self)
+        self.share_text.setObjectName("shareText")
+        self.share_text.setWordWrap(True)
         self.shares.setMaximumHeight(110)
         self.shares.setLabel("bottom", "share of var(ln κ)")
         self.shares.hideAxis("left")
@@ -136,6 +144,7 @@ class ThermalView(QWidget):
         side.addWidget(self.absorptance)
         side.addWidget(self.kappa)
         side.addWidget(self.shares)
+        side.addWidget(self.share_text)
         side.addStretch(1)
         panel = QWidget(self)
         panel.setLayout(side)
@@ -174,6 +183,7 @@ class ThermalView(QWidget):
             self.plots[kind].clear()
             self.residuals[kind].clear()
         self.shares.clear()
+        self.share_text.setText("")
         if details is None:
             self.title.setText("No flake selected")
             for w in (self.chi, self.absorptance, self.kappa, self.warnings):
@@ -225,14 +235,19 @@ class ThermalView(QWidget):
                 color = pg.intColor(i, hues=max(len(names), 1))
                 self.shares.addItem(pg.BarGraphItem(x0=[left], y=[0], width=[v], height=0.8,
                                                     brush=color))  # fmt: skip
-                if v > 0.06:
-                    t = pg.TextItem(SHARE_NAMES.get(n, n.replace("_", " ")), anchor=(0.5, 0.5))
+                name = SHARE_NAMES.get(n, n.replace("_", " "))
+                # inside its segment only where the words fit (about 0.022 of the bar a letter)
+                if v > 0.022 * len(name) + 0.02:
+                    t = pg.TextItem(name, anchor=(0.5, 0.5))
                     t.setPos(left + v / 2, 0)
                     self.shares.addItem(t)
                 left += v
-            self.shares.setToolTip(
-                ", ".join(f"{SHARE_NAMES.get(n, n)} {shares[n]:.0%}" for n in names)
+            text = ", ".join(
+                f"{SHARE_NAMES.get(n, n)} {shares[n]:.0%}"
+                for n in sorted(names, key=lambda n: -shares[n])
             )
+            self.shares.setToolTip(text)
+            self.share_text.setText(f"Variance of ln κ: {text}")
             warns = list(k["warnings"])
             opts = k.get("options") or {}
             self._set_options(opts)
