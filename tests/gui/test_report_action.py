@@ -311,6 +311,9 @@ def test_open_button_opens_the_report(qtbot, demo_window, tmp_path, monkeypatch)
     assert not button.isVisible()
     _wait(qtbot, w)
     assert button.isVisible() and w.last_report == tmp_path / "next.html"
+    # the report belongs to the project: closing it takes the button away
+    w.close_project()
+    assert not button.isVisible() and w.last_report is None
 
 
 def test_chosen_and_shown_flakes(qtbot, demo_window, demo, tmp_path):

@@ -94,6 +94,9 @@ class Projects:
         self.candidates.set_candidates([])
         self.inspector.show_flake(None)
         self._model_cache.clear()
+        if hasattr(self, "_show_open_report"):  # the last report was of the project closed
+            self.last_report = None
+            self._show_open_report(None)
         log.info("Closed %s", path)
         self._update_title()
         self._update_enabled()
