@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -165,6 +165,45 @@ def _mono(image: Micrograph) -> Micrograph:
         return image
     lin = image.intensity.mean(axis=2, keepdims=True, dtype=np.float32)
     return with_intensity(image, lin, channels=("mono",))
+
+
+def _saturated_share(seg: Segmentation, reg: Region, saturated: np.ndarray) -> float:
+    """Fraction of a region's pixels saturated in some channel (working grid)."""
+    f = seg.factor
+    x0, y0, x1, y1 = reg.bbox_px
+    wx0, wy0 = int(x0 // f), int(y0 // f)
+    wx1, wy1 = int(x1 // f) + 1, int(y1 // f) + 1
+    lab = seg.labels[wy0:wy1, wx0:wx1] == reg.id
+    n = int(np.count_nonzero(lab))
+    if n == 0:
+        return 0.0
+    return (
+        float(np.count_nonzero(lab & saturated[wy0:wy1, wx0:wx1][: lab.shape[0], : lab.shape[1]]))
+        / n
+    )
+
+
+def _thick_or_saturated(
+    reg: SurveyRegion, seg: Segmentation, saturated: np.ndarray, max_layers: int
+) -> SurveyRegion:
+    """A bulk piece is a flake too: say so where the region is most likely thicker than N_max,
+    and where its pixels reach the camera's full scale (left out of its contrast, which then
+    reads low)."""
+    extra = []
+    share = _saturated_share(seg, reg.region, saturated)
+    if share > 0.02:
+        extra.append(
+            f"saturated in a channel on {100 * share:.0f}% of its pixels (left out of its "
+            "contrast): expose shorter to measure it"
+        )
+    if reg.layers is not None and reg.layers > max_layers:
+        extra.append(
+            f"thick: most likely more than {max_layers} layers (bulk-like); contrast does not "
+            "resolve its layer number"
+        )
+    if not extra:
+        return reg
+    return replace(reg, warnings=(*extra, *reg.warnings))
 
 
 def _share_over_hole(seg: Segmentation, reg: Region, hole: Hole) -> float:
@@ -378,6 +417,8 @@ def survey_image(
                 tuple(rwarn),
             )
         )
+    sat_work = image.saturated_working(f)
+    out_regions = [_thick_or_saturated(r, seg, sat_work, max_layers) for r in out_regions]
     out_regions.sort(key=lambda r: (-r.target_probability, -r.region.area_um2))
     misfit = sum(any("explains" in w for w in r.warnings) for r in out_regions)
     if out_regions and misfit >= max(2, 0.3 * len(out_regions)):
