@@ -164,7 +164,9 @@ def segment(
         if np.all(sd_s <= quant * 1.0001) and float(np.ptp(cw[valid])) < 1e-6:
             warnings.append("the image is uniform: no flakes and no noise to measure")
         thr = np.maximum(threshold_sigma * sd_s, min_contrast).astype(np.float32)
-        fg = np.any(np.abs(cs) > thr, axis=2) & valid
+        # A saturated pixel is not bare substrate: it belongs to a flake (a thick, bright piece
+        # is still a flake, reported and flagged), though its value is left out of contrasts.
+        fg = (np.any(np.abs(cs) > thr, axis=2) & valid) | ~valid
         if exclude is not None:
             fg &= ~exclude[:wr, :wc]
         bare_mask, bare_c = bare_hole_pixels(cs, sub_mask, hole_w, thr)
@@ -246,7 +248,7 @@ def segment(
     pad = 3
     erode5 = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
     grow = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * pad + 1, 2 * pad + 1))
-    usable = valid & ~bare_mask
+    usable = ~bare_mask  # saturated pixels too: they are classed by their (clipped) contrast
     hole_disks = None
     if hole_w:
         hole_disks = np.zeros((wr, wc), np.uint8)

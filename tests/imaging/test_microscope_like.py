@@ -52,7 +52,7 @@ def cleaved(cx, cy, r, rng, *, torn=0.35):
     return pts
 
 
-def scene(seed=3, blur=1.2, jpeg=True):
+def scene(seed=3, blur=1.2, jpeg=True, substrate=SUBSTRATE_RGB):
     rng = np.random.default_rng(seed)
     mat, sub, mic, sup, _ = model()
     flakes = [(1, (200, 200, 85)), (2, (480, 220, 80)), (3, (250, 480, 95))]
@@ -67,7 +67,7 @@ def scene(seed=3, blur=1.2, jpeg=True):
     for _ in range(25):  # residue specks: small, a few per cent darker
         cx, cy = rng.uniform(20, SHAPE[1] - 20), rng.uniform(20, SHAPE[0] - 20)
         masks.append((disk_coverage(SHAPE, cx, cy, rng.uniform(1.0, 2.5)), np.full(3, 0.06)))
-    lin = render(SHAPE, SUBSTRATE_RGB, masks, noise=0.012, vignette=0.1, dark=0.01, rng=rng)
+    lin = render(SHAPE, substrate, masks, noise=0.012, vignette=0.1, dark=0.01, rng=rng)
     if blur:
         lin = cv2.GaussianBlur(lin, (0, 0), blur)
     img = jpeg_rgb(lin, 85) if jpeg else to_srgb8(lin)
@@ -116,3 +116,14 @@ def test_the_bulk_piece_is_reported_as_thick():
     assert main.layers is not None and main.layers > 15  # the "more" bin: thicker than N_max
     text = " ".join(main.warnings).lower()
     assert "thick" in text or "saturated" in text
+
+
+def test_a_saturating_bulk_piece_is_reported_and_flagged():
+    """Exposed for the thin flakes, the bulk piece reaches full scale in green: it is still a
+    flake of the survey, flagged as saturated."""
+    img, _, (bx, by, _area), optics = scene(substrate=(0.30, 0.24, 0.36))
+    res = _survey(img, optics)
+    f = _flake_at(res, bx, by)
+    regions = [r for r in res.regions if r.region.flake_id == f.id]
+    text = " ".join(w for r in regions for w in r.warnings)
+    assert "saturated in a channel" in text
