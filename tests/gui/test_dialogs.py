@@ -109,6 +109,9 @@ def test_missing_image_is_reported_project_still_opens(qtbot, project_path):
     assert w.session is not None
     assert w.errors and "missing" in str(w.errors[-1][1])
     assert w.catalogue.model.rowCount() == 3  # the catalogue is still there
+    # the canvas says why no micrograph is shown, not that the project has none
+    text = w.canvas.empty_label.text()
+    assert "cannot be shown" in text and "missing" in text and "no micrograph yet" not in text
     w.close()
 
 

@@ -90,7 +90,17 @@ class Display:
 
     def show_image(self, image_id: int, *, overlays: bool = True) -> None:
         s = self._need_session(write=False)
-        shown = s.load_image(image_id)
+        try:
+            shown = s.load_image(image_id)
+        except Exception as exc:
+            # Say on the canvas why the micrograph is not shown (its file moved or damaged),
+            # rather than leaving what it showed before or "no micrograph yet".
+            self.canvas.set_image(None)
+            self.current_image = None
+            self.canvas.set_empty_text(
+                f"This micrograph cannot be shown:\n{exc}\n\nThe project's records are unchanged."
+            )
+            raise
         self.current_image = image_id
         self._linear = None
         self._reference = None
