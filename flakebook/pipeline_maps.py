@@ -40,15 +40,13 @@ MAP_METHOD = "Raman map fit (batched Levenberg-Marquardt, Lorentzian lines; rule
 
 
 def quantity_unit(name: str) -> str:
-    """The unit of a map quantity by its name: cm^-1, counts, layers or '' (probability)."""
+    """The unit of a map quantity by its name: cm^-1, counts or '' (N, probability, S/N)."""
     if name.endswith("_cm1"):
         return "cm⁻¹"
     if name.endswith("_height"):
         return "counts"
     if name.endswith("_snr"):
         return ""
-    if name == "layers":
-        return "layers"
     return ""
 
 
