@@ -129,12 +129,14 @@ class MapView(QWidget):
         bar.addWidget(self.chooser)
         bar.addWidget(QLabel("Show", self))
         bar.addWidget(self.quantity)
-        bar.addWidget(self.over)
-        bar.addWidget(QLabel("opacity", self))
-        bar.addWidget(self.opacity)
         bar.addStretch(1)
-        bar.addWidget(self.png)
-        bar.addWidget(self.arrays)
+        tools = QHBoxLayout()
+        tools.addWidget(self.over)
+        tools.addWidget(QLabel("opacity", self))
+        tools.addWidget(self.opacity)
+        tools.addStretch(1)
+        tools.addWidget(self.png)
+        tools.addWidget(self.arrays)
         self.title = QLabel(EMPTY_TEXT, self)
         self.title.setObjectName("mapTitle")
         self.title.setWordWrap(True)
@@ -151,6 +153,7 @@ class MapView(QWidget):
         lay.addWidget(self.graphics, 1)
         lay.addWidget(self.hover)
         lay.addWidget(self.notes)
+        lay.addLayout(tools)
         self.plots: list[pg.PlotItem] = []
         self.map_item: pg.ImageItem | None = None
         self.photo_items: list[pg.ImageItem] = []
@@ -488,12 +491,17 @@ def follow(window, view: MapView) -> None:
 
 
 def connect(window, view: MapView) -> None:
-    """The view is re-listed when brought to the front; exports through the window's guard."""
+    """The view is re-listed when brought to the front and when the project changes; exports
+    through the window's guard."""
     window.tabs.currentChanged.connect(
         lambda *_: (
             window.tabs.currentWidget() is view
             and window._guard(lambda: view.show_map(window.session), "Raman map")
         )
+    )
+    # another project (or none): nothing of the old one stays on screen
+    window.projectChanged.connect(
+        lambda: window._guard(lambda: view.show_map(window.session), "Raman map")
     )
     view.png.clicked.connect(lambda: window._guard(view._png_dialog, "Export map"))
     view.arrays.clicked.connect(lambda: window._guard(view._arrays_dialog, "Export map"))
