@@ -32,6 +32,10 @@ from flakebook.store.files import stored_path
 #: standard deviations: common practice for a detection among many (a map's thousand spectra
 #: give a few noise lines at the fitter's own threshold of 3), no source.
 FLAKE_LINE_SNR = 5.0
+#: ... and is no broader than this (cm^-1): the first-order lines of these crystals at room
+#: temperature are a few cm^-1 wide; a broad "line" is the background's curvature (common
+#: practice, no source).
+FLAKE_LINE_MAX_FWHM_CM1 = 15.0
 
 MAP_METHOD = "Raman map fit (batched Levenberg-Marquardt, Lorentzian lines; rule table)"
 
@@ -387,12 +391,17 @@ def find_map(project: Project, key: str | int) -> RamanMap:
 
 def empty_mask(rec: RamanMap) -> np.ndarray:
     """Map pixels with no flake line (bare substrate, or nothing fitted): True where no
-    first-order line of the material stands :data:`FLAKE_LINE_SNR` above the noise, or where no
-    layer number could be read. Such pixels are shown empty, never as a layer number."""
+    first-order line of the material stands :data:`FLAKE_LINE_SNR` above the noise with a width
+    of at most :data:`FLAKE_LINE_MAX_FWHM_CM1`, or where no layer number could be read. Such
+    pixels are shown empty, never as a layer number."""
     found = np.zeros(rec.shape, bool)
     snrs = [q for q in rec.quantities if q.endswith("_snr")]
     for q in snrs:
-        found |= np.nan_to_num(rec.quantity(q), nan=0.0) >= FLAKE_LINE_SNR
+        line = np.nan_to_num(rec.quantity(q), nan=0.0) >= FLAKE_LINE_SNR
+        width = q[: -len("_snr")] + "_fwhm_cm1"
+        if width in rec.quantities:
+            line &= np.nan_to_num(rec.quantity(width), nan=np.inf) <= FLAKE_LINE_MAX_FWHM_CM1
+        found |= line
     if not snrs:  # a map stored without its signal-to-noise: any line found counts
         for q in rec.quantities:
             if q.endswith("_center_cm1"):

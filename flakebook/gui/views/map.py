@@ -372,7 +372,10 @@ class MapView(QWidget):
         rec = self.record
         head = f"x {rec.x_um[col]:g}, y {rec.y_um[row]:g} µm (map) · row {row}, col {col}: "
         if self.empty[row, col]:
-            return head + f"no flake line (S/N below {pm.FLAKE_LINE_SNR:g}): bare substrate"
+            return head + (
+                f"no flake line (none with S/N ≥ {pm.FLAKE_LINE_SNR:g} and FWHM ≤ "
+                f"{pm.FLAKE_LINE_MAX_FWHM_CM1:g} cm⁻¹): bare substrate"
+            )
         parts = []
         q = self.current_quantity()
         order = [q] + [n for n in pm.shown_quantities(rec) if n != q]
