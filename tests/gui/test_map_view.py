@@ -140,7 +140,8 @@ def test_closing_the_project_keeps_no_old_image(window, stored):
     assert view.record is not None
     window.close_project()
     assert view.record is None and view.micrograph is None and not view.photo_items
-    assert view.map_item is None and view.chooser.count() == 0
+    assert view.map_item is None and view.chooser.count() == 0 and view.quantity.count() == 0
+    assert not view.hover.text().strip() and not view.notes.text()
 
 
 def test_snapshot_show_map(qapp, project_path, tmp_path):

@@ -1,8 +1,9 @@
 """The Raman map view: a stored map's quantity (a mode's position, a separation, the most likely
 layer number N or its probability) as an image with its colour bar and unit, laid over the
-micrograph it was taken on (or beside it, both views linked), aligned by the map's placement
+micrograph it was taken on (or beside it), aligned by the map's placement
 (:mod:`flakebook.pipeline_maps`: the map origin's offset in um from the image's pixel origin).
 
+Beside the micrograph, both plots show the map's frame and its surroundings in the image's um.
 Pixels without a flake line (bare substrate) are left empty, never coloured as a layer number.
 Hovering a pixel shows its values with their standard errors. The shown map exports as a PNG
 (what the view shows) and as arrays (.npy and .csv of the quantity).
@@ -14,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 import pyqtgraph as pg
-from PySide6.QtCore import QRectF, Qt
+from PySide6.QtCore import QRectF, Qt, QTimer
 from PySide6.QtWidgets import (
     QCheckBox,
     QComboBox,
@@ -105,13 +106,13 @@ class MapView(QWidget):
         self.chooser.setSizeAdjustPolicy(
             QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon
         )
-        self.chooser.setMinimumContentsLength(18)
+        self.chooser.setMinimumContentsLength(24)
         self.quantity = QComboBox(self)
         self.quantity.setObjectName("mapQuantity")
         self.quantity.setSizeAdjustPolicy(
             QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon
         )
-        self.quantity.setMinimumContentsLength(22)
+        self.quantity.setMinimumContentsLength(20)
         self.over = QCheckBox("Over the micrograph", self)
         self.over.setObjectName("mapOver")
         self.over.setChecked(True)
@@ -198,6 +199,11 @@ class MapView(QWidget):
         self.record = self.image = self.micrograph = None
         self.values = self.empty = None
         self._clear_plots()
+        self.quantity.blockSignals(True)
+        self.quantity.clear()
+        self.quantity.blockSignals(False)
+        self.hover.setText(" ")
+        self.notes.setText("")
 
     def _map_chosen(self, *_args) -> None:
         mid = self.current_map()
@@ -267,9 +273,8 @@ class MapView(QWidget):
             photo_plot = self._new_plot(0, f"{photo} (map frame in orange)")
             self._add_photo(photo_plot)
             map_plot = self._new_plot(1, what)
-            map_plot.setXLink(photo_plot)
-            map_plot.setYLink(photo_plot)
             self._frame(photo_plot)
+            self._frame(map_plot)
         else:
             map_plot = self._new_plot(0, f"{what} over {photo}" if placed else what)
             if placed:
@@ -287,9 +292,21 @@ class MapView(QWidget):
             ticks = [(i + 1, _layer_text(n, rec.max_layers)) for i, n in enumerate(classes)]
             self.colour_bar.axis.setTicks([ticks, []])
         self.graphics.addItem(self.colour_bar, 0, len(self.plots))
-        for p in self.plots:
-            p.autoRange()
+        if beside:  # both plots on the map's frame and a margin around it (once laid out)
+            self._frame_both()
+            QTimer.singleShot(0, self._frame_both)
+        else:
+            for p in self.plots:
+                p.autoRange()
         self._write_title(rec, q)
+
+    def _frame_both(self) -> None:
+        if self.record is None:
+            return
+        r = self._map_rect()
+        pad = 0.3 * max(r.width(), r.height())
+        for p in self.plots:
+            p.setRange(r.adjusted(-pad, -pad, pad, pad), padding=0)
 
     def _new_plot(self, col: int, name: str) -> pg.PlotItem:
         p = self.graphics.addPlot(row=0, col=col)
