@@ -157,3 +157,19 @@ def test_snapshot_show_map(qapp, project_path, tmp_path):
     assert cv2.imread(str(out)).std() > 20
     code = main(["open", str(project_path), "--snapshot", str(out), "--show", "map:99"])
     assert code == 2
+
+
+def test_switching_to_an_unplaced_map_drops_the_micrograph(window, stored):
+    from flakebook.pipeline_maps import store_map
+
+    m, _ = drawn_map()
+    other = store_map(window.session.project, 1, m, name="loose map").record
+    window.show_view("map")
+    view = window.map_view
+    assert view.photo_items and view.chooser.count() == 2
+    view.chooser.setCurrentIndex(view.chooser.findData(other.id))
+    assert view.record.id == other.id and view.image is None and view.micrograph is None
+    assert not view.photo_items and "not placed" in view.title.text()
+    assert not view.over.isEnabled(), "nothing to lay the map over"
+    view.chooser.setCurrentIndex(view.chooser.findData(stored[0].id))
+    assert view.photo_items and view.image is not None
