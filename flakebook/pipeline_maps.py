@@ -316,9 +316,7 @@ def store_map(
 
 
 def _fields(result, laser_nm: float, calibration) -> dict:
-    maps = dict(result.maps)
-    for i, mode in enumerate(result.fit.modes):
-        maps[f"{mode}_snr"] = np.where(result.fit.found[..., i], result.fit.snr[..., i], np.nan)
+    maps = with_snr(result)
     names = list(maps)
     settings = {
         "laser_nm": laser_nm,
@@ -390,30 +388,51 @@ def find_map(project: Project, key: str | int) -> RamanMap:
 
 
 def empty_mask(rec: RamanMap) -> np.ndarray:
-    """Map pixels with no flake line (bare substrate, or nothing fitted): True where no
-    first-order line of the material stands :data:`FLAKE_LINE_SNR` above the noise with a width
-    of at most :data:`FLAKE_LINE_MAX_FWHM_CM1`, or where no layer number could be read. Such
-    pixels are shown empty, never as a layer number."""
-    found = np.zeros(rec.shape, bool)
-    snrs = [q for q in rec.quantities if q.endswith("_snr")]
+    """Map pixels with no flake line (bare substrate, or nothing fitted), shown empty and never
+    as a layer number (:func:`empty_pixels` of the stored quantities)."""
+    return empty_pixels({q: rec.maps[k] for k, q in enumerate(rec.quantities)})
+
+
+def empty_pixels(maps) -> np.ndarray:
+    """True where no first-order line of the material stands :data:`FLAKE_LINE_SNR` above the
+    noise with a width of at most :data:`FLAKE_LINE_MAX_FWHM_CM1`, or where no layer number
+    could be read; ``maps`` names the quantities (``<mode>_snr``, ``<mode>_fwhm_cm1``,
+    ``layers``; without ``_snr`` maps any line found counts)."""
+    layers = np.asarray(maps["layers"])
+    found = np.zeros(layers.shape, bool)
+    snrs = [q for q in maps if q.endswith("_snr")]
     for q in snrs:
-        line = np.nan_to_num(rec.quantity(q), nan=0.0) >= FLAKE_LINE_SNR
+        line = np.nan_to_num(maps[q], nan=0.0) >= FLAKE_LINE_SNR
         width = q[: -len("_snr")] + "_fwhm_cm1"
-        if width in rec.quantities:
-            line &= np.nan_to_num(rec.quantity(width), nan=np.inf) <= FLAKE_LINE_MAX_FWHM_CM1
+        if width in maps:
+            line &= np.nan_to_num(maps[width], nan=np.inf) <= FLAKE_LINE_MAX_FWHM_CM1
         found |= line
-    if not snrs:  # a map stored without its signal-to-noise: any line found counts
-        for q in rec.quantities:
+    if not snrs:
+        for q in maps:
             if q.endswith("_center_cm1"):
-                found |= np.isfinite(rec.quantity(q))
-    return ~found | ~np.isfinite(rec.quantity("layers"))
+                found |= np.isfinite(maps[q])
+    return ~found | ~np.isfinite(layers)
+
+
+def with_snr(result) -> dict:
+    """The maps of an analysis (flakebook.spectra.maps.MapLayers) with each mode's
+    signal-to-noise (``<mode>_snr``, NaN where the line was not found)."""
+    maps = dict(result.maps)
+    for i, mode in enumerate(result.fit.modes):
+        maps[f"{mode}_snr"] = np.where(result.fit.found[..., i], result.fit.snr[..., i], np.nan)
+    return maps
+
+
+def layer_counts(layers: np.ndarray, empty: np.ndarray) -> dict[str, int]:
+    """How many pixels with flake lines read each layer number (``{"1": count, ...}``)."""
+    ok = np.isfinite(layers) & ~empty
+    return {str(int(n)): int(np.sum(ok & (layers == n))) for n in np.unique(layers[ok])}
 
 
 def map_summary(rec: RamanMap) -> dict:
     """The JSON of a stored map (``flakebook spectrum --map --project``)."""
-    layers = rec.quantity("layers")
-    ok = np.isfinite(layers)
-    counts = {str(int(n)): int(np.sum(layers == n)) for n in np.unique(layers[ok])}
+    empty = empty_mask(rec)
+    counts = layer_counts(rec.quantity("layers"), empty)
     return {
         "map_id": rec.id,
         "name": rec.name,
@@ -423,6 +442,6 @@ def map_summary(rec: RamanMap) -> dict:
         "shape": list(rec.shape),
         "maps": list(rec.quantities),
         "layer_counts": counts,
-        "empty_pixels": int(np.sum(empty_mask(rec))),
+        "empty_pixels": int(np.sum(empty)),
         "flakebook_version": rec.flakebook_version,
     }

@@ -328,8 +328,8 @@ def write_maps(result, out_dir: Path, stem: str) -> list[str]:
 
 
 def _spectrum_map(args) -> int:
-    import numpy as np
 
+    from flakebook.pipeline_maps import empty_pixels, layer_counts, with_snr
     from flakebook.spectra.io import read_map
     from flakebook.spectra.maps import analyse_map
 
@@ -357,9 +357,8 @@ def _spectrum_map(args) -> int:
         )
         files = write_maps(res, Path(args.out_dir), Path(path).stem) if args.out_dir else []
         layers = res.maps["layers"]
-        counts = {
-            str(int(n)): int(np.sum(layers == n)) for n in np.unique(layers[np.isfinite(layers)])
-        }
+        empty = empty_pixels(with_snr(res))
+        counts = layer_counts(layers, empty)
         rows.append(
             {
                 "path": path,
@@ -369,6 +368,7 @@ def _spectrum_map(args) -> int:
                 "modes": list(res.fit.modes),
                 "maps": sorted(res.maps),
                 "layer_counts": counts,
+                "empty_pixels": int(empty.sum()),
                 "files": files,
                 "warnings": list(res.warnings),
             }

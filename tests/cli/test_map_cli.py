@@ -87,6 +87,8 @@ def test_map_is_stored_on_its_image_with_its_placement(tmp_path, capsys, project
     row = json.loads(out)["maps"][0]
     assert row["image_id"] == 1 and row["offset_um"] == [3.0, 2.5] and row["shape"] == [4, 6]
     assert not row["warnings"], row["warnings"]
+    assert row["empty_pixels"] == 8 and row["layer_counts"]["1"] == 8, "bare pixels are not 1L"
+    assert sum(row["layer_counts"].values()) == 16
     with Project.open(project, read_only=True) as p:
         rec = p.raman_maps_on(1)[0]
         assert rec.id == row["map_id"] and rec.sample_id == 1 and rec.source_sha256 == sha(path)
