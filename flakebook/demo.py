@@ -10,7 +10,9 @@ simple line shapes at invented positions and fitted by the program (flakebook.pi
 Raman and PL evidence. One flake (K7N-02) lies on an invented polymer residue that makes it look
 one layer thicker: its contrast says 3L, its Raman is ambiguous, and a drawn low-frequency
 spectrum (shear and breathing modes) settles 2L; the conflict is shown and a manual assignment
-records why.
+records why. A Raman map across K7N-01 (its monolayer, its thicker terrace and the bare substrate
+around) is drawn from the same line shapes with each point's layer number, fitted by the program
+and stored over the flake's 50x micrograph.
 """
 
 from __future__ import annotations
@@ -325,7 +327,14 @@ def a1g_position_cm1(layers: int) -> float:
 def raman_spectrum(layers: int, rng: np.random.Generator, *, a1g_shift_cm1: float = 0.0):
     """A drawn Raman spectrum (x in cm^-1, counts) of an N-layer flake on SiO2/Si."""
     x = np.linspace(100.0, 600.0, 1340)
-    a1g = a1g_position_cm1(layers) + a1g_shift_cm1
+    y = raman_mean(layers, x, a1g_shift_cm1=a1g_shift_cm1)
+    y = rng.poisson(np.maximum(y, 0)).astype(float)
+    return x, y
+
+
+def raman_mean(layers: int, x: np.ndarray, *, a1g_shift_cm1: float = 0.0) -> np.ndarray:
+    """The expected counts of :func:`raman_spectrum` (N = 0: the bare substrate's Si line)."""
+    a1g = a1g_position_cm1(max(layers, 1)) + a1g_shift_cm1
     e2g = 287.4 - 0.35 * min(layers, 6)
     y = _lorentz(x, a1g, 4.2, 1800.0 * min(layers, 4) ** 0.6)
     y += _lorentz(x, e2g, 5.0, 260.0 * min(layers, 4) ** 0.5)
@@ -333,8 +342,7 @@ def raman_spectrum(layers: int, rng: np.random.Generator, *, a1g_shift_cm1: floa
         y += _lorentz(x, 352.8, 4.5, 120.0 * min(layers - 1, 4) ** 0.7)
     y += _lorentz(x, 520.7, 3.6, 4200.0 * math.exp(-0.12 * layers))
     y += 60.0 + 0.05 * (x - 100.0)  # a gentle background
-    y = rng.poisson(np.maximum(y, 0)).astype(float)
-    return x, y
+    return y
 
 
 def pl_spectrum(layers: int, rng: np.random.Generator):
@@ -366,6 +374,100 @@ def low_frequency_spectrum(layers: int, rng: np.random.Generator):
         y += _lorentz(x, DEMO_SHEAR_BULK_CM1 * math.cos(math.pi / (2 * layers)), 1.4, 420.0)
         y += _lorentz(x, DEMO_BREATHING_BULK_CM1 * math.sin(math.pi / (2 * layers)), 1.6, 260.0)
     return x, rng.poisson(y).astype(float)
+
+
+# The demo's Raman map: a 27 x 27 raster at 1 um steps across K7N-01 (a monolayer with a
+# thicker terrace beyond a step edge) and the bare substrate around it, in chip coordinates.
+MAP_FLAKE = "K7N-01"
+MAP_STEP_UM = 1.0
+MAP_HALF_SPAN = 13  # grid points either side of the flake's centre
+MAP_COUNTS_SCALE = 0.5  # a map's shorter exposure than the single spectra's
+
+
+def terrace_layers_at(flake: DemoFlake, pts_um: np.ndarray) -> np.ndarray:
+    """The scenario's layer number at chip points (0 off the flake): the truth the map's
+    spectra are drawn with, and that the map's fits are checked against."""
+    import cv2
+
+    poly = flake_polygon_um(flake).astype(np.float32)
+    pts = np.asarray(pts_um, float).reshape(-1, 2)
+    inside = np.array(
+        [cv2.pointPolygonTest(poly, (float(a), float(b)), False) >= 0 for a, b in pts]
+    )
+    out = np.where(inside, flake.layers, 0)
+    if flake.step_layers:
+        n, c = step_line(flake)
+        out = np.where(inside & (pts @ n > c), flake.step_layers, out)
+    return out.astype(int)
+
+
+def map_grid_um(flake: DemoFlake) -> tuple[np.ndarray, np.ndarray]:
+    """The map's x and y positions (chip um)."""
+    k = np.arange(-MAP_HALF_SPAN, MAP_HALF_SPAN + 1) * MAP_STEP_UM
+    return flake.center_um[0] + k, flake.center_um[1] + k
+
+
+def raman_map(flake: DemoFlake, rng: np.random.Generator):
+    """A drawn Raman map across ``flake``: (axis in cm^-1, spectra [row, col, point], x_um,
+    y_um). Each spectrum is the mean spectrum of the layer numbers under the laser spot (a
+    Gaussian of 1/e^2 radius BEAM_RADIUS_UM, 5 x 5 sub-points), with Poisson noise."""
+    x = np.linspace(150.0, 560.0, 548)
+    xs, ys = map_grid_um(flake)
+    sub = np.linspace(-1.0, 1.0, 5) * BEAM_RADIUS_UM
+    sx, sy = np.meshgrid(sub, sub)
+    weight = np.exp(-2.0 * (sx**2 + sy**2) / BEAM_RADIUS_UM**2).ravel()
+    weight /= weight.sum()
+    means = {}
+    cube = np.empty((ys.size, xs.size, x.size))
+    for r, yc in enumerate(ys):
+        for c, xc in enumerate(xs):
+            pts = np.column_stack([xc + sx.ravel(), yc + sy.ravel()])
+            n_at = terrace_layers_at(flake, pts)
+            y = np.zeros_like(x)
+            for n in np.unique(n_at):
+                if n not in means:
+                    means[n] = raman_mean(int(n), x) * MAP_COUNTS_SCALE
+                y += weight[n_at == n].sum() * means[n]
+            cube[r, c] = rng.poisson(np.maximum(y, 0)).astype(float)
+    return x, cube, xs, ys
+
+
+def write_map(path: Path, x, cube, xs, ys) -> None:
+    """A map in flakebook's map text format (docs/spectrum-map-format.md)."""
+    lines = [
+        "# invented demo map across " + MAP_FLAKE,
+        f"# laser: {LASER_NM:g} nm",
+        "# exposure (s): 1",
+        "#flakebook-map x_unit=cm1 kind=raman",
+        "spectral_axis " + " ".join(f"{v:.3f}" for v in x),
+    ]
+    for r, yv in enumerate(ys):
+        for c, xv in enumerate(xs):
+            lines.append(f"{xv:g} {yv:g} " + " ".join(f"{v:.0f}" for v in cube[r, c]))
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+def _add_map(project, folder: Path, rng) -> None:
+    """Draw, write, fit and store the demo's Raman map over the flake's 50x micrograph (placed
+    by the image's stage position: the map's positions are chip coordinates)."""
+    from flakebook.pipeline_maps import find_image, store_map
+    from flakebook.spectra.io import read_map
+    from flakebook.store import Sample
+
+    flake = next(f for f in FLAKES if f.label == MAP_FLAKE)
+    path = folder / "spectra" / f"{MAP_FLAKE}_map_532.txt"
+    write_map(path, *raman_map(flake, rng))
+    image = find_image(project, f"{MAP_FLAKE}_50x")
+    store_map(
+        project,
+        project.get(Sample, image.sample_id),
+        read_map(path),
+        image=image,
+        source_path=path,
+        name=f"{MAP_FLAKE} map",
+        notes="invented demo map: a 1 um raster across the monolayer, its thicker terrace and the "
+        "bare substrate",
+    )
 
 
 def _write_spectrum(path: Path, x: np.ndarray, y: np.ndarray, unit: str) -> None:
@@ -495,6 +597,8 @@ def build_demo(
 
         calibrate_rules(project, north, laser_nm=LASER_NM)
         project.recompute_stale()
+        report(0.75, "Raman map")
+        _add_map(project, folder, np.random.default_rng(20260310))
         report(0.8, "thermometry")
         _add_thermometry(project, folder, flakes, rng, mat, spacing, absorptance)
         project.add_external_result(

@@ -744,7 +744,8 @@ def calibrate_rules(
     project: Project, sample: Sample, *, laser_nm: float = 532.0, flakes=None
 ) -> RuleCalibration:
     """Refit the sample's rule table (flakebook.spectra.rules.calibrate_table) on its flakes of
-    known N and store it on the sample; the fits made before are marked stale."""
+    known N and store it on the sample; the fits (and Raman maps) made before are marked
+    stale."""
     from flakebook.spectra.rules import calibrate_table
 
     obs, used = known_flakes(project, sample, laser_nm, flakes)
@@ -770,6 +771,9 @@ def calibrate_rules(
             for fit in project.spectrum_fits_of_flake(flake):
                 if not fit.stale:
                     project.update(fit, stale=True)
+        for rmap in project.raman_maps_of(sample):  # refitted from their files by recompute
+            if not rmap.stale and abs(rmap.laser_nm - float(laser_nm)) <= 5.0:
+                project.update(rmap, stale=True)
     return rec
 
 

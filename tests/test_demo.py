@@ -121,3 +121,43 @@ def test_demo_has_every_kind_of_record(fresh):
         counts = p.info()["counts"]
     for kind, n in counts.items():
         assert n > 0, f"the demo has no {kind} records"
+
+
+def test_raman_map_reads_the_layers_of_the_terraces_it_covers(fresh):
+    """The demo's Raman map over K7N-01 is stored on its 50x micrograph, and the program's fits
+    read the layer numbers its spectra were drawn with: the flake's monolayer (B2g(1) absent in
+    1L, Tonndorf et al., Opt. Express 21, 4908 (2013)) and its thicker terrace, and the bare
+    substrate around stays empty. The truth is the demo's own terrace layer numbers
+    (demo.terrace_layers_at, given to the spectrum drawing); the layer numbers are the fits'.
+    Interior pixels only (all 3 x 3 neighbours of one class): at an edge the laser spot sees
+    both sides."""
+    import cv2
+    import numpy as np
+
+    from flakebook.pipeline_maps import empty_mask, find_image
+
+    flake = next(f for f in demo.FLAKES if f.label == demo.MAP_FLAKE)
+    with Project.open(fresh / demo.PROJECT_NAME, read_only=True) as p:
+        (rec,) = p.raman_maps_of()
+        image = find_image(p, f"{demo.MAP_FLAKE}_50x")
+        assert rec.image_id == image.id and rec.flakebook_version and rec.settings["laser_nm"]
+        layers, empty = rec.quantity("layers"), empty_mask(rec)
+        # placed by the image's stage position: the map's chip coordinates land on the pixels
+        # where the micrograph was rendered (demo.View.to_px)
+        view = next(v for v in [demo.View("v", flake.sample, "50x", flake.center_um, 800, 600)])
+        px = view.to_px(np.array([[rec.x_um[0], rec.y_um[0]]]))[0]
+        s = image.pixel_size_um
+        assert (rec.offset_x_um + rec.x_um[0]) / s == pytest.approx(px[0], abs=1e-6)
+        assert (rec.offset_y_um + rec.y_um[0]) / s == pytest.approx(px[1], abs=1e-6)
+    gx, gy = np.meshgrid(rec.x_um, rec.y_um)
+    truth = demo.terrace_layers_at(flake, np.column_stack([gx.ravel(), gy.ravel()]))
+    truth = truth.reshape(layers.shape)
+    kernel = np.ones((3, 3), np.uint8)
+    for n in (0, flake.layers, flake.step_layers):
+        inner = cv2.erode((truth == n).astype(np.uint8), kernel) > 0
+        assert inner.sum() >= 20, f"the map covers too little of {n}L"
+        if n == 0:
+            assert np.all(empty[inner]), "bare substrate is empty, never a layer number"
+        else:
+            read = np.where(empty, 0, layers)[inner]
+            assert np.mean(read == n) >= 0.97, (n, np.unique(read, return_counts=True))

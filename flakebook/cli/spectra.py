@@ -77,6 +77,24 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="DIR",
         help="with --map: write each map as .npy, .csv and .png into DIR",
     )
+    p.add_argument(
+        "--image",
+        metavar="ID",
+        help="with --map --project: the micrograph the map was taken over (its id or file name); "
+        "the map is stored on its sample",
+    )
+    p.add_argument(
+        "--sample",
+        metavar="NAME",
+        help="with --map --project and no --image: the sample the map was taken on",
+    )
+    p.add_argument(
+        "--offset-um",
+        metavar="X,Y",
+        help="with --image: where the map's origin (x_um = 0, y_um = 0) lies, in um from the "
+        "image's top-left pixel centre, x right, y down (default: the map's positions are chip "
+        "coordinates, placed by the image's stage position)",
+    )
     p.add_argument("--max-layers", type=int, default=15, help="N_max of the likelihoods")
     add_format_option(p)
     p.set_defaults(func=_spectrum)
@@ -119,8 +137,28 @@ def _row(path: str, analysis, max_layers: int) -> dict:
 
 
 def _check_project_options(args) -> None:
-    if (args.project is None) != (args.flake is None):
-        raise InputError("--project and --flake go together: the flake the spectra were taken on")
+    if args.map:
+        if args.flake is not None:
+            raise InputError(
+                "--map stores a map on a sample and its image, not on a flake; accepted: "
+                "--project P --image ID [--offset-um X,Y] (or --sample NAME)"
+            )
+        if args.project is not None and args.image is None and args.sample is None:
+            raise InputError(
+                "--map --project needs the micrograph the map was taken over (--image ID) or its "
+                "sample (--sample NAME)"
+            )
+        if args.project is None and (args.image or args.sample or args.offset_um):
+            raise InputError("--image, --sample and --offset-um go with --map --project P")
+        if args.offset_um is not None and args.image is None:
+            raise InputError("--offset-um places the map on an image; give --image ID with it")
+    else:
+        if args.image or args.sample or args.offset_um:
+            raise InputError("--image, --sample and --offset-um go with --map (Raman maps)")
+        if (args.project is None) != (args.flake is None):
+            raise InputError(
+                "--project and --flake go together: the flake the spectra were taken on"
+            )
     if args.out_dir and not args.map:
         raise InputError("--out-dir goes with --map (the maps are written there)")
     if args.laser_nm is not None:
@@ -290,17 +328,23 @@ def write_maps(result, out_dir: Path, stem: str) -> list[str]:
 
 
 def _spectrum_map(args) -> int:
-    import numpy as np
 
+    from flakebook.pipeline_maps import empty_pixels, layer_counts, with_snr
     from flakebook.spectra.io import read_map
     from flakebook.spectra.maps import analyse_map
 
-    if args.project is not None:
-        raise InputError("--map results are written to files (--out-dir), not attached to a flake")
     if args.kind != "raman":
         raise InputError("--map reads Raman maps; accepted: --kind raman")
     maps = [(path, read_map(path)) for path in args.files]
+    for path, m in maps:
+        if m.kind != "raman":
+            raise InputError(
+                f"{path}: a {m.kind.upper()} map (kind={m.kind}); layer maps are read from Raman "
+                "maps; accepted: a map file whose '#flakebook-map' line says kind=raman"
+            )
     progress, cancel = Progress(), cancel_event()
+    if args.project is not None:
+        return _store_maps(args, maps, progress, cancel)
     rows = []
     for path, m in maps:
         res = analyse_map(
@@ -313,9 +357,8 @@ def _spectrum_map(args) -> int:
         )
         files = write_maps(res, Path(args.out_dir), Path(path).stem) if args.out_dir else []
         layers = res.maps["layers"]
-        counts = {
-            str(int(n)): int(np.sum(layers == n)) for n in np.unique(layers[np.isfinite(layers)])
-        }
+        empty = empty_pixels(with_snr(res))
+        counts = layer_counts(layers, empty)
         rows.append(
             {
                 "path": path,
@@ -325,6 +368,7 @@ def _spectrum_map(args) -> int:
                 "modes": list(res.fit.modes),
                 "maps": sorted(res.maps),
                 "layer_counts": counts,
+                "empty_pixels": int(empty.sum()),
                 "files": files,
                 "warnings": list(res.warnings),
             }
@@ -336,6 +380,56 @@ def _spectrum_map(args) -> int:
         for r in rows
     )
     emit(args, payload, text=text)
+    return 0
+
+
+def _store_maps(args, maps, progress, cancel) -> int:
+    """Fit each map with the sample's rule table and store it on the sample and image (all maps
+    in one transaction: a failure stores none)."""
+    from flakebook import pipeline_maps as pm
+    from flakebook.store import Project, Sample
+
+    offset = pm.parse_offset(args.offset_um) if args.offset_um is not None else None
+    rows, texts = [], []
+    with Project.open(args.project) as project:
+        image = pm.find_image(project, args.image) if args.image is not None else None
+        if image is not None:
+            sample = project.get(Sample, image.sample_id)
+            if args.sample is not None and args.sample != sample.name:
+                raise InputError(
+                    f"image {image.id} is of sample {sample.name}, not {args.sample}; accepted: "
+                    f"--sample {sample.name} (or leave it out)"
+                )
+        else:
+            sample = project.sample_by_name(args.sample)
+            if sample is None:
+                names = ", ".join(s.name for s in project.samples())
+                raise InputError(f"no sample {args.sample!r} in {args.project}; accepted: {names}")
+        if sample.material != args.material:
+            raise InputError(
+                f"sample {sample.name} is {sample.material}, not {args.material}; accepted: "
+                f"--material {sample.material}"
+            )
+        with project.transaction():
+            for path, m in maps:
+                got = pm.store_map(
+                    project, sample, m, image=image, offset_um=offset, source_path=path,
+                    laser_nm=args.laser_nm, progress=progress, cancel=cancel,
+                )  # fmt: skip
+                files = []
+                if args.out_dir:
+                    files = write_maps(got.result, Path(args.out_dir), Path(path).stem)
+                row = {"path": path, **pm.map_summary(got.record), "files": files}
+                row["warnings"] = got.warnings
+                rows.append(row)
+    for r in rows:
+        where = f"image {r['image_id']}" if r["image_id"] is not None else "no image"
+        texts.append(
+            f"{r['path']}: map {r['map_id']} stored ({r['shape'][0]} x {r['shape'][1]} spectra, "
+            f"{where}); layers {r['layer_counts']}, {r['empty_pixels']} without flake lines"
+        )
+        texts += [f"  warning: {w}" for w in r["warnings"]]
+    emit(args, {"maps": rows}, text="\n".join(texts))
     return 0
 
 

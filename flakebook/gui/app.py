@@ -11,6 +11,8 @@ from flakebook.errors import InputError
 
 #: Views that show one flake: `--show NAME:ID`.
 PER_FLAKE = ("spectra", "thermal")
+#: Views that show one stored record of their own: `--show map:ID` (a Raman map's id or name).
+PER_RECORD = ("map",)
 
 
 def _headless() -> bool:
@@ -36,15 +38,16 @@ def _prepare_platform(offscreen: bool) -> None:
 
 def parse_show(text: str | None) -> tuple[str, str | None]:
     """A registered view's name (``image``, ``catalogue``, ``spectra``, ...) | ``flake:ID`` |
-    ``spectra:ID`` | ``thermal:ID`` -> (view, argument)."""
+    ``spectra:ID`` | ``thermal:ID`` | ``map:ID`` (a Raman map) -> (view, argument)."""
     from flakebook.gui.views import NAMES
 
-    accepted = ", ".join(sorted([*NAMES, "flake:ID", *(f"{n}:ID" for n in PER_FLAKE)]))
+    per_id = (*PER_FLAKE, *PER_RECORD)
+    accepted = ", ".join(sorted([*NAMES, "flake:ID", *(f"{n}:ID" for n in per_id)]))
     if not text:
         return "image", None
     view, _, arg = text.partition(":")
     view = view.strip().lower()
-    if view in ("flake", *PER_FLAKE) and arg.strip():
+    if view in ("flake", *per_id) and arg.strip():
         return view, arg.strip()
     if view in NAMES and not arg:
         return view, None  # a per-flake view without ID shows the selected flake (or none)
@@ -144,7 +147,15 @@ def _tear_down(app, window) -> None:
 
 def show_view(window, view: str, arg: str | None) -> None:
     """Put the window in the state ``--show`` names: a view in front, or a flake selected."""
-    if view in ("flake", *PER_FLAKE) and arg:
+    if view in PER_RECORD and arg:
+        if window.session is None:
+            raise InputError(f"--show {view}:ID needs a project")
+        from flakebook.pipeline_maps import find_map
+
+        rec = find_map(window.session.project, arg)
+        window.show_view(view)
+        window.map_view.show_map(window.session, rec.id)
+    elif view in ("flake", *PER_FLAKE) and arg:
         if window.session is None:
             raise InputError(f"--show {view}:ID needs a project")
         flake = window.session.project.find_flake(arg)

@@ -649,6 +649,6 @@ def read_map(
         x_unit=unit,
         laser_nm=meta.get("laser_nm"),
         detector_limit=detector_limit,
-        unit_stated=True,
+        unit_stated="x_unit" in opts,  # a default cm1 axis that looks like nm is told so
     )
     return SpectrumMap(axis_arr, cube, xs, ys, unit, kind, meta)

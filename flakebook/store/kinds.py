@@ -36,6 +36,7 @@ from flakebook.store.records import (
     Hole,
     HolePattern,
     Image,
+    RamanMap,
     Record,
     RuleCalibration,
     Sample,
@@ -128,6 +129,13 @@ class RecordKinds:
             )
         if isinstance(rec, SpectrumFit) and rec.flake_id is None:
             rec = dataclasses.replace(rec, flake_id=self.get(Spectrum, rec.spectrum_id).flake_id)
+        if isinstance(rec, RamanMap) and rec.image_id is not None:
+            image = self.get(Image, rec.image_id)
+            if image.sample_id != rec.sample_id:
+                raise InputError(
+                    f"image {image.id} is of another sample than the map; accepted: an image of "
+                    "the sample the map was taken on"
+                )
         if isinstance(rec, RuleCalibration) and rec.created_at is None:
             rec = dataclasses.replace(rec, created_at=self.now())
         if isinstance(rec, ExternalResult) and rec.imported_at is None:
@@ -421,6 +429,13 @@ class RecordKinds:
             )
         )
 
+    def add_raman_map(self, sample: RecordRef, **fields: Any) -> RamanMap:
+        """Store a Raman map's fits (:class:`RamanMap`: ``x_um``, ``y_um``, ``quantities``,
+        ``maps``, ``material``, ``laser_nm``, ``method``, ``settings``; ``image_id`` with
+        ``offset_x_um``/``offset_y_um`` to place it on a micrograph)."""
+        fields = {k: id_of(v) if isinstance(v, Record) else v for k, v in fields.items()}
+        return self.add(RamanMap(sample_id=id_of(sample), **fields))
+
     # ---- lookups -------------------------------------------------------------------------
 
     def sample_by_name(self, name: str) -> Sample | None:
@@ -529,6 +544,16 @@ class RecordKinds:
     def spectrum_fits_of_flake(self, flake: RecordRef) -> list[SpectrumFit]:
         """The spectrum fits of a flake, oldest first."""
         return self._select(SpectrumFit, "flake_id = ?", (id_of(flake),))
+
+    def raman_maps_of(self, sample: RecordRef | None = None) -> list[RamanMap]:
+        """The Raman maps of a sample (of every sample without one), oldest first."""
+        if sample is None:
+            return self._select(RamanMap)
+        return self._select(RamanMap, "sample_id = ?", (id_of(sample),))
+
+    def raman_maps_on(self, image: RecordRef) -> list[RamanMap]:
+        """The Raman maps placed on an image, oldest first."""
+        return self._select(RamanMap, "image_id = ?", (id_of(image),))
 
     def rule_calibrations_of(
         self, sample: RecordRef, laser_nm: float | None = None

@@ -47,7 +47,11 @@ def registered_recomputers(extra: Mapping[str, Recomputer] | None = None) -> dic
 
 #: Modules that register recompute functions when imported (the packages that compute derived
 #: records add themselves here, e.g. ``"flakebook.optics.recompute"``).
-RECOMPUTER_MODULES: tuple[str, ...] = ("flakebook.pipeline", "flakebook.pipeline_thermal")
+RECOMPUTER_MODULES: tuple[str, ...] = (
+    "flakebook.pipeline",
+    "flakebook.pipeline_thermal",
+    "flakebook.pipeline_maps",
+)
 
 
 def load_recomputers() -> list[str]:

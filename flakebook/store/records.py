@@ -2,7 +2,7 @@
 
 Every record has ``id`` (None until stored) and ``revision`` (0 until stored, then 1, bumped on
 every update). Derived records (:class:`Evidence`, :class:`Assignment`,
-:class:`ThermometryResult`, :class:`SpectrumFit`) also carry their provenance: the ``inputs`` they were computed from
+:class:`ThermometryResult`, :class:`SpectrumFit`, :class:`RamanMap`) also carry their provenance: the ``inputs`` they were computed from
 (record kind, id and revision), the ``method`` and its ``parameters``, the flakebook version and
 a ``stale`` mark set when an input changes.
 
@@ -706,7 +706,7 @@ class Calibration(Record):
 
 
 # Spectrum fits and calibrated rule tables are written in their own module, on the classes above.
-from flakebook.store.records_spectra import RuleCalibration, SpectrumFit  # noqa: E402
+from flakebook.store.records_spectra import RamanMap, RuleCalibration, SpectrumFit  # noqa: E402
 
 RECORD_TYPES: tuple[type[Record], ...] = (
     Sample,
@@ -726,6 +726,7 @@ RECORD_TYPES: tuple[type[Record], ...] = (
     Calibration,
     SpectrumFit,
     RuleCalibration,
+    RamanMap,
 )
 KINDS: dict[str, type[Record]] = {cls.KIND: cls for cls in RECORD_TYPES}
 DERIVED_KINDS = tuple(cls.KIND for cls in RECORD_TYPES if cls.DERIVED)
@@ -788,6 +789,7 @@ __all__ = [
     "Calibration",
     "SpectrumFit",
     "RuleCalibration",
+    "RamanMap",
     "KINDS",
     "DERIVED_KINDS",
     "record_type",

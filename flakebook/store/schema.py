@@ -20,6 +20,11 @@ Version history:
   5. a layer calibration keeps its whole fit (``calibrations.model``: the JSON of
      ``flakebook calibrate``, with the n,k coefficients and residuals) and when it was made
      (``calibrations.created_at``).
+  6. Raman maps (``raman_maps``): a map's fitted quantities (one float64 array of shape
+     (quantities, rows, cols) with their names), its grid, the sample it was taken on and
+     optionally the micrograph it was taken over with its placement (``offset_x_um``,
+     ``offset_y_um``: where the map's coordinate origin lies, in um from the image's pixel
+     origin, along the image's axes), its settings and provenance.
 """
 
 from __future__ import annotations
@@ -30,7 +35,7 @@ from collections.abc import Callable
 
 #: "FLKB": marks a SQLite file as a flakebook project.
 APPLICATION_ID = 0x464C4B42
-SCHEMA_VERSION = 5
+SCHEMA_VERSION = 6
 
 _PROVENANCE = """
     method TEXT NOT NULL DEFAULT '',
@@ -387,12 +392,50 @@ def _v4_to_v5(con: sqlite3.Connection) -> None:
     con.execute("ALTER TABLE calibrations ADD COLUMN created_at TEXT")
 
 
+def _v5_to_v6(con: sqlite3.Connection) -> None:
+    """Raman maps."""
+    for statement in _V6_TABLES.split(";"):
+        if statement.strip():
+            con.execute(statement)
+
+
+_V6_TABLES = f"""
+CREATE TABLE raman_maps (
+    id INTEGER PRIMARY KEY,
+    revision INTEGER NOT NULL DEFAULT 1,
+    {_PROVENANCE}
+    source TEXT NOT NULL DEFAULT '',
+    sample_id INTEGER NOT NULL REFERENCES samples(id) ON DELETE CASCADE,
+    image_id INTEGER REFERENCES images(id) ON DELETE SET NULL,
+    offset_x_um REAL,
+    offset_y_um REAL,
+    name TEXT NOT NULL DEFAULT '',
+    kind TEXT NOT NULL DEFAULT 'raman',
+    material TEXT NOT NULL,
+    laser_nm REAL NOT NULL,
+    max_layers INTEGER NOT NULL,
+    x_um BLOB NOT NULL,
+    y_um BLOB NOT NULL,
+    quantities TEXT NOT NULL DEFAULT '[]',
+    maps BLOB NOT NULL,
+    settings TEXT NOT NULL DEFAULT '{{}}',
+    warnings TEXT NOT NULL DEFAULT '[]',
+    source_path TEXT NOT NULL DEFAULT '',
+    source_sha256 TEXT NOT NULL DEFAULT '',
+    notes TEXT NOT NULL DEFAULT ''
+);
+CREATE INDEX raman_maps_sample ON raman_maps(sample_id);
+CREATE INDEX raman_maps_image ON raman_maps(image_id)
+"""
+
+
 #: MIGRATIONS[v] brings a file from version v to v + 1 (run inside one transaction).
 MIGRATIONS: dict[int, Callable[[sqlite3.Connection], None]] = {
     1: _v1_to_v2,
     2: _v2_to_v3,
     3: _v3_to_v4,
     4: _v4_to_v5,
+    5: _v5_to_v6,
 }
 
 

@@ -169,7 +169,29 @@ def populate(p: Project, folder: Path) -> dict:
         flakes_used=("K7N-α01",),
         method="known flakes",
     )
+    rmap = p.add_raman_map(
+        s,
+        image_id=img.id,
+        offset_x_um=-3.5,
+        offset_y_um=12.25,
+        name="K7N-α01 Karte",
+        material="MoSe2",
+        laser_nm=532.0,
+        max_layers=15,
+        x_um=np.array([0.0, 0.5, 1.0]),
+        y_um=np.array([0.0, 0.5]),
+        quantities=("A1g_center_cm1", "layers"),
+        maps=np.array(
+            [[[241.0, np.nan, 241.5], [240.9, 241.1, 241.2]], [[1, np.nan, 2], [1, 1, 2]]]
+        ),
+        settings={"laser_nm": 532.0, "shift_cm1": 0.0},
+        warnings=("eine Warnung",),
+        method="Raman map fit",
+        source_path="maps/k7n_α01.txt",
+        inputs=[rules],
+    )
     return {
+        "raman_map": rmap,
         "spectrum_fit": fit,
         "rule_calibration": rules,
         "sample": s,

@@ -153,3 +153,49 @@ def test_v3_file_takes_spectrum_fits_and_rule_calibrations(tmp_path):
     with Project.open(path, read_only=True) as q:
         assert q.fits_of(1)[0].settings == {"peak_model": "voigt"}
         assert q.rule_calibrations_of(1, 532.0)[0].material == "MoSe2"
+
+
+def test_v5_file_takes_raman_maps(tmp_path):
+    """A version-5 file opens upgraded to version 6 with nothing lost; a Raman map's fits are
+    stored on its sample and image and read back, NaN (no line) kept (common practice, no
+    source)."""
+    path = tmp_path / "v5.flakebook"
+    _old_file(path, 5)
+    with Project.open(path) as p:
+        assert p.schema_version == 6
+        assert p.get("image", 1).sample_id == 1
+        maps = np.array([[[241.2, np.nan]], [[1.0, np.nan]]])
+        rec = p.add_raman_map(
+            1, image_id=1, offset_x_um=2.0, offset_y_um=-1.5, material="MoSe2", laser_nm=532.0,
+            x_um=np.array([0.0, 1.0]), y_um=np.array([0.0]),
+            quantities=("A1g_center_cm1", "layers"), maps=maps, method="Raman map fit",
+        )  # fmt: skip
+        assert rec.flakebook_version, "the store records the flakebook version"
+    with Project.open(path, read_only=True) as q:
+        got = q.raman_maps_on(1)[0]
+        assert got.id == rec.id and got.offset_x_um == 2.0 and got.offset_y_um == -1.5
+        assert np.array_equal(got.quantity("layers"), maps[1], equal_nan=True)
+        assert q.raman_maps_of(1)[0].shape == (1, 2)
+
+
+def test_a_map_on_an_image_needs_its_offset_and_the_same_sample(tmp_path):
+    """Placement is refused when half given or on another sample's image (common practice,
+    no source)."""
+    from flakebook.errors import InputError
+
+    path = tmp_path / "v5.flakebook"
+    _old_file(path, 5)
+    base = dict(
+        material="MoSe2", laser_nm=532.0, x_um=[0.0], y_um=[0.0], quantities=("layers",),
+        maps=[[[1.0]]], method="Raman map fit",
+    )  # fmt: skip
+    with Project.open(path) as p:
+        with pytest.raises(InputError, match="offset"):
+            p.add_raman_map(1, image_id=1, **base)
+        with pytest.raises(InputError, match="another sample"):
+            p.add_raman_map(2, image_id=1, offset_x_um=0.0, offset_y_um=0.0, **base)
+        with pytest.raises(InputError, match="accepted: raman"):
+            p.add_raman_map(1, kind="pl", **base)
+        with pytest.raises(InputError, match="shape"):
+            p.add_raman_map(1, **{**base, "maps": [[[1.0, 2.0]]]})
+        assert p.raman_maps_of() == []

@@ -19,7 +19,7 @@ def assert_same(a, b):
         va, vb = getattr(a, f.name), getattr(b, f.name)
         if isinstance(va, np.ndarray) or isinstance(vb, np.ndarray):
             assert va is not None and vb is not None, f.name
-            assert va.shape == vb.shape and np.array_equal(va, vb), f.name
+            assert va.shape == vb.shape and np.array_equal(va, vb, equal_nan=True), f.name
         else:
             assert va == vb, f"{type(a).__name__}.{f.name}: {va!r} != {vb!r}"
 
