@@ -256,11 +256,14 @@ def store_map(
     notes: str = "",
     progress: Callable[[float, str], None] | None = None,
     cancel=None,
+    analysed=None,
 ) -> StoredMap:
     """Fit ``spectrum_map`` with the sample's rule table and store its maps (one transaction).
 
     ``image`` places it on a micrograph of the sample, at ``offset_um`` (module docstring; by
-    the stage positions when None). A map lying outside the image is stored with a warning."""
+    the stage positions when None). A map lying outside the image is stored with a warning.
+    ``analysed``: the (result, laser_nm) of :func:`analyse` with the sample's rule table, made
+    beforehand (e.g. in a worker thread), so the fits are not made twice."""
     from flakebook.pipeline_spectra import rule_table_for
     from flakebook.store._util import sha256_file
 
@@ -280,15 +283,18 @@ def store_map(
         offset_um = offset_from_stage(img)
     laser = laser_nm or float(spectrum_map.metadata.get("laser_nm", 532.0))
     table, calibration = rule_table_for(project, sample, laser)
-    result, laser = analyse(
-        spectrum_map,
-        sample.material,
-        laser_nm=laser,
-        table=table,
-        max_layers=project.max_layers,
-        progress=progress,
-        cancel=cancel,
-    )
+    if analysed is not None:
+        result, laser = analysed
+    else:
+        result, laser = analyse(
+            spectrum_map,
+            sample.material,
+            laser_nm=laser,
+            table=table,
+            max_layers=project.max_layers,
+            progress=progress,
+            cancel=cancel,
+        )
     fields = _fields(result, laser, calibration)
     if source_path is not None:
         path = Path(source_path)

@@ -173,3 +173,54 @@ def test_switching_to_an_unplaced_map_drops_the_micrograph(window, stored):
     assert not view.over.isEnabled(), "nothing to lay the map over"
     view.chooser.setCurrentIndex(view.chooser.findData(stored[0].id))
     assert view.photo_items and view.image is not None
+
+
+def _write_map_file(path, smap, origin_um):
+    """The map in flakebook's map text format (docs/spectrum-map-format.md), its positions as
+    chip coordinates (``origin_um`` added)."""
+    rows = ["# laser: 532 nm", "#flakebook-map x_unit=cm1 kind=raman"]
+    rows.append("spectral_axis " + " ".join(f"{v:.4f}" for v in smap.x))
+    for r, yv in enumerate(smap.y_um):
+        for c, xv in enumerate(smap.x_um):
+            vals = " ".join(f"{v:.2f}" for v in smap.spectra[r, c])
+            rows.append(f"{xv + origin_um[0]:.3f} {yv + origin_um[1]:.3f} {vals}")
+    path.write_text("\n".join(rows) + "\n")
+    return path
+
+
+def test_import_a_map_file_from_the_view_fits_it_in_a_worker_and_undo_removes_it(
+    qtbot, window, tmp_path
+):
+    """The view's import lays the map on the micrograph shown by its stage position; the
+    stored layer map reads the flakes it was drawn over."""
+    from flakebook.pipeline_maps import empty_mask, find_map
+    from flakebook.store import Image
+
+    p = window.session.project
+    img = p.get(Image, 1)
+    # the image's centre at chip (100, 50) um: pixel origin at chip (100, 50) - half the frame
+    p.update(img, stage_x_um=100.0, stage_y_um=50.0)
+    img = p.get(Image, 1)
+    half = ((img.width_px - 1) / 2 * img.pixel_size_um, (img.height_px - 1) / 2 * img.pixel_size_um)
+    origin = (100.0 - half[0] + OFFSET_UM[0], 50.0 - half[1] + OFFSET_UM[1])
+    smap, truth = drawn_map()
+    path = _write_map_file(tmp_path / "q3w_map.txt", smap, origin)
+    window.show_image(1)
+    job = window.import_map(path, 1)
+    qtbot.waitUntil(lambda: not window.jobs.busy, timeout=60000)
+    assert job is not None
+    maps = p.raman_maps_of()
+    assert len(maps) == 1 and maps[0].image_id == 1
+    rec = find_map(p, maps[0].id)
+    layers = rec.maps[list(rec.quantities).index("layers")]
+    on_flake = ~empty_mask(rec) & (truth > 0)
+    assert on_flake.sum() > 50
+    assert np.mean(layers[on_flake] == truth[on_flake]) > 0.9
+    assert not np.any(~empty_mask(rec) & (truth == 0))  # bare substrate stays empty
+    # laid where it was drawn: its first point OFFSET_UM from the image's pixel origin (the
+    # stored offset places the map's chip origin on the image)
+    first = (rec.offset_x_um + smap.x_um[0] + origin[0], rec.offset_y_um + smap.y_um[0] + origin[1])
+    assert first == pytest.approx(OFFSET_UM, abs=1e-6)
+    assert window.tabs.currentWidget() is window.views["map"]
+    window.undo_stack.undo()
+    assert not p.raman_maps_of()

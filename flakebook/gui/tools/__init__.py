@@ -18,6 +18,7 @@ from flakebook.gui.tools import (
     measure,
     merge,
     outline,
+    ramanmap,
     scale,
     segment,
     select,
@@ -27,7 +28,20 @@ from flakebook.gui.tools import (
 from flakebook.gui.tools.base import CanvasTool
 
 #: Every tool, in the order of the toolbar.
-MODULES = (select, outline, segment, hole, scale, measure, split, merge, link, spectra, evidence)
+MODULES = (
+    select,
+    outline,
+    segment,
+    hole,
+    scale,
+    measure,
+    split,
+    merge,
+    link,
+    spectra,
+    evidence,
+    ramanmap,
+)
 
 CANVAS_TOOLS: dict[str, CanvasTool] = {m.TOOL.name: m.TOOL for m in MODULES if hasattr(m, "TOOL")}
 SESSION_PARTS: tuple[type, ...] = tuple(

@@ -125,12 +125,19 @@ class MapView(QWidget):
         self.opacity.setToolTip("Opacity of the map over the micrograph")
         self.png = QPushButton("Export PNG…", self)
         self.arrays = QPushButton("Export arrays…", self)
+        self.import_button = QPushButton("Import map…", self)
+        self.import_button.setObjectName("mapImport")
+        self.import_button.setToolTip(
+            "Fit a Raman map file (flakebook map text format) and lay it on the micrograph shown "
+            "in the Image tab, by its stage position (undoable)"
+        )
         bar = QHBoxLayout()
         bar.addWidget(QLabel("Map", self))
         bar.addWidget(self.chooser)
         bar.addWidget(QLabel("Show", self))
         bar.addWidget(self.quantity)
         bar.addStretch(1)
+        bar.addWidget(self.import_button)
         tools = QHBoxLayout()
         tools.addWidget(self.over)
         tools.addWidget(QLabel("opacity", self))
@@ -522,6 +529,9 @@ def connect(window, view: MapView) -> None:
     # another project (or none): nothing of the old one stays on screen
     window.projectChanged.connect(
         lambda: window._guard(lambda: view.show_map(window.session), "Raman map")
+    )
+    view.import_button.clicked.connect(
+        lambda: window._guard(window.import_map_dialog, "Import Raman map")
     )
     view.png.clicked.connect(lambda: window._guard(view._png_dialog, "Export map"))
     view.arrays.clicked.connect(lambda: window._guard(view._arrays_dialog, "Export map"))
