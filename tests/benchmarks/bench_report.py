@@ -21,6 +21,7 @@ os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 
 
 def figures_only(project, content) -> int:
+    from flakebook.render.chipmap import chip_map_png
     from flakebook.render.figures import (
         contrast_figure,
         kappa_figure,
@@ -28,8 +29,6 @@ def figures_only(project, content) -> int:
         spectrum_figure,
     )
     from flakebook.render.report import _card_png
-
-    from flakebook.render.chipmap import chip_map_png
 
     n = 0
     kappa_figure(content.kappa_rows)
