@@ -14,7 +14,12 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="FILE.png",
         help="render the window offscreen to a PNG and exit (opens the project read-only)",
     )
-    p.add_argument("--show", default=None, help="catalogue | flake:ID | image")
+    p.add_argument(
+        "--show",
+        default=None,
+        help="the view to render: image | catalogue | flake:ID | spectra:ID | thermal:ID | "
+        "kappa | chip:SAMPLE (the sample's chip map)",
+    )
     p.add_argument("--read-only", action="store_true", help="open the project read-only")
     p.set_defaults(func=_open)
 

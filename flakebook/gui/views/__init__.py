@@ -38,7 +38,7 @@ class View:
 
 
 #: Every view, in the order of the tabs.
-NAMES = ("image", "catalogue", "spectra", "thermal", "kappa")
+NAMES = ("image", "catalogue", "spectra", "thermal", "kappa", "chip")
 
 
 def module(name: str) -> ModuleType:
