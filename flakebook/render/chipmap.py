@@ -62,7 +62,8 @@ _SELECT = QColor("#000000")
 @dataclass(frozen=True)
 class MapFrame:
     """Where the chip sits on the drawing: chip um (x0, y0) at pixel (left, top), ``scale``
-    pixels per um, the same on both axes; ``plot`` is the drawn area in pixels."""
+    pixels per um, the same on both axes; ``plot`` is the drawn part in pixels, ``area`` the
+    room the map was given (the plot fills it when zoomed in)."""
 
     x0_um: float
     y0_um: float
@@ -70,6 +71,8 @@ class MapFrame:
     top: float
     scale: float
     plot: QRectF
+    area: QRectF | None = None
+    zoom: float = 1.0
 
     def to_px(self, x_um, y_um) -> tuple[float, float]:
         return self.left + (x_um - self.x0_um) * self.scale, self.top + (
@@ -244,18 +247,23 @@ def paint_chip_map(
     selected: int | None = None,
     max_layers: int = 15,
     title: str | None = None,
+    zoom: float = 1.0,
+    centre_um: tuple[float, float] | None = None,
 ) -> MapFrame | None:
     """Draw the map of ``m`` on ``p`` in a ``width`` x ``height`` pixel area; returns the frame
     (um to pixels) or None for a map with nothing placed. ``pattern`` is the sample's hole
-    pattern (a HolePattern or None) for the legend, ``selected`` a flake id drawn marked."""
+    pattern (a HolePattern or None) for the legend, ``selected`` a flake id drawn marked.
+    ``zoom`` above 1 magnifies the whole-chip view that many times about ``centre_um``
+    (default: the chip's centre), the plot then filling the room it has."""
     p.save()
     try:
-        return _paint(p, m, width, height, pattern, selected, max_layers, title)
+        return _paint(p, m, width, height, pattern, selected, max_layers, title, zoom,
+                      centre_um)  # fmt: skip
     finally:
         p.restore()
 
 
-def _paint(p, m, width, height, pattern, selected, max_layers, title):
+def _paint(p, m, width, height, pattern, selected, max_layers, title, zoom, centre_um):
     p.setRenderHint(QPainter.RenderHint.Antialiasing)
     p.setRenderHint(QPainter.RenderHint.TextAntialiasing)
     p.fillRect(QRectF(0, 0, width, height), QColor("white"))
@@ -267,15 +275,6 @@ def _paint(p, m, width, height, pattern, selected, max_layers, title):
         Qt.AlignmentFlag.AlignLeft | Qt.AlignmentFlag.AlignVCenter,
         title if title is not None else f"Chip map of {m.sample}",
     )
-    # notes at the foot: what the axes are, where the outline comes from, what is unplaced
-    note_font = _font(_NOTE_PX)
-    fm = QFontMetricsF(note_font)
-    p.setFont(note_font)
-    p.setPen(_GREY)
-    y = height - len(lay.notes) * (fm.height() + 1) - 6
-    for line in lay.notes:
-        p.drawText(QPointF(8, y + fm.ascent()), line)
-        y += fm.height() + 1
     area = QRectF(
         lay.left,
         lay.title_h + 8,
@@ -285,22 +284,34 @@ def _paint(p, m, width, height, pattern, selected, max_layers, title):
     _legend(p, QRectF(area.right() + 14, area.top(), _LEGEND_W, area.height()), m, pattern)
     rect = chip_rect(m)
     if rect is None:
+        _notes(p, lay, area.bottom() - 30)
         p.setFont(_font(13))
         p.setPen(_INK)
         p.drawText(area, Qt.AlignmentFlag.AlignCenter, "Nothing of this sample can be placed.")
         return None
     x0, y0, x1, y1 = rect
     scale = min(area.width() / (x1 - x0), area.height() / (y1 - y0))
-    left = area.left() + (area.width() - scale * (x1 - x0)) / 2
-    top = area.top()
-    plot = QRectF(left, top, scale * (x1 - x0), scale * (y1 - y0))
-    frame = MapFrame(x0, y0, left, top, scale, plot)
-    _axes(p, frame, rect)
+    zoom = max(float(zoom), 1.0)
+    if zoom > 1.0:
+        scale *= zoom
+        cx, cy = centre_um if centre_um is not None else ((x0 + x1) / 2, (y0 + y1) / 2)
+        vx0, vy0 = cx - area.width() / (2 * scale), cy - area.height() / (2 * scale)
+        plot = QRectF(area)
+        frame = MapFrame(vx0, vy0, area.left(), area.top(), scale, plot, area, zoom)
+        shown = (vx0, vy0, vx0 + area.width() / scale, vy0 + area.height() / scale)
+    else:
+        left = area.left() + (area.width() - scale * (x1 - x0)) / 2
+        top = area.top()
+        plot = QRectF(left, top, scale * (x1 - x0), scale * (y1 - y0))
+        frame = MapFrame(x0, y0, left, top, scale, plot, area, 1.0)
+        shown = rect
+    _axes(p, frame, shown)
+    _notes(p, lay, plot.bottom() + 40)
     p.setClipRect(plot.adjusted(-1, -1, 1, 1))
     # the chip
     p.setPen(QPen(_INK, 1.4))
     p.setBrush(_CHIP)
-    p.drawRect(plot)
+    p.drawRect(QRectF(QPointF(*frame.to_px(x0, y0)), QPointF(*frame.to_px(x1, y1))))
     # origin of the coordinates, when on the chip
     ox, oy = frame.to_px(0.0, 0.0)
     if plot.contains(QPointF(ox, oy)):
@@ -311,6 +322,7 @@ def _paint(p, m, width, height, pattern, selected, max_layers, title):
         p.drawText(QPointF(ox + 4, oy + 14), "0, 0")
     # image frames, largest first (an overview under its close-ups), names inside the corner
     p.setFont(_font(10))
+    names: list[QRectF] = []
     for im in sorted(m.images, key=lambda im: -im.width_um):
         fx0, fy0 = frame.to_px(im.x0_um, im.y0_um)
         fx1, fy1 = frame.to_px(im.x1_um, im.y1_um)
@@ -321,11 +333,16 @@ def _paint(p, m, width, height, pattern, selected, max_layers, title):
         p.setPen(_GREY)
         name = im.name.rsplit(".", 1)[0]
         if r.width() > 40:
+            nfm = QFontMetricsF(p.font())
+            text = nfm.elidedText(name, Qt.TextElideMode.ElideRight, r.width() - 6)
             p.drawText(
                 r.adjusted(3, 2, -3, -2),
                 Qt.AlignmentFlag.AlignLeft | Qt.AlignmentFlag.AlignTop,
-                QFontMetricsF(p.font()).elidedText(name, Qt.TextElideMode.ElideRight, r.width()),
+                text,
             )
+            if im.width_um < max(i.width_um for i in m.images):  # the overview's is aside
+                names.append(QRectF(r.left() + 3, r.top() + 2, nfm.horizontalAdvance(text),
+                                    nfm.height()))  # fmt: skip
     # flakes, filled by layer number; their holes drawn over them so covered holes show
     for f in m.flakes:
         poly = _poly(frame, f.outline_um)
@@ -349,7 +366,7 @@ def _paint(p, m, width, height, pattern, selected, max_layers, title):
             p.drawPolygon(poly)
             p.setPen(QPen(_SELECT, 3.0))
             p.drawPolygon(poly)
-    _labels(p, frame, m, selected, max_layers)
+    _labels(p, frame, m, selected, max_layers, names)
     p.setClipping(False)
     return frame
 
@@ -394,9 +411,23 @@ def _axes(p: QPainter, frame: MapFrame, rect) -> None:
     p.restore()
 
 
-def _labels(p: QPainter, frame: MapFrame, m: ChipMap, selected, max_layers) -> None:
-    """Each flake's label beside its outline, on a white ground, where it overlaps neither
-    another label nor another flake (right, left, below, above, in that order of trial)."""
+def _notes(p: QPainter, lay: _Layout, top: float) -> None:
+    """The notes under the map: what the axes are, where the outline comes from, what is
+    unplaced."""
+    note_font = _font(_NOTE_PX)
+    fm = QFontMetricsF(note_font)
+    p.setFont(note_font)
+    p.setPen(_GREY)
+    y = top
+    for line in lay.notes:
+        p.drawText(QPointF(8, y + fm.ascent()), line)
+        y += fm.height() + 1
+
+
+def _labels(p: QPainter, frame: MapFrame, m: ChipMap, selected, max_layers,
+            avoid: Sequence[QRectF] = ()) -> None:  # fmt: skip
+    """Each flake's label beside its outline, on a white ground, where it overlaps no other
+    label, flake or image name (right, left, below, above, in that order of trial)."""
     font = _font(12, bold=True)
     p.setFont(font)
     fm = QFontMetricsF(font)
@@ -415,7 +446,7 @@ def _labels(p: QPainter, frame: MapFrame, m: ChipMap, selected, max_layers) -> N
             QRectF(cx - w / 2, box.bottom() + 3, w, h),
             QRectF(cx - w / 2, box.top() - 3 - h, w, h),
         ]
-        others = [b for b, g in zip(boxes, m.flakes) if g is not f] + placed
+        others = [b for b, g in zip(boxes, m.flakes) if g is not f] + placed + list(avoid)
 
         def cost(r: QRectF, others=others) -> float:
             inside = 0.0 if frame.plot.contains(r) else 1000.0
@@ -424,8 +455,8 @@ def _labels(p: QPainter, frame: MapFrame, m: ChipMap, selected, max_layers) -> N
         r = min(trials, key=cost)
         placed.append(r)
         ground = QColor("white")
-        ground.setAlpha(215)
-        p.setPen(Qt.PenStyle.NoPen)
+        ground.setAlpha(240)
+        p.setPen(QPen(QColor("#BDBDBD"), 0.8))  # a tag's edge: a hole ring it covers is cut
         p.setBrush(ground)
         p.drawRoundedRect(r, 3, 3)
         p.setPen(QPen(_INK, 1.0) if f.flake_id != selected else QPen(_SELECT, 1.0))

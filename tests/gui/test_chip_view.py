@@ -95,6 +95,30 @@ def test_a_flake_clicked_on_the_map_is_the_one_selected(placed, qtbot):
     assert w.current_flake == before
 
 
+def test_magnified_map_still_picks_and_a_drag_does_not(placed, qtbot):
+    w = placed
+    view = w.views["chip"]
+    canvas = view.canvas
+    fid = w.session.project.flake_by_label("Q3W-003").id
+    canvas.zoom_at(_view_point(view, "Q3W-003"), 6.0)  # magnified about the flake
+    assert canvas.zoom == pytest.approx(6.0) and view.fit.isEnabled()
+    at = _view_point(view, "Q3W-003")
+    qtbot.mouseClick(canvas, Qt.MouseButton.LeftButton, pos=at)
+    assert w.current_flake == fid
+    other = w.session.project.flake_by_label("Q3W-001").id
+    w.select_flake(other, keep_view=True)
+    # a drag that starts on the flake moves the map and selects nothing
+    before = canvas.centre_um
+    qtbot.mousePress(canvas, Qt.MouseButton.LeftButton, pos=at)
+    qtbot.mouseMove(canvas, at + QPoint(8, 5))
+    qtbot.mouseRelease(canvas, Qt.MouseButton.LeftButton, pos=at + QPoint(8, 5))
+    assert w.current_flake == other
+    scale = canvas.frame.scale
+    assert canvas.centre_um == pytest.approx((before[0] - 8 / scale, before[1] - 5 / scale))
+    view.fit.click()
+    assert canvas.zoom == 1.0
+
+
 def test_hover_tells_label_and_layer_number(placed, qtbot):
     view = placed.views["chip"]
     qtbot.mouseMove(view.canvas, _view_point(view, "Q3W-002"))

@@ -32,7 +32,6 @@ from flakebook.render.chipmap import (
     POSITION_HEADER,
     MapFrame,
     flake_at,
-    outline_note,
     paint_chip_map,
     position_rows,
     unplaced_text,
@@ -45,10 +44,16 @@ from flakebook.wording import layers_text
 EXPORT_WIDTH_PX = 1200
 
 
+#: Magnification limits of the map (1: the whole chip) and a wheel step's factor.
+MAX_ZOOM, ZOOM_STEP = 40.0, 1.25
+
+
 class ChipCanvas(QWidget):
-    """Paints a :class:`ChipMap` at the widget's size and finds the flake under the mouse."""
+    """Paints a :class:`ChipMap` at the widget's size and finds the flake under the mouse.
+    The wheel magnifies about the cursor, a drag moves the magnified map, a click picks."""
 
     flakeClicked = Signal(int)
+    zoomChanged = Signal(float)
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -60,14 +65,54 @@ class ChipCanvas(QWidget):
         self.selected: int | None = None
         self.max_layers = 15
         self.frame: MapFrame | None = None
+        self.zoom = 1.0
+        self.centre_um: tuple[float, float] | None = None
         self._hover: int | None = None
+        self._press: QPointF | None = None
+        self._dragged = False
 
-    def set_map(self, m: ChipMap | None, pattern=None, max_layers: int = 15) -> None:
+    def set_map(self, m: ChipMap | None, pattern=None, max_layers: int = 15, *,
+                keep_zoom: bool = False) -> None:  # fmt: skip
+        """Show ``m``; a map of another sample starts at the whole chip (``keep_zoom``: the
+        same sample redrawn after an edit keeps its magnification)."""
         self.map, self.pattern, self.max_layers = m, pattern, max_layers
+        if not keep_zoom:
+            self.zoom, self.centre_um = 1.0, None
+            self.zoomChanged.emit(self.zoom)
         self.frame = None  # until painted: a click before that finds nothing
         self._hover = None
         QToolTip.hideText()
         self.update()
+
+    def fit(self) -> None:
+        """The whole chip again."""
+        self.zoom, self.centre_um = 1.0, None
+        self.frame = None
+        self.zoomChanged.emit(self.zoom)
+        self.update()
+
+    def zoom_at(self, pos: QPointF, factor: float) -> None:
+        """Magnify by ``factor`` keeping the chip point under ``pos`` where it is."""
+        frame = self.frame or self._frame_now()
+        if frame is None or frame.area is None:
+            return
+        new = min(max(self.zoom * factor, 1.0), MAX_ZOOM)
+        if new == self.zoom:
+            return
+        under = frame.to_um(pos.x(), pos.y())
+        scale = frame.scale / frame.zoom * new  # the whole-chip scale times the new zoom
+        c = frame.area.center()
+        self.centre_um = (under[0] + (c.x() - pos.x()) / scale,
+                          under[1] + (c.y() - pos.y()) / scale)  # fmt: skip
+        self.zoom = new
+        self.frame = None
+        self.zoomChanged.emit(self.zoom)
+        self.update()
+
+    def wheelEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        steps = ev.angleDelta().y() / 120.0
+        if steps:
+            self.zoom_at(ev.position(), ZOOM_STEP**steps)
 
     def set_selected(self, flake_id: int | None) -> None:
         if flake_id != self.selected:
@@ -84,7 +129,8 @@ class ChipCanvas(QWidget):
                 return
             self.frame = paint_chip_map(
                 p, self.map, self.width(), self.height(), pattern=self.pattern,
-                selected=self.selected, max_layers=self.max_layers,
+                selected=self.selected, max_layers=self.max_layers, zoom=self.zoom,
+                centre_um=self.centre_um,
             )  # fmt: skip
         finally:
             p.end()
@@ -109,7 +155,8 @@ class ChipCanvas(QWidget):
         p = QPainter(img)
         try:
             self.frame = paint_chip_map(p, self.map, self.width(), self.height(),
-                                        pattern=self.pattern, max_layers=self.max_layers)  # fmt: skip
+                                        pattern=self.pattern, max_layers=self.max_layers,
+                                        zoom=self.zoom, centre_um=self.centre_um)  # fmt: skip
         finally:
             p.end()
         return self.frame
@@ -126,6 +173,17 @@ class ChipCanvas(QWidget):
         return None
 
     def mouseMoveEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        if self._press is not None and ev.buttons() & Qt.MouseButton.LeftButton:
+            d = ev.position() - self._press
+            if self._dragged or abs(d.x()) + abs(d.y()) > 4:
+                self._dragged = True
+                if self.zoom > 1.0 and self.frame is not None:
+                    cx, cy = self.centre_um or self.frame.to_um(*_centre(self.frame))
+                    self.centre_um = (cx - d.x() / self.frame.scale,
+                                      cy - d.y() / self.frame.scale)  # fmt: skip
+                    self._press = ev.position()
+                    self.update()
+                return
         f = self.flake_at(ev.position())
         fid = None if f is None else f.flake_id
         if fid != self._hover:
@@ -144,9 +202,22 @@ class ChipCanvas(QWidget):
     def mousePressEvent(self, ev) -> None:  # noqa: N802 - Qt API
         if ev.button() != Qt.MouseButton.LeftButton:
             return super().mousePressEvent(ev)
+        self._press, self._dragged = ev.position(), False
+
+    def mouseReleaseEvent(self, ev) -> None:  # noqa: N802 - Qt API
+        if ev.button() != Qt.MouseButton.LeftButton or self._press is None:
+            return super().mouseReleaseEvent(ev)
+        dragged, self._press, self._dragged = self._dragged, None, False
+        if dragged:
+            return
         f = self.flake_at(ev.position())
         if f is not None:
             self.flakeClicked.emit(f.flake_id)
+
+
+def _centre(frame: MapFrame) -> tuple[float, float]:
+    c = (frame.area or frame.plot).center()
+    return c.x(), c.y()
 
 
 def _fingerprint(m: ChipMap) -> tuple:
@@ -198,7 +269,14 @@ class ChipMapView(QWidget):
         self.svg = QPushButton("Export SVG…", self)
         self.svg.setObjectName("chipExportSvg")
         self.svg.clicked.connect(lambda: self.exportRequested.emit("svg"))
+        self.fit = QPushButton("Whole chip", self)
+        self.fit.setObjectName("chipFit")
+        self.fit.setToolTip("Show the whole chip again (the wheel magnifies, a drag moves)")
+        self.zoom_label = QLabel(self)
         self.canvas = ChipCanvas(self)
+        self.canvas.zoomChanged.connect(self._zoom_changed)
+        self.fit.clicked.connect(self.canvas.fit)
+        self._zoom_changed(1.0)
         self.canvas.flakeClicked.connect(self.flakeActivated)
         self.positions = QTreeWidget(self)
         self.positions.setObjectName("chipPositions")
@@ -218,6 +296,9 @@ class ChipMapView(QWidget):
         bar.addSpacing(12)
         bar.addWidget(self.png)
         bar.addWidget(self.svg)
+        bar.addSpacing(12)
+        bar.addWidget(self.fit)
+        bar.addWidget(self.zoom_label)
         bar.addStretch(1)
         below = QWidget(self)
         lay_below = QHBoxLayout(below)
@@ -300,8 +381,9 @@ class ChipMapView(QWidget):
         if key == self._key and self.map is not None:
             self.set_selected(self._selected)  # the same map: only the mark moves
             return
+        same_sample = self._key is not None and self._key[0][0] == m.sample
         self._key = key
-        self._show_map(m, sample.hole_pattern)
+        self._show_map(m, sample.hole_pattern, keep_zoom=same_sample)
 
     def _set_samples(self, names: list[str]) -> None:
         if names == self.sample_names():
@@ -334,9 +416,15 @@ class ChipMapView(QWidget):
             self.sample.setCurrentIndex(names.index(on))
             self.sample.blockSignals(False)
 
-    def _show_map(self, m: ChipMap | None, pattern=None) -> None:
+    def _zoom_changed(self, zoom: float) -> None:
+        self.fit.setEnabled(zoom > 1.0)
+        self.zoom_label.setText(
+            f"magnified {zoom:.3g}×" if zoom > 1.0 else "wheel: magnify · drag: move"
+        )
+
+    def _show_map(self, m: ChipMap | None, pattern=None, *, keep_zoom: bool = False) -> None:
         self.map, self.pattern = m, pattern
-        self.canvas.set_map(m, pattern, self.max_layers)
+        self.canvas.set_map(m, pattern, self.max_layers, keep_zoom=keep_zoom)
         self.canvas.set_selected(self._selected)
         self.positions.clear()
         self.png.setEnabled(m is not None)
@@ -356,7 +444,7 @@ class ChipMapView(QWidget):
         for col in range(len(POSITION_HEADER)):
             self.positions.resizeColumnToContents(col)
         self._select_row(self._selected)
-        self.unplaced.setText(f"{unplaced_text(m)}\n\nThe {outline_note(m)}.")
+        self.unplaced.setText(unplaced_text(m))
 
     def _select_row(self, flake_id: int | None) -> None:
         self.positions.blockSignals(True)
