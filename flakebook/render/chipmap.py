@@ -281,7 +281,8 @@ def _paint(p, m, width, height, pattern, selected, max_layers, title, zoom, cent
         max(width - lay.left - lay.right, 10.0),
         max(height - lay.title_h - 8 - lay.bottom, 10.0),
     )
-    _legend(p, QRectF(area.right() + 14, area.top(), _LEGEND_W, area.height()), m, pattern)
+    _legend(p, QRectF(area.right() + 14, area.top(), _LEGEND_W, area.height()), m, pattern,
+            selected is not None)  # fmt: skip
     rect = chip_rect(m)
     if rect is None:
         _notes(p, lay, area.bottom() - 30)
@@ -472,7 +473,7 @@ def _overlap(a: QRectF, b: QRectF) -> float:
     return 0.0 if i.isEmpty() else i.width() * i.height()
 
 
-def _legend(p: QPainter, r: QRectF, m: ChipMap, pattern) -> None:
+def _legend(p: QPainter, r: QRectF, m: ChipMap, pattern, marked: bool = False) -> None:
     p.setFont(_font(12, bold=True))
     p.setPen(_INK)
     y = r.top() + 2
@@ -508,6 +509,8 @@ def _legend(p: QPainter, r: QRectF, m: ChipMap, pattern) -> None:
     p.setPen(_INK)
     p.drawText(QPointF(r.left() + 24, y + 11), "image frame")
     y += 18
+    if not marked:
+        return
     p.setPen(QPen(_SELECT, 3.0))
     p.drawLine(QPointF(r.left(), y + 6), QPointF(r.left() + 16, y + 6))
     p.setPen(_INK)
