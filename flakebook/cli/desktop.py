@@ -17,7 +17,8 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument(
         "--show",
         default=None,
-        help="image | catalogue | flake:ID | spectra:ID | thermal:ID | kappa | map:ID (a Raman map)",
+        help="the view to render: image | catalogue | flake:ID | spectra:ID | thermal:ID | "
+        "kappa | chip:SAMPLE (the sample's chip map) | map:ID (a stored Raman map)",
     )
     p.add_argument("--read-only", action="store_true", help="open the project read-only")
     p.set_defaults(func=_open)

@@ -13,6 +13,8 @@ from flakebook.errors import InputError
 PER_FLAKE = ("spectra", "thermal")
 #: Views that show one stored record of their own: `--show map:ID` (a Raman map's id or name).
 PER_RECORD = ("map",)
+#: Views that show one sample: `--show NAME:SAMPLE`.
+PER_SAMPLE = ("chip",)
 
 
 def _headless() -> bool:
@@ -38,16 +40,22 @@ def _prepare_platform(offscreen: bool) -> None:
 
 def parse_show(text: str | None) -> tuple[str, str | None]:
     """A registered view's name (``image``, ``catalogue``, ``spectra``, ...) | ``flake:ID`` |
-    ``spectra:ID`` | ``thermal:ID`` | ``map:ID`` (a Raman map) -> (view, argument)."""
+    ``spectra:ID`` | ``thermal:ID`` | ``chip:SAMPLE`` | ``map:ID`` (a Raman map) -> (view,
+    argument)."""
     from flakebook.gui.views import NAMES
 
     per_id = (*PER_FLAKE, *PER_RECORD)
-    accepted = ", ".join(sorted([*NAMES, "flake:ID", *(f"{n}:ID" for n in per_id)]))
+    accepted = ", ".join(
+        sorted(
+            [*NAMES, "flake:ID", *(f"{n}:ID" for n in per_id),
+             *(f"{n}:SAMPLE" for n in PER_SAMPLE)]
+        )
+    )  # fmt: skip
     if not text:
         return "image", None
     view, _, arg = text.partition(":")
     view = view.strip().lower()
-    if view in ("flake", *per_id) and arg.strip():
+    if view in ("flake", *per_id, *PER_SAMPLE) and arg.strip():
         return view, arg.strip()
     if view in NAMES and not arg:
         return view, None  # a per-flake view without ID shows the selected flake (or none)
@@ -121,7 +129,14 @@ def run(
         return code
     window.resize(1500, 920)
     window.show()
-    show_view(window, view, arg)
+    try:
+        show_view(window, view, arg)
+    except BaseException:
+        # a --show the project cannot satisfy: the window's workers stopped before the message
+        window.close()
+        if owns_app:
+            _tear_down(app, window)
+        raise
     settle(app, 0.3, until=lambda: not window.jobs.busy)
     window.repaint()
     image = window.grab()
@@ -163,5 +178,16 @@ def show_view(window, view: str, arg: str | None) -> None:
         window.show_view("image" if view == "flake" else view)
         if view == "spectra":
             window.spectra_view.show_flake(window.session, flake.id)
+    elif view in PER_SAMPLE and arg:
+        if window.session is None:
+            raise InputError(f"--show {view}:{arg} needs a project")
+        names = [s.name for s in window.session.project.samples()]
+        if arg not in names:
+            raise InputError(
+                f"--show {view}:{arg}: the project has no sample {arg!r}; accepted: "
+                + (", ".join(f"{view}:{n}" for n in names) if names else "none (no samples yet)")
+            )
+        window.show_view(view)
+        window.views[view].show_sample(arg)
     else:
         window.show_view(view)

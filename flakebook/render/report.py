@@ -166,6 +166,7 @@ def compose(
         d.add("</table>")
     else:
         d.add("<p>No flakes to list.</p>")
+    _chip_maps(d, content, break_before)
     missing = {c.image_id for c in project.check_images() if c.status != "ok" and not c.embedded}
     for n_card, card in enumerate(content.cards):
         check_cancel(cancel)
@@ -273,6 +274,39 @@ def compose(
             d.add("<ul>" + "".join(f"<li>{_e(b)}</li>" for b in bullets) + "</ul>")
     d.add(f'<p class="caution">{_e(content.methods.caution)}</p>')
     return d
+
+
+def _chip_maps(d: _Doc, content: ReportContent, break_before: str) -> None:
+    """A chip map per sample: the figure, what is not on it in words, and each flake's place
+    (to drive the stage to)."""
+    from flakebook.render.chipmap import (
+        COORDINATES,
+        POSITION_HEADER,
+        chip_map_png,
+        outline_note,
+        position_rows,
+        unplaced_text,
+    )
+
+    if not content.chip_maps:
+        return
+    d.add(f"<h2{break_before}>Chip maps</h2>")
+    d.add(
+        f'<p class="note">Positions are {_e(COORDINATES)}; the flakes are drawn from their '
+        "outline in the finest placed image they appear in, filled by layer number.</p>"
+    )
+    for m, pattern in content.chip_maps:
+        d.add(f'<div class="chipmap" id="chip-{_e(m.sample)}">')
+        d.add(f"<h3>Chip map of {_e(m.sample)}</h3>")
+        d.figure(chip_map_png(m, pattern=pattern, max_layers=content.max_layers),
+                 f"chip map of {m.sample}", 720)  # fmt: skip
+        d.add(f"<p>{_e(unplaced_text(m))} The {_e(outline_note(m))}.</p>")
+        rows = position_rows(m, content.max_layers)
+        if rows:
+            d.table(list(POSITION_HEADER), rows)
+        else:
+            d.add("<p>No flake of this sample is on the map.</p>")
+        d.add("</div>")
 
 
 def _vwe(v, e, unit: str) -> str:

@@ -1,6 +1,7 @@
 """What a campaign report says: the selection of flakes, the summary in plain words, the
 catalogue table (numbers rounded as the catalogue shows them), thermal conductivity versus layer
-number, and one card per flake (layer evidence, spectra fits, holes, thermometry). No Qt:
+number, a chip map per sample, and one card per flake (layer evidence, spectra fits, holes,
+thermometry). No Qt:
 :mod:`flakebook.render.report` draws the figures and writes HTML or PDF from this.
 
 The combined layer report of a flake (flakebook.pipeline_spectra.flake_report) is passed in by
@@ -17,10 +18,12 @@ from typing import Any
 
 from flakebook import __version__
 from flakebook.errors import InputError, check_cancel
+from flakebook.report.chipmap import ChipMap, chip_map
 from flakebook.report.methods import MethodsSection, methods_section
 from flakebook.store import (
     Appearance,
     Flake,
+    HolePattern,
     Image,
     Project,
     Sample,
@@ -231,6 +234,8 @@ class ReportContent:
     methods: MethodsSection
     problems: list[str] = field(default_factory=list)
     max_layers: int = 15
+    #: One chip map per sample the selection touches: (map, the sample's hole pattern or None).
+    chip_maps: list[tuple[ChipMap, HolePattern | None]] = field(default_factory=list)
 
     @property
     def empty(self) -> bool:
@@ -504,6 +509,9 @@ def build_report(
         if progress is not None:
             progress((i + 1) / len(flakes), f"flake {f.label} gathered ({i + 1} of {len(flakes)})")
     check_cancel(cancel)
+    chip_maps = [
+        (chip_map(project, s), s.hole_pattern) for s in _map_samples(project, selection, flakes)
+    ]
     return ReportContent(
         title=f"Campaign report: {project.path.stem}",
         project_file=project.path.name,
@@ -518,7 +526,20 @@ def build_report(
         methods=methods_section(project, flakes),
         problems=problems,
         max_layers=nmax,
+        chip_maps=chip_maps,
     )
+
+
+def _map_samples(project: Project, selection: Selection, flakes: list[Flake]) -> list[Sample]:
+    """The samples whose chip maps the report shows: every sample for ``all``, the named one
+    for ``sample:NAME``, else those the selected flakes lie on."""
+    samples = project.samples()
+    if selection.kind == "all":
+        return samples
+    if selection.kind == "sample":
+        return [s for s in samples if s.name == selection.value]
+    on = {f.sample_id for f in flakes}
+    return [s for s in samples if s.id in on]
 
 
 def appearance_for_card(project: Project, flake: Flake, missing: set[int]) -> Appearance | None:

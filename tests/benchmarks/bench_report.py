@@ -1,7 +1,7 @@
 """Benchmark: the sample campaign's full HTML report against its figures alone (same run).
 
 The baseline draws every figure the report holds (flake cards, contrast versus N, spectra with
-their fits, omega(T) and omega(P), kappa versus N) offscreen; the full report adds reading the
+their fits, omega(T) and omega(P), kappa versus N, the chip maps) offscreen; the full report adds reading the
 project, the content, the HTML and writing the file. Target: at most 2 times the figures' time,
 and under 5 s. Each timing is the best of ``--repeat`` runs (the machines here are noisy).
 Run: PYTHONPATH=. python tests/benchmarks/bench_report.py [--repeat 3]
@@ -21,6 +21,7 @@ os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 
 
 def figures_only(project, content) -> int:
+    from flakebook.render.chipmap import chip_map_png
     from flakebook.render.figures import (
         contrast_figure,
         kappa_figure,
@@ -31,6 +32,9 @@ def figures_only(project, content) -> int:
 
     n = 0
     kappa_figure(content.kappa_rows)
+    for m, pattern in content.chip_maps:
+        chip_map_png(m, pattern=pattern, max_layers=content.max_layers)
+        n += 1
     for card in content.cards:
         if card.has_image:
             _card_png(project, card.flake_id, set())

@@ -17,7 +17,8 @@ def _pixels(path) -> np.ndarray:
     assert not img.isNull()
     w, h, bpl = img.width(), img.height(), img.bytesPerLine()
     buf = np.frombuffer(img.constBits(), np.uint8).reshape(h, bpl)[:, : 3 * w]
-    return buf.reshape(h, w, 3)
+    # a copy: the view's memory belongs to the QImage, freed when this function returns
+    return buf.reshape(h, w, 3).copy()
 
 
 def _assert_not_blank(px: np.ndarray) -> None:

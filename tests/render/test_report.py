@@ -39,6 +39,9 @@ class _Page(HTMLParser):
         super().__init__()
         self.images: list[str] = []
         self.cards: list[str] = []
+        self.chipmaps: list[str] = []
+        self.tables_in_maps: list[list[list[str]]] = []
+        self._in_map = False
         self.tables: dict[str, list[list[str]]] = {}
         self._table: str | None = None
         self._cell: list[str] | None = None
@@ -49,6 +52,16 @@ class _Page(HTMLParser):
             self.images.append(a.get("src", ""))
         if tag == "div" and a.get("class") == "card":
             self.cards.append(a.get("id", ""))
+            self._in_map = False
+        if tag == "div" and a.get("class") == "chipmap":
+            self.chipmaps.append(a.get("id", ""))
+            self._in_map = True
+        if self._in_map and tag == "img":
+            self.chipmaps[-1] += " img"
+        if self._in_map and tag == "table":
+            self.tables_in_maps.append([])
+            self._table = f"map{len(self.tables_in_maps)}"
+            self.tables[self._table] = self.tables_in_maps[-1]
         if tag == "table" and a.get("id"):
             self._table = a["id"]
             self.tables[self._table] = []
@@ -88,6 +101,33 @@ def test_html_report_has_every_flake_and_decodable_figures(demo, tmp_path):
         img = cv2.imdecode(np.frombuffer(base64.b64decode(src.split(",", 1)[1]), np.uint8), 1)
         assert img is not None and img.shape[0] > 50 and img.shape[1] > 50
     assert not list(tmp_path.glob(".*.tmp"))  # written through a temporary file
+
+
+def test_a_chip_map_per_sample_with_each_flake_where_the_scenario_put_it(demo, tmp_path):
+    """Truth: the demo scenario's chip coordinates of each flake (flakebook.demo.FLAKES)."""
+    from flakebook import demo as scenario
+
+    page = _html(demo, tmp_path / "campaign.html")
+    with Project.open(demo, read_only=True) as p:
+        samples = [s.name for s in p.samples()]
+    assert page.chipmaps == [f"chip-{s} img" for s in samples]  # one map, one figure each
+    truth = {f.label: f for f in scenario.FLAKES}
+    listed, wrong = set(), 0
+    for table in page.tables_in_maps:
+        header, *rows = table
+        col = {h: i for i, h in enumerate(header)}
+        for r in rows:
+            f = truth[r[col["Flake"]]]
+            x, y = float(r[col["centre x (µm)"]]), float(r[col["centre y (µm)"]])
+            assert np.hypot(x - f.center_um[0], y - f.center_um[1]) < 2 * f.radius_um
+            wrong += r[col["N"]] != f"{f.layers}L"
+            listed.add(r[col["Flake"]])
+    assert listed == set(truth)
+    assert wrong <= 1  # the layer numbers are the analysis's, at most one off the scenario
+    text = (tmp_path / "campaign.html").read_text(encoding="utf-8")
+    assert text.count("nothing is left off the map") == len(samples)
+    page = _html(demo, tmp_path / "s.html", "--select", "sample:K7-south")
+    assert page.chipmaps == ["chip-K7-south img"]
 
 
 def test_catalogue_numbers_are_the_projects_rounded_as_displayed(demo, tmp_path):
@@ -173,6 +213,7 @@ def test_pdf_pages_and_text(demo, tmp_path, paper):
     text = subprocess.run(["pdftotext", str(out), "-"], capture_output=True, text=True).stdout
     for label in labels:
         assert label in text
+    assert "Chip map of K7-north" in text and "Chip map of K7-south" in text
 
 
 def test_empty_project_says_so(tmp_path, capsys):

@@ -38,7 +38,7 @@ class View:
 
 
 #: Every view, in the order of the tabs.
-NAMES = ("image", "catalogue", "spectra", "thermal", "kappa", "map")
+NAMES = ("image", "catalogue", "spectra", "thermal", "kappa", "chip", "map")
 
 
 def module(name: str) -> ModuleType:

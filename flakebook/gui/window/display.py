@@ -88,7 +88,9 @@ class Display:
         um = info.get("um_per_px")
         self.scale_label.setText(f"{um:.4g} µm/px" if um else "no scale: draw a scale line (S)")
 
-    def show_image(self, image_id: int, *, overlays: bool = True) -> None:
+    def show_image(self, image_id: int, *, overlays: bool = True, front: bool = True) -> None:
+        """Load an image into the image view (brought to the front unless ``front`` is
+        False)."""
         s = self._need_session(write=False)
         try:
             shown = s.load_image(image_id)
@@ -111,7 +113,8 @@ class Display:
         if overlays:
             self._refresh_overlays()
         self.browser.select_image(image_id)
-        self.tabs.setCurrentWidget(self.canvas)
+        if front:
+            self.tabs.setCurrentWidget(self.canvas)
         # after the first paint: the conversion to linear intensity competes for the CPU
         QTimer.singleShot(
             300, lambda i=image_id: self._start_cursor_job(i) if self.current_image == i else None
@@ -141,14 +144,21 @@ class Display:
         self.select_flake(flake_id, centre=True)
 
     def select_flake(
-        self, flake_id: int | None, *, centre: bool = False, from_canvas: bool = False
+        self,
+        flake_id: int | None,
+        *,
+        centre: bool = False,
+        from_canvas: bool = False,
+        keep_view: bool = False,
     ) -> None:
-        """Select a flake everywhere: canvas, browser, catalogue, inspector."""
+        """Select a flake everywhere: canvas, browser, catalogue, inspector. The image view
+        loads the flake's image; with ``keep_view`` the view in front stays there (a flake
+        picked on the chip map)."""
         self.current_flake = flake_id
         if self.session is not None and flake_id is not None and not from_canvas:
             images = self.session.images_of_flake(flake_id)
             if images and self.current_image not in images:
-                self._guard(lambda: self.show_image(images[0]), "Show image")
+                self._guard(lambda: self.show_image(images[0], front=not keep_view), "Show image")
         self.canvas.select_flake(
             flake_id, centre=centre and self.tabs.currentWidget() is self.canvas
         )
