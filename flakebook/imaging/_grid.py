@@ -43,6 +43,13 @@ def block_max(mask: np.ndarray, f: int, fx: int | None = None) -> np.ndarray:
     return d[::f, ::fx][:rows, :cols] > 0
 
 
+def nonzero(mask: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``np.nonzero`` of a 2-D array as (rows, cols), in the same order; through the flat
+    index, which numpy finds several times faster than the 2-D one."""
+    flat = np.flatnonzero(mask)
+    return np.divmod(flat, mask.shape[1])
+
+
 def to_full(x: np.ndarray | float, f: int) -> np.ndarray | float:
     """Working-pixel coordinate to full-resolution coordinate (same for x and y)."""
     return f * np.asarray(x, dtype=np.float64) + (f - 1) / 2.0 if f != 1 else x

@@ -142,7 +142,7 @@ def substrate_patches(
         return []
     m = sub_mask_work.astype(np.uint8)
     er = cv2.erode(m, np.ones((bw + 2, bw + 2), np.uint8), anchor=(0, 0), borderValue=0)
-    ys, xs = np.nonzero(er[: rows - bw - 1, : cols - bw - 1] if rows > bw + 1 else er)
+    ys, xs = _grid.nonzero(er[: rows - bw - 1, : cols - bw - 1] if rows > bw + 1 else er)
     if len(ys) == 0:
         return []
     pick = np.linspace(0, len(ys) - 1, min(want, len(ys))).astype(int)
@@ -209,7 +209,7 @@ def measure_region(
     fy0, fx0 = ry * f, rx * f
     h = min(rmask.shape[0] * f, image.height - fy0)
     w = min(rmask.shape[1] * f, image.width - fx0)
-    wy, wx = np.nonzero(rmask)
+    wy, wx = _grid.nonzero(rmask)
     if len(wy) == 0:
         return None
     # Area, box and centroid of the region's full-resolution pixels (blocks of f x f).

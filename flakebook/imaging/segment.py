@@ -25,7 +25,6 @@ import numpy as np
 
 from flakebook.errors import InputError, check_cancel
 from flakebook.imaging import _grid
-from flakebook.imaging._grid import full_crop_mask
 from flakebook.imaging.background import Background, fit_background
 from flakebook.imaging.contrast import (
     MAX_PIXELS,
@@ -343,20 +342,23 @@ def segment(
                     labels[py0 + ry : py0 + ry + rh, px0 + rx : px0 + rx + rw][rmask] = rid
                     regions.append(reg)
                     rids.append(rid)
-        ys, xs = np.nonzero(fmask)
+        ys, xs = _grid.nonzero(fmask)
         bx0, bx1, by0, by1 = xs.min(), xs.max(), ys.min(), ys.max()
         crop = fmask[by0 : by1 + 1, bx0 : bx1 + 1]
-        full = full_crop_mask(crop, f)
-        yy, xx = np.nonzero(full)
-        area_px = int(len(yy))
+        # Area and centroid of the full-resolution pixels (f x f per working pixel), in whole
+        # numbers: working pixel j covers full columns f j .. f j + f - 1, each in f rows.
+        n_work = len(xs)
+        area_px = n_work * f * f
+        sum_x = f**3 * int((xs - bx0).sum()) + n_work * f * f * (f - 1) // 2
+        sum_y = f**3 * int((ys - by0).sum()) + n_work * f * f * (f - 1) // 2
         ox, oy = (px0 + bx0) * f, (py0 + by0) * f
         flakes.append(
             Flake(
                 id=fid,
                 area_px=area_px,
                 area_um2=float(area_px * um_per_px**2),
-                bbox_px=(ox, oy, ox + full.shape[1] - 1, oy + full.shape[0] - 1),
-                centroid_px=(float(xx.mean() + ox), float(yy.mean() + oy)),
+                bbox_px=(ox, oy, ox + crop.shape[1] * f - 1, oy + crop.shape[0] * f - 1),
+                centroid_px=(float(sum_x / area_px + ox), float(sum_y / area_px + oy)),
                 outline_px=flake_outline(
                     image,
                     background,
