@@ -238,8 +238,8 @@ def measure_region(
     inner = inner[::k, ::k] & ~image.saturated_crop(rows, cols)
     if np.count_nonzero(inner) < 4:
         return None
-    crop = bg.correct(image, rows, cols)
-    cvals = contrast_image(crop[inner], level)
+    iy, ix = _grid.nonzero(inner)  # the order of crop[inner]
+    cvals = contrast_image(bg.correct_at(image, rows, cols, iy, ix), level)
     n = int(cvals.shape[0])
     contrast, err, sdd = {}, {}, {}
     neff = n

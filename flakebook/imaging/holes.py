@@ -26,7 +26,7 @@ from flakebook.imaging.coverage import (
     manual_hole,
     signed_distance,
 )
-from flakebook.imaging.hole_fit import fit_circle, refine_hole
+from flakebook.imaging.hole_fit import fit_circle, refine_hole, refine_holes
 from flakebook.imaging.lattice import (
     MAX_LATTICE_RESIDUAL,
     MIN_LATTICE_HOLES,
@@ -186,10 +186,13 @@ def detect_holes(
     noise = 1.4826 * float(np.median(np.abs(np.diff(sample, axis=1)))) / math.sqrt(2)
     need = min_step if min_step is not None else max(8 * noise, 1e-4)
     holes: list[Hole] = []
-    for cx, cy, r in found:
+    check_cancel(cancel)
+    # With a sampler, every hole's profiles are sampled together, round by round.
+    fits = refine_holes(found, sampler, min_step=need) if sampler is not None else None
+    for i, (cx, cy, r) in enumerate(found):
         check_cancel(cancel)
-        if sampler is not None:
-            fit = refine_hole(None, cx, cy, r, min_step=need, sampler=sampler)
+        if fits is not None:
+            fit = fits[i]
         else:
             pad = int(1.7 * r + 6)
             x0, y0 = max(0, int(cx - pad)), max(0, int(cy - pad))

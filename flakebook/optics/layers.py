@@ -27,8 +27,6 @@ import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy.interpolate import CubicSpline
-from scipy.special import chdtri
 
 from flakebook import __version__, evidence
 from flakebook.errors import InputError, check_cancel
@@ -58,6 +56,29 @@ DEFAULT_MODEL_ERR = 0.005
 DEFAULT_MODEL_REL_ERR = 0.02
 DEFAULT_THICKNESS_SCALE_ERR = 0.0
 _VAR_FLOOR = 1e-8  # (1e-4)^2: keeps an exact measurement with no model error finite
+
+# The chi-square quantile with upper tail 1e-3 for 1..8 degrees of freedom, as
+# scipy.special.chdtri(k, 1e-3) gives it (tests/optics/test_layer_speed.py checks them against
+# it), so that a likelihood needs no scipy.special (an import of a few hundred ms).
+_CHI2_999 = {
+    1: 10.827566170662733,
+    2: 13.815510557964274,
+    3: 16.26623619623813,
+    4: 18.466826952903173,
+    5: 20.515005652432876,
+    6: 22.457744484825323,
+    7: 24.321886347856854,
+    8: 26.124481558376143,
+}
+
+
+def _chi2_upper_1e3(k: int) -> float:
+    """The chi-square value exceeded with probability 1e-3 at ``k`` degrees of freedom."""
+    if k in _CHI2_999:
+        return _CHI2_999[k]
+    from scipy.special import chdtri
+
+    return float(chdtri(k, 1e-3))
 
 
 @dataclass(frozen=True)
@@ -548,6 +569,8 @@ def layer_likelihoods(
     )
     mean_all, u_all = _moments(material, unc, targs)
     if ox_fine is not None and len(ox_nodes) > 1:
+        from scipy.interpolate import CubicSpline
+
         spline_x = np.asarray(ox_nodes, float)
         mean_all = CubicSpline(spline_x, mean_all, axis=0)(ox_fine)
         u_all = (
@@ -649,7 +672,7 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     k0 = 0 if nodes is None or t0 is None else int(np.argmin(np.abs(nodes - t0)))
     model_c = s0 * mean[k0, 0, :max_layers]
     var0 = np.diagonal(base[k0, 0, :max_layers], axis1=-2, axis2=-1)  # (N, C)
-    thresh = float(chdtri(n_c, 1e-3))  # chi2 quantile with upper tail 1e-3
+    thresh = _chi2_upper_1e3(n_c)  # chi2 quantile with upper tail 1e-3
     sens = None
     if ctx["oxide_err_nm"] == 0 and ctx["oxide_grid"] is None and t0 is not None:
         sens = oxide_sensitivity(
