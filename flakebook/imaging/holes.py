@@ -282,11 +282,8 @@ def _spots(gray: np.ndarray, rmin: float, rmax: float, max_spots: int = 20000) -
     # (The difference, not its ratio to the noise, which grows with the box.)
     # Strongest difference first; a weaker candidate nearer than the larger of the two radii
     # (plus a pixel) to a kept one is the same spot (greedy, in order of strength).
-    from scipy.spatial import cKDTree
-
-    tree = cKDTree(c[:, :2])
     top = float(c[:, 2].max())
-    pairs = tree.query_pairs(top + 1.0, output_type="ndarray")
+    pairs = _grid.close_pairs(c[:, :2], top + 1.0)
     keep = np.ones(len(c), bool)
     if len(pairs):
         i, j = pairs[:, 0], pairs[:, 1]

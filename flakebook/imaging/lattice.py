@@ -12,6 +12,7 @@ import math
 import numpy as np
 
 from flakebook.errors import InputError
+from flakebook.imaging import _grid
 from flakebook.imaging.coverage import signed_distances
 from flakebook.imaging.records import Hole, Lattice
 
@@ -66,6 +67,17 @@ def lattice_refusal(
     return None
 
 
+def _nearest_distance(p: np.ndarray, block: int = 512) -> np.ndarray:
+    """Distance from each point to its nearest other point, sqrt(dx*dx + dy*dy)."""
+    out = np.empty(len(p))
+    for s0 in range(0, len(p), block):
+        d = p[s0 : s0 + block, None, :] - p[None, :, :]
+        d2 = d[..., 0] * d[..., 0] + d[..., 1] * d[..., 1]
+        d2[np.arange(d2.shape[0]), np.arange(s0, s0 + d2.shape[0])] = np.inf  # not itself
+        out[s0 : s0 + block] = np.sqrt(d2.min(1))
+    return out
+
+
 def _fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
     """The best square or hexagonal lattice through the centres, however poor (None with fewer
     than 4 centres or no neighbour pairs)."""
@@ -75,14 +87,10 @@ def _fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
     n = len(p)
     if n < 4:
         return None
-    from scipy.spatial import cKDTree
-
-    tree = cKDTree(p)
-    d, _ = tree.query(p, k=2)
-    pitch0 = float(np.median(d[:, 1]))
+    pitch0 = float(np.median(_nearest_distance(p)))
     if not pitch0 > 0:
         return None
-    pairs = tree.query_pairs(1.25 * pitch0, output_type="ndarray")
+    pairs = _grid.close_pairs(p, 1.25 * pitch0)
     if len(pairs) < 3:
         return None
     v = p[pairs[:, 1]] - p[pairs[:, 0]]

@@ -314,7 +314,11 @@ def segment(
             if np.count_nonzero(tm) < 6:
                 continue
             tm = cv2.morphologyEx(tm, cv2.MORPH_OPEN, kernel)
-            n2, lab2, st2, _ = cv2.connectedComponentsWithStats(tm, connectivity=8)
+            # (small masks: the sequential labelling, with the same labels as the default, is
+            # several times faster than spreading a few thousand pixels over threads)
+            n2, lab2, st2, _ = cv2.connectedComponentsWithStatsWithAlgorithm(
+                tm, 8, cv2.CV_32S, cv2.CCL_SPAGHETTI
+            )
             for j in range(1, n2):
                 if st2[j, cv2.CC_STAT_AREA] < min_px_work and not over_hole(
                     st2[j], px0, py0, hole_w, lab2, j
