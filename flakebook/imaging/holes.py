@@ -282,13 +282,25 @@ def _spots(gray: np.ndarray, rmin: float, rmax: float, max_spots: int = 20000) -
     # (The difference, not its ratio to the noise, which grows with the box.)
     # Strongest difference first; a weaker candidate nearer than the larger of the two radii
     # (plus a pixel) to a kept one is the same spot (greedy, in order of strength).
+    # Pairs nearer than the larger radius + 1 (and within top + 1, the search radius that
+    # defines them): searched radius class by radius class, each against the smaller ones.
     top = float(c[:, 2].max())
-    pairs = _grid.close_pairs(c[:, :2], top + 1.0)
+    found = []
+    classes = np.unique(c[:, 2])
+    for rc in classes:
+        big = np.flatnonzero(c[:, 2] == rc)
+        small = np.flatnonzero(c[:, 2] <= rc)
+        pr = _grid.cross_pairs(c[big, :2], c[small, :2], (rc + 1.0) * (1 + 1e-9))
+        found.append(np.column_stack([big[pr[:, 0]], small[pr[:, 1]]]))
+    pairs = np.concatenate(found) if found else np.zeros((0, 2), np.int64)
+    pairs = pairs[pairs[:, 0] != pairs[:, 1]]
     keep = np.ones(len(c), bool)
     if len(pairs):
         i, j = pairs[:, 0], pairs[:, 1]
-        d = np.hypot(c[j, 0] - c[i, 0], c[j, 1] - c[i, 1])
+        dxy = c[j, :2] - c[i, :2]
+        d = np.hypot(dxy[:, 0], dxy[:, 1])
         near = d < np.maximum(c[j, 2], c[i, 2]) + 1.0
+        near &= dxy[:, 0] * dxy[:, 0] + dxy[:, 1] * dxy[:, 1] <= (top + 1.0) ** 2
         lo = np.minimum(i[near], j[near])
         hi = np.maximum(i[near], j[near])
         order = np.argsort(lo, kind="stable")
