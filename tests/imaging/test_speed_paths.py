@@ -157,3 +157,26 @@ def test_survey_imports_no_scipy(tmp_path):
         [sys.executable, "-c", code], capture_output=True, text=True, check=True
     ).stdout.split()
     assert out == [], out
+
+
+def test_labels_of_an_even_crop_are_those_of_the_whole():
+    """Terraces are labelled within their own box whose origin is even (the labelling scans
+    2 x 2 blocks): the parts come out in the same order as in the flake's whole box."""
+    rng = np.random.default_rng(7)
+    for _ in range(300):
+        h, w = (int(v) for v in rng.integers(8, 160, 2))
+        m = np.zeros((h, w), np.uint8)
+        y0, x0 = (int(v) for v in rng.integers(0, [h - 4, w - 4]))
+        y1, x1 = (int(v) for v in rng.integers([y0 + 3, x0 + 3], [h + 1, w + 1]))
+        sub = rng.random((y1 - y0, x1 - x0)) > rng.uniform(0.3, 0.8)
+        m[y0:y1, x0:x1] = sub
+        algo = (m, 8, cv2.CV_32S, cv2.CCL_SPAGHETTI)
+        n, lab, st, _ = cv2.connectedComponentsWithStatsWithAlgorithm(*algo)
+        oy, ox = max(0, y0 - 2) & ~1, max(0, x0 - 2) & ~1
+        crop = np.ascontiguousarray(m[oy : min(h, y1 + 2), ox : min(w, x1 + 2)])
+        n2, lab2, st2, _ = cv2.connectedComponentsWithStatsWithAlgorithm(
+            crop, 8, cv2.CV_32S, cv2.CCL_SPAGHETTI
+        )
+        assert n2 == n
+        np.testing.assert_array_equal(lab2, lab[oy : oy + crop.shape[0], ox : ox + crop.shape[1]])
+        np.testing.assert_array_equal(st2[1:, 2:], st[1:, 2:])
