@@ -671,6 +671,7 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     tots = np.sqrt(var0[None] + (err**2)[:, None, :])  # (R, N, C)
     resids = (meas[:, None, :] - model_c[None]) / tots
     results = []
+    flat = _flat_posteriors(posts)
     said: dict[tuple, str] = {}
     for r in range(meas.shape[0]):
         if r % 1000 == 0:
@@ -680,7 +681,7 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
         grid = None
         if ctx["oxide_grid"] is not None:
             grid = evidence.GridLikelihood(ctx["oxide_grid"], grid_ll[r], method=prov["method"])
-        post = _flat_posterior(posts[r])
+        post = flat[r]
         warnings = []
         if best_chi2[r] > thresh:
             warnings.append(
@@ -742,21 +743,30 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     return results
 
 
-def _flat_posterior(post: np.ndarray) -> evidence.Posterior:
-    """evidence.combine of one likelihood with a flat prior, from its normalised values (the
-    same rule: most likely bin, its probability, others at >= evidence.AMBIGUITY_THRESHOLD)."""
-    post = post.copy()
-    post.setflags(write=False)
-    best = int(np.argmax(post))
-    order = np.argsort(-post, kind="stable")
-    amb = tuple(int(i) + 1 for i in order if i != best and post[i] >= evidence.AMBIGUITY_THRESHOLD)
-    return evidence.Posterior(
-        posterior=post,
-        layers=best + 1,
-        probability=float(post[best]),
-        ambiguous_with=amb,
-        max_layers=post.size - 1,
-    )
+def _flat_posteriors(posts: np.ndarray) -> list[evidence.Posterior]:
+    """evidence.combine of each row's likelihood with a flat prior, from its normalised values
+    (the same rule: most likely bin, its probability, others at >= the ambiguity threshold),
+    for all rows at once."""
+    posts = np.array(posts, dtype=float, copy=True)
+    best = np.argmax(posts, axis=1)
+    order = np.argsort(-posts, axis=1, kind="stable")
+    ranked = np.take_along_axis(posts, order, axis=1)
+    other = (ranked >= evidence.AMBIGUITY_THRESHOLD) & (order != best[:, None])
+    out = []
+    for r in range(len(posts)):
+        post = posts[r].copy()
+        post.setflags(write=False)
+        k = int(best[r])
+        out.append(
+            evidence.Posterior(
+                posterior=post,
+                layers=k + 1,
+                probability=float(post[k]),
+                ambiguous_with=tuple((order[r][other[r]] + 1).tolist()),
+                max_layers=post.size - 1,
+            )
+        )
+    return out
 
 
 def _provenance(ctx) -> dict:
