@@ -36,7 +36,7 @@ from flakebook.optics.layers_explain import (
     decider,
     model_contrast_curve,
     oxide_sensitivity,
-    separation_needed,
+    separation_needed_rows,
 )
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import Microscope, channel_contrast
@@ -594,7 +594,7 @@ def layer_likelihoods(
         res = _rows(meas, err, use, mean_all[..., idx], u_all[..., idx, :], ctx, cancel)
         for i, r in zip(rows, res):
             sat = [f"channel {c} left out: saturated" for c in saturated if c in contrasts[i]]
-            out[i] = replace(r, warnings=tuple(sat) + r.warnings)
+            out[i] = replace(r, warnings=tuple(sat) + r.warnings) if sat else r
     return out
 
 
@@ -672,6 +672,7 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     resids = (meas[:, None, :] - model_c[None]) / tots
     results = []
     flat = _flat_posteriors(posts)
+    seps = None
     said: dict[tuple, str] = {}
     for r in range(meas.shape[0]):
         if r % 1000 == 0:
@@ -705,7 +706,9 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
         text = ""
         if ctx["explain"] and post.ambiguous_with:
             cands = [min(n, max_layers + 1) for n in [post.layers, *post.ambiguous_with]]
-            key = (cands[0], cands[1], separation_needed(err[r], ctx["model_err"]))
+            if seps is None:  # of every row at once, when first needed
+                seps = separation_needed_rows(err, ctx["model_err"])
+            key = (cands[0], cands[1], seps[r])
             if key in said:
                 text = said[key]
             else:

@@ -40,3 +40,14 @@ def test_likelihood_at_exact_oxide_imports_no_scipy():
         [sys.executable, "-c", code], capture_output=True, text=True, check=True
     ).stdout.split()
     assert "scipy.special" not in out and "scipy.interpolate" not in out, out
+
+
+def test_separation_of_all_rows_is_that_of_each():
+    import numpy as np
+
+    from flakebook.optics.layers_explain import separation_needed, separation_needed_rows
+
+    rng = np.random.default_rng(0)
+    for n in (1, 2, 3, 4, 9):
+        e = rng.uniform(0, 0.05, (2000, n))
+        assert separation_needed_rows(e, 0.005) == [separation_needed(r, 0.005) for r in e]
