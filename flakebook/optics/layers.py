@@ -30,7 +30,7 @@ import numpy as np
 
 from flakebook import __version__, evidence
 from flakebook.errors import InputError, check_cancel
-from flakebook.optics._chi2 import _CHI2_999, _chi2_upper_1e3  # noqa: F401
+from flakebook.optics._layer_rows import _CHI2_999, _chi2_upper_1e3, flat_posteriors  # noqa: F401
 from flakebook.optics.layers_explain import (
     ContrastCurve,
     decider,
@@ -671,7 +671,7 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     tots = np.sqrt(var0[None] + (err**2)[:, None, :])  # (R, N, C)
     resids = (meas[:, None, :] - model_c[None]) / tots
     results = []
-    flat = _flat_posteriors(posts)
+    flat = flat_posteriors(posts)
     seps = None
     said: dict[tuple, str] = {}
     for r in range(meas.shape[0]):
@@ -744,32 +744,6 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
             )
         )
     return results
-
-
-def _flat_posteriors(posts: np.ndarray) -> list[evidence.Posterior]:
-    """evidence.combine of each row's likelihood with a flat prior, from its normalised values
-    (the same rule: most likely bin, its probability, others at >= the ambiguity threshold),
-    for all rows at once."""
-    posts = np.array(posts, dtype=float, copy=True)
-    best = np.argmax(posts, axis=1)
-    order = np.argsort(-posts, axis=1, kind="stable")
-    ranked = np.take_along_axis(posts, order, axis=1)
-    other = (ranked >= evidence.AMBIGUITY_THRESHOLD) & (order != best[:, None])
-    out = []
-    for r in range(len(posts)):
-        post = posts[r].copy()
-        post.setflags(write=False)
-        k = int(best[r])
-        out.append(
-            evidence.Posterior(
-                posterior=post,
-                layers=k + 1,
-                probability=float(post[k]),
-                ambiguous_with=tuple((order[r][other[r]] + 1).tolist()),
-                max_layers=post.size - 1,
-            )
-        )
-    return out
 
 
 def _provenance(ctx) -> dict:
