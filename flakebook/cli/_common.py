@@ -114,11 +114,21 @@ def output_format(args: argparse.Namespace) -> str:
     return "table" if sys.stdout.isatty() else "json"
 
 
+_PLAIN_NUMBERS = {float, int}
+
+
 def _clean(value: Any) -> Any:
     """Make a value JSON-safe: NaN and inf become null, numpy scalars plain numbers."""
     if isinstance(value, dict):
         return {str(k): _clean(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
+        if value and set(map(type, value)) <= _PLAIN_NUMBERS:
+            # a list of plain numbers (most of a result's bulk) without a call per item
+            try:
+                if all(map(math.isfinite, value)):
+                    return list(value)
+            except OverflowError:  # an int too large for a float: item by item below
+                pass
         return [_clean(v) for v in value]
     if hasattr(value, "tolist") and not isinstance(value, str | bytes):
         return _clean(value.tolist())

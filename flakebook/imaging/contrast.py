@@ -26,6 +26,30 @@ MAX_PIXELS = 40_000  # interior pixels measured per region (a sub-grid beyond th
 # ---- substrate ---------------------------------------------------------------------------------
 
 
+def box3_mean(a: np.ndarray) -> np.ndarray:
+    """Mean over a 3-wide window along every axis in turn, zero outside the array (float64).
+
+    The running sum of scipy.ndimage.uniform_filter(a, 3, mode="constant"), step for step, so
+    that it gives the same values (tests/imaging/test_speed_paths.py checks it against scipy):
+    a survey then needs no scipy.ndimage, whose import costs a few hundred ms.
+    """
+    out = np.array(a, np.float64)
+    for axis in range(out.ndim):
+        x = np.moveaxis(out, axis, 0)
+        n = x.shape[0]
+        pad = np.zeros((n + 2, *x.shape[1:]))
+        pad[1:-1] = x
+        res = np.empty_like(x)
+        tmp = pad[0] + pad[1]
+        tmp += pad[2]
+        res[0] = tmp / 3.0
+        for i in range(1, n):
+            tmp += pad[i + 2] - pad[i - 1]
+            res[i] = tmp / 3.0
+        out = np.ascontiguousarray(np.moveaxis(res, 0, axis))
+    return out
+
+
 def substrate_colour(
     work: np.ndarray, valid: np.ndarray | None = None, bins: int = 48
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -43,8 +67,6 @@ def substrate_colour(
     Returns:
         (level per channel, robust standard deviation per channel, bool mask of substrate pixels).
     """
-    from scipy.ndimage import uniform_filter
-
     rows, cols, nch = work.shape
     if nch > 3:
         bins = max(4, int(round(110_000 ** (1.0 / nch))))
@@ -64,7 +86,7 @@ def substrate_colour(
     for c in range(nch):
         key = key * bins + q[:, c]
     counts = np.bincount(key, minlength=bins**nch).astype(np.float64).reshape((bins,) * nch)
-    mass = uniform_filter(counts, size=3, mode="constant")
+    mass = box3_mean(counts)
     idx = np.array(np.unravel_index(int(np.argmax(mass)), mass.shape))
     level = lo + (idx + 0.5) * width
     tol = 2.0 * width
@@ -142,7 +164,7 @@ def substrate_patches(
         return []
     m = sub_mask_work.astype(np.uint8)
     er = cv2.erode(m, np.ones((bw + 2, bw + 2), np.uint8), anchor=(0, 0), borderValue=0)
-    ys, xs = np.nonzero(er[: rows - bw - 1, : cols - bw - 1] if rows > bw + 1 else er)
+    ys, xs = _grid.nonzero(er[: rows - bw - 1, : cols - bw - 1] if rows > bw + 1 else er)
     if len(ys) == 0:
         return []
     pick = np.linspace(0, len(ys) - 1, min(want, len(ys))).astype(int)
@@ -209,7 +231,7 @@ def measure_region(
     fy0, fx0 = ry * f, rx * f
     h = min(rmask.shape[0] * f, image.height - fy0)
     w = min(rmask.shape[1] * f, image.width - fx0)
-    wy, wx = np.nonzero(rmask)
+    wy, wx = _grid.nonzero(rmask)
     if len(wy) == 0:
         return None
     # Area, box and centroid of the region's full-resolution pixels (blocks of f x f).
@@ -238,8 +260,8 @@ def measure_region(
     inner = inner[::k, ::k] & ~image.saturated_crop(rows, cols)
     if np.count_nonzero(inner) < 4:
         return None
-    crop = bg.correct(image, rows, cols)
-    cvals = contrast_image(crop[inner], level)
+    iy, ix = _grid.nonzero(inner)  # the order of crop[inner]
+    cvals = contrast_image(bg.correct_at(image, rows, cols, iy, ix), level)
     n = int(cvals.shape[0])
     contrast, err, sdd = {}, {}, {}
     neff = n

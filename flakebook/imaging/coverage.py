@@ -17,22 +17,33 @@ from flakebook.imaging.records import Coverage, Hole
 
 def signed_distance(polygon_px: np.ndarray, point: tuple[float, float]) -> float:
     """Distance from a point to a polygon's boundary, positive inside, negative outside."""
+    return float(signed_distances(polygon_px, np.asarray(point, np.float64).reshape(1, 2))[0])
+
+
+def signed_distances(polygon_px: np.ndarray, points: np.ndarray) -> np.ndarray:
+    """:func:`signed_distance` of many points ``[n, 2]`` at once (the same arithmetic per
+    point), in blocks that keep the point-edge arrays small."""
     p = np.asarray(polygon_px, np.float64).reshape(-1, 2)
+    q_all = np.asarray(points, np.float64).reshape(-1, 2)
     a = p
     b = np.roll(p, -1, axis=0)
-    q = np.asarray(point, np.float64)
     d = b - a
     L2 = np.maximum((d**2).sum(1), 1e-300)
-    t = np.clip(((q - a) * d).sum(1) / L2, 0, 1)
-    near = a + t[:, None] * d
-    dist = float(np.sqrt(((near - q) ** 2).sum(1)).min())
-    # Even-odd rule.
-    y = q[1]
-    cond = (a[:, 1] > y) != (b[:, 1] > y)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        xc = a[:, 0] + (y - a[:, 1]) * d[:, 0] / d[:, 1]
-    inside = bool(np.count_nonzero(cond & (xc > q[0])) % 2)
-    return dist if inside else -dist
+    out = np.empty(len(q_all))
+    step = max(1, 2_000_000 // max(len(p), 1))
+    for s0 in range(0, len(q_all), step):
+        q = q_all[s0 : s0 + step, None, :]  # (m, 1, 2) against the edges (e, 2)
+        t = np.clip(((q - a) * d).sum(-1) / L2, 0, 1)
+        near = a + t[..., None] * d
+        dist = np.sqrt(((near - q) ** 2).sum(-1)).min(-1)
+        # Even-odd rule.
+        y = q[:, :, 1]
+        cond = (a[:, 1] > y) != (b[:, 1] > y)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            xc = a[:, 0] + (y - a[:, 1]) * d[:, 0] / d[:, 1]
+        inside = np.count_nonzero(cond & (xc > q[:, :, 0]), axis=1) % 2 == 1
+        out[s0 : s0 + step] = np.where(inside, dist, -dist)
+    return out
 
 
 def circle_polygon_area(
@@ -90,7 +101,15 @@ def hole_coverage(
     poly = np.asarray(outline_px, np.float64).reshape(-1, 2)
     if len(poly) < 3:
         return Coverage(0.0, False, float("nan"), float("nan"))
-    sd = signed_distance(poly, center)
+    return _coverage_from(poly, (center, r), signed_distance(poly, center), um_per_px)
+
+
+def _coverage_from(poly: np.ndarray, hole, sd: float, um_per_px: float) -> Coverage:
+    """hole_coverage from the signed distance of the hole's centre to the outline."""
+    if isinstance(hole, Hole):
+        center, r = hole.center_px, hole.radius_px
+    else:
+        center, r = hole
     margin = sd - r
     if sd >= r:
         frac = 1.0  # wholly inside: no edge within the disk
@@ -165,18 +184,24 @@ def coverage_pairs(
 ) -> list[tuple[int, int, Coverage]]:
     """(flake id, hole index, coverage) for every flake outline that covers part of a hole."""
     out = []
+    if not holes:
+        return out
+    centres = np.array([h.center_px for h in holes], np.float64).reshape(-1, 2)
+    radii = np.array([h.radius_px for h in holes], np.float64)
     for fid, poly in outlines_px.items():
         poly = np.asarray(poly, np.float64).reshape(-1, 2)
         if len(poly) < 3:
             continue
         x0, y0 = poly.min(0)
         x1, y1 = poly.max(0)
-        for k, h in enumerate(holes):
-            cx, cy = h.center_px
-            r = h.radius_px
-            if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
-                continue
-            cov = hole_coverage(poly, h, um_per_px)
+        cx, cy = centres[:, 0], centres[:, 1]
+        near = ~((cx + radii < x0) | (cx - radii > x1) | (cy + radii < y0) | (cy - radii > y1))
+        ks = np.flatnonzero(near)
+        if not len(ks):
+            continue
+        sds = signed_distances(poly, centres[ks])
+        for k, sd in zip(ks, sds):
+            cov = _coverage_from(poly, holes[k], float(sd), um_per_px)
             if cov.covered_fraction > 0:
-                out.append((fid, k, cov))
+                out.append((fid, int(k), cov))
     return out

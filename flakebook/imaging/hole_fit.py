@@ -67,8 +67,77 @@ def refine_hole(
     Returns:
         (cx, cy, r, center_err, radius_err, n_points) or None when no clear edge is found.
     """
-    g = None if sampler is not None else np.ascontiguousarray(gray, np.float32)
+    opts = dict(
+        n_angles=n_angles,
+        iterations=iterations,
+        max_rms_px=max_rms_px,
+        max_rms_rel=max_rms_rel,
+        min_step=min_step,
+    )
+    if sampler is not None:
+        return refine_holes([(cx, cy, r)], sampler, **opts)[0]
+    g = np.ascontiguousarray(gray, np.float32)
     ox, oy = offset
+    steps = _refine_steps(cx, cy, r, **opts)
+    try:
+        want = next(steps)
+        while True:
+            px, py, th, rr = want
+            mx = (px - ox + np.outer(np.cos(th), rr)).astype(np.float32)
+            my = (py - oy + np.outer(np.sin(th), rr)).astype(np.float32)
+            prof = cv2.remap(
+                g, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan
+            )
+            want = steps.send(prof)
+    except StopIteration as done:
+        return done.value
+
+
+def refine_holes(
+    circles, sampler, **opts
+) -> list[tuple[float, float, float, float, float, int] | None]:
+    """:func:`refine_hole` with a ``sampler`` for many rough circles ``(cx, cy, r)`` at once:
+    each round of profiles of every hole is sampled in one call (the sampler works point by
+    point, so the results are those of one hole at a time)."""
+    out: list = [None] * len(circles)
+    live = {}
+    wants = {}
+    for i, (cx, cy, r) in enumerate(circles):
+        steps = _refine_steps(cx, cy, r, **opts)
+        try:
+            wants[i] = next(steps)
+        except StopIteration as done:
+            out[i] = done.value
+            continue
+        live[i] = steps
+    while live:
+        ids = list(live)
+        xs, ys, shapes = [], [], []
+        for i in ids:
+            px, py, th, rr = wants[i]
+            xs.append((px + np.outer(np.cos(th), rr)).ravel())
+            ys.append((py + np.outer(np.sin(th), rr)).ravel())
+            shapes.append((len(th), len(rr)))
+        prof_all = sampler(np.concatenate(xs), np.concatenate(ys))
+        at = 0
+        for i, shape in zip(ids, shapes):
+            n = shape[0] * shape[1]
+            prof = prof_all[at : at + n].reshape(shape)
+            at += n
+            try:
+                wants[i] = live[i].send(prof)
+            except StopIteration as done:
+                out[i] = done.value
+                del live[i]
+    return out
+
+
+def _refine_steps(
+    cx, cy, r, *, n_angles=None, iterations=2, max_rms_px=0.3, max_rms_rel=0.03, min_step=None
+):
+    """The fit of :func:`refine_hole` as a generator: it yields the rays it needs sampled
+    ``(cx, cy, angles, radii)`` and is sent back the profiles ``[angle, radius]``; its return
+    value is the result."""
     zone = 8.0
     for _ in range(iterations):
         k = n_angles or int(np.clip(2 * math.pi * r, 24, 96))
@@ -82,14 +151,7 @@ def refine_hole(
                 np.linspace(1.45 * r + 1.0, 1.7 * r + 2.0, 4),
             ]
         )
-        if sampler is not None:
-            prof = sampler(cx + np.outer(np.cos(th), rr), cy + np.outer(np.sin(th), rr))
-        else:
-            mx = (cx - ox + np.outer(np.cos(th), rr)).astype(np.float32)
-            my = (cy - oy + np.outer(np.sin(th), rr)).astype(np.float32)
-            prof = cv2.remap(
-                g, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_CONSTANT, borderValue=np.nan
-            )
+        prof = yield cx, cy, th, rr
         inside = np.nanmedian(prof[:, :4])
         outside = np.nanmedian(prof[:, -4:])
         if not (np.isfinite(inside) and np.isfinite(outside)):

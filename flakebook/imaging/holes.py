@@ -26,7 +26,7 @@ from flakebook.imaging.coverage import (
     manual_hole,
     signed_distance,
 )
-from flakebook.imaging.hole_fit import fit_circle, refine_hole
+from flakebook.imaging.hole_fit import fit_circle, refine_hole, refine_holes
 from flakebook.imaging.lattice import (
     MAX_LATTICE_RESIDUAL,
     MIN_LATTICE_HOLES,
@@ -186,10 +186,13 @@ def detect_holes(
     noise = 1.4826 * float(np.median(np.abs(np.diff(sample, axis=1)))) / math.sqrt(2)
     need = min_step if min_step is not None else max(8 * noise, 1e-4)
     holes: list[Hole] = []
-    for cx, cy, r in found:
+    check_cancel(cancel)
+    # With a sampler, every hole's profiles are sampled together, round by round.
+    fits = refine_holes(found, sampler, min_step=need) if sampler is not None else None
+    for i, (cx, cy, r) in enumerate(found):
         check_cancel(cancel)
-        if sampler is not None:
-            fit = refine_hole(None, cx, cy, r, min_step=need, sampler=sampler)
+        if fits is not None:
+            fit = fits[i]
         else:
             pad = int(1.7 * r + 6)
             x0, y0 = max(0, int(cx - pad)), max(0, int(cy - pad))
@@ -251,16 +254,24 @@ def _spots(gray: np.ndarray, rmin: float, rmax: float, max_spots: int = 20000) -
     noise = 1.4826 * float(np.median(np.abs(np.diff(sample, axis=1)))) / math.sqrt(2)
     cand = []
     r = float(rmin)
+    surround = np.empty_like(g)
     while r <= rmax * 1.0001:
         a = max(3, int(round(1.2 * r)) | 1)
         b = max(a + 4, int(round(3.0 * r)) | 1)
         inner = cv2.boxFilter(g, -1, (a, a), borderType=cv2.BORDER_REPLICATE)
         outer = cv2.boxFilter(g, -1, (b, b), borderType=cv2.BORDER_REPLICATE)
-        ring = (outer * np.float32(b * b) - inner * np.float32(a * a)) / np.float32(b * b - a * a)
-        resp = np.abs(inner - ring)
+        # surround = (outer b^2 - inner a^2) / (b^2 - a^2), resp = |inner - surround|, in place
+        np.multiply(outer, np.float32(b * b), out=outer)
+        np.multiply(inner, np.float32(a * a), out=surround)
+        np.subtract(outer, surround, out=surround)
+        np.divide(surround, np.float32(b * b - a * a), out=surround)
+        resp = np.subtract(inner, surround, out=inner)
+        np.abs(resp, out=resp)
         thr = 6.0 * max(noise, 1e-12) * math.sqrt(1.0 / (a * a) + 1.0 / (b * b - a * a))
-        peak = (resp >= cv2.dilate(resp, np.ones((3, 3), np.uint8))) & (resp > thr)
-        ys, xs = np.nonzero(peak)
+        top3 = cv2.dilate(resp, np.ones((3, 3), np.uint8), dst=outer)
+        peak = np.greater(resp, thr)
+        peak &= resp >= top3
+        ys, xs = _grid.nonzero(peak)
         if len(ys):
             cand.append(np.column_stack([xs, ys, np.full(len(xs), r), resp[ys, xs]]))
         r *= 1.3
@@ -270,18 +281,34 @@ def _spots(gray: np.ndarray, rmin: float, rmax: float, max_spots: int = 20000) -
     c = c[np.argsort(-c[:, 3])][: 4 * max_spots]
     # (The difference, not its ratio to the noise, which grows with the box.)
     # Strongest difference first; a weaker candidate nearer than the larger of the two radii
-    # (plus a pixel) to a kept one is the same spot.
-    from scipy.spatial import cKDTree
-
-    tree = cKDTree(c[:, :2])
-    keep = np.ones(len(c), bool)
+    # (plus a pixel) to a kept one is the same spot (greedy, in order of strength).
+    # Pairs nearer than the larger radius + 1 (and within top + 1, the search radius that
+    # defines them): searched radius class by radius class, each against the smaller ones.
     top = float(c[:, 2].max())
-    for i in range(len(c)):
-        if keep[i]:
-            nb = np.asarray(tree.query_ball_point(c[i, :2], max(c[i, 2], top) + 1.0), int)
-            d = np.hypot(c[nb, 0] - c[i, 0], c[nb, 1] - c[i, 1])
-            keep[nb[d < np.maximum(c[nb, 2], c[i, 2]) + 1.0]] = False
-            keep[i] = True
+    found = []
+    classes = np.unique(c[:, 2])
+    for rc in classes:
+        big = np.flatnonzero(c[:, 2] == rc)
+        small = np.flatnonzero(c[:, 2] <= rc)
+        pr = _grid.cross_pairs(c[big, :2], c[small, :2], (rc + 1.0) * (1 + 1e-9))
+        found.append(np.column_stack([big[pr[:, 0]], small[pr[:, 1]]]))
+    pairs = np.concatenate(found) if found else np.zeros((0, 2), np.int64)
+    pairs = pairs[pairs[:, 0] != pairs[:, 1]]
+    keep = np.ones(len(c), bool)
+    if len(pairs):
+        i, j = pairs[:, 0], pairs[:, 1]
+        dxy = c[j, :2] - c[i, :2]
+        d = np.hypot(dxy[:, 0], dxy[:, 1])
+        near = d < np.maximum(c[j, 2], c[i, 2]) + 1.0
+        near &= dxy[:, 0] * dxy[:, 0] + dxy[:, 1] * dxy[:, 1] <= (top + 1.0) ** 2
+        lo = np.minimum(i[near], j[near])
+        hi = np.maximum(i[near], j[near])
+        order = np.argsort(lo, kind="stable")
+        lo, hi = lo[order], hi[order]
+        starts = np.searchsorted(lo, np.arange(len(c) + 1))
+        for k in np.unique(lo):
+            if keep[k]:
+                keep[hi[starts[k] : starts[k + 1]]] = False
     c = c[keep]
     # A hole is a uniform disk in a uniform surround: sampled at 0.4 r inside and 1.7 r
     # outside, each ring's spread must stay under a third of the step between them (flake

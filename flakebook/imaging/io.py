@@ -177,6 +177,17 @@ class Micrograph:
             return lin[rows, cols]
         return self._convert(self.samples[rows, cols])
 
+    def crop_at(self, ys: np.ndarray, xs: np.ndarray) -> np.ndarray:
+        """Linear intensity ``[point, ch]`` of the pixels at rows ``ys`` and columns ``xs``
+        (float32; the same values as :meth:`crop` gives at those pixels)."""
+        if self.linear_samples:
+            return self.samples[ys, xs]
+        lin = self._cache.get("lin")
+        if lin is not None:
+            return lin[ys, xs]
+        raw = self.samples[ys, xs]
+        return self._convert(raw.reshape(len(raw), 1, -1)).reshape(len(raw), -1)
+
     def working(self, factor: int) -> np.ndarray:
         """Block means of the linear intensity over ``factor`` x ``factor`` pixels (kept).
 

@@ -12,7 +12,8 @@ import math
 import numpy as np
 
 from flakebook.errors import InputError
-from flakebook.imaging.coverage import signed_distance
+from flakebook.imaging import _grid
+from flakebook.imaging.coverage import signed_distances
 from flakebook.imaging.records import Hole, Lattice
 
 MIN_LATTICE_HOLES = 6  # fewer holes do not fix a lattice (4 points fit some lattice nearly always)
@@ -66,6 +67,17 @@ def lattice_refusal(
     return None
 
 
+def _nearest_distance(p: np.ndarray, block: int = 512) -> np.ndarray:
+    """Distance from each point to its nearest other point, sqrt(dx*dx + dy*dy)."""
+    out = np.empty(len(p))
+    for s0 in range(0, len(p), block):
+        d = p[s0 : s0 + block, None, :] - p[None, :, :]
+        d2 = d[..., 0] * d[..., 0] + d[..., 1] * d[..., 1]
+        d2[np.arange(d2.shape[0]), np.arange(s0, s0 + d2.shape[0])] = np.inf  # not itself
+        out[s0 : s0 + block] = np.sqrt(d2.min(1))
+    return out
+
+
 def _fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
     """The best square or hexagonal lattice through the centres, however poor (None with fewer
     than 4 centres or no neighbour pairs)."""
@@ -75,14 +87,10 @@ def _fit_lattice(centers_px: np.ndarray, kind: str = "auto") -> Lattice | None:
     n = len(p)
     if n < 4:
         return None
-    from scipy.spatial import cKDTree
-
-    tree = cKDTree(p)
-    d, _ = tree.query(p, k=2)
-    pitch0 = float(np.median(d[:, 1]))
+    pitch0 = float(np.median(_nearest_distance(p)))
     if not pitch0 > 0:
         return None
-    pairs = tree.query_pairs(1.25 * pitch0, output_type="ndarray")
+    pairs = _grid.close_pairs(p, 1.25 * pitch0)
     if len(pairs) < 3:
         return None
     v = p[pairs[:, 1]] - p[pairs[:, 0]]
@@ -162,23 +170,37 @@ def predict_hidden_holes(
     r_err = float(1.4826 * np.median(np.abs(radii - r))) if len(radii) > 2 else float(radii.std())
     sites = lattice_sites(lattice, shape, margin_px=r)
     dc = np.array([h.center_px for h in det])
-    out = []
-    for s in sites:
-        if np.min(np.hypot(*(dc - s).T)) < 0.5 * lattice.pitch_px:
+    if not len(sites):
+        return ()
+    # Sites with no detected hole within half a pitch ...
+    far = np.array([np.min(np.hypot(*(dc - s).T)) >= 0.5 * lattice.pitch_px for s in sites])
+    cand = np.flatnonzero(far)
+    # ... whose disk lies (partly) under an outline: signed distance > -r to any of them (a
+    # site farther than r outside an outline's box cannot be).
+    under = np.zeros(len(sites), bool)
+    for poly in outlines_px:
+        poly = np.asarray(poly, np.float64).reshape(-1, 2)
+        if len(poly) < 3 or not len(cand):
             continue
-        for poly in outlines_px:
-            if len(poly) >= 3 and signed_distance(poly, (s[0], s[1])) > -r:
-                out.append(
-                    Hole(
-                        (float(s[0]), float(s[1])),
-                        r,
-                        r_err,
-                        lattice.residual_px,
-                        det[0].um_per_px,
-                        det[0].um_per_px_err,
-                        False,
-                        0,
-                    )
-                )
-                break
+        (x0, y0), (x1, y1) = poly.min(0), poly.max(0)
+        pts = sites[cand]
+        box = (pts[:, 0] >= x0 - r) & (pts[:, 0] <= x1 + r)
+        box &= (pts[:, 1] >= y0 - r) & (pts[:, 1] <= y1 + r)
+        test = cand[box]
+        if len(test):
+            under[test[signed_distances(poly, sites[test]) > -r]] = True
+        cand = cand[~under[cand]]
+    out = [
+        Hole(
+            (float(s[0]), float(s[1])),
+            r,
+            r_err,
+            lattice.residual_px,
+            det[0].um_per_px,
+            det[0].um_per_px_err,
+            False,
+            0,
+        )
+        for s in sites[under]
+    ]
     return tuple(out)

@@ -32,18 +32,20 @@ def mean_shift_modes(points: np.ndarray, weights: np.ndarray, iters: int = 40) -
     d2 = (x**2).sum(1)[:, None] + p2[None, :] - 2.0 * x @ pts.T
     dens = (d2 <= 1.0) @ weights
     order = np.argsort(-dens)
-    centres = np.zeros((0, pts.shape[1]))
+    found = np.zeros((len(x), pts.shape[1]))  # the centres so far are found[:m]
+    m = 0
     label = np.empty(len(x), int)
     for i in order:
-        if len(centres):
-            dd = ((centres - x[i]) ** 2).sum(1)
+        if m:
+            dd = ((found[:m] - x[i]) ** 2).sum(1)
             j = int(np.argmin(dd))
             if dd[j] <= 0.25:
                 label[i] = j
                 continue
-        centres = np.vstack([centres, x[i]])
-        label[i] = len(centres) - 1
-    return label, centres
+        found[m] = x[i]
+        label[i] = m
+        m += 1
+    return label, found[:m].copy()
 
 
 def _unique_rows(key: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

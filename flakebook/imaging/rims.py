@@ -12,6 +12,7 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
+from flakebook.imaging import _grid
 from flakebook.imaging._grid import outline
 from flakebook.imaging.background import Background
 from flakebook.imaging.contrast import contrast_image
@@ -231,7 +232,7 @@ def over_hole(
         if labels is None:
             return True
         bx, by, bw_, bh = (int(v) for v in stat[:4])
-        ys, xs = np.nonzero(labels[by : by + bh, bx : bx + bw_] == label)
+        ys, xs = _grid.nonzero(labels[by : by + bh, bx : bx + bw_] == label)
         inside = np.hypot(xs + bx + x0 - x, ys + by + y0 - y) <= r - 1.5
         if np.count_nonzero(inside) >= max(6.0, 0.08 * np.pi * r * r):
             return True

@@ -25,7 +25,6 @@ import numpy as np
 
 from flakebook.errors import InputError, check_cancel
 from flakebook.imaging import _grid
-from flakebook.imaging._grid import full_crop_mask
 from flakebook.imaging.background import Background, fit_background
 from flakebook.imaging.contrast import (
     MAX_PIXELS,
@@ -312,15 +311,36 @@ def segment(
         fid = len(flakes) + 1
         flake_labels[py0:py1, px0:px1][fmask] = fid
         rids = []
-        for t in range(1, len(cz)):
-            tm = (tl == t).astype(np.uint8)
-            if np.count_nonzero(tm) < 6:
+        # Each terrace class is opened and labelled within its own box (plus a margin of 2,
+        # beyond the opening's reach), not the flake's: the same components, found faster.
+        ty, tx = _grid.nonzero(tl)
+        tcls = tl[ty, tx]
+        ncls = len(cz)
+        counts = np.bincount(tcls, minlength=ncls)
+        big = np.iinfo(np.int64).max
+        ylo, xlo = np.full(ncls, big), np.full(ncls, big)
+        yhi, xhi = np.full(ncls, -1), np.full(ncls, -1)
+        np.minimum.at(ylo, tcls, ty)
+        np.minimum.at(xlo, tcls, tx)
+        np.maximum.at(yhi, tcls, ty)
+        np.maximum.at(xhi, tcls, tx)
+        for t in range(1, ncls):
+            if counts[t] < 6:
                 continue
+            # (an even origin: the labelling scans 2 x 2 blocks, whose order numbers the parts)
+            oy, ox = max(0, int(ylo[t]) - 2) & ~1, max(0, int(xlo[t]) - 2) & ~1
+            ey, ex = min(tl.shape[0], int(yhi[t]) + 3), min(tl.shape[1], int(xhi[t]) + 3)
+            tm = (tl[oy:ey, ox:ex] == t).astype(np.uint8)
             tm = cv2.morphologyEx(tm, cv2.MORPH_OPEN, kernel)
-            n2, lab2, st2, _ = cv2.connectedComponentsWithStats(tm, connectivity=8)
+            # (small masks: the sequential labelling, with the same labels as the default, is
+            # several times faster than spreading a few thousand pixels over threads)
+            n2, lab2, st2, _ = cv2.connectedComponentsWithStatsWithAlgorithm(
+                tm, 8, cv2.CV_32S, cv2.CCL_SPAGHETTI
+            )
+            cx0, cy0 = px0 + ox, py0 + oy  # the crop's top-left on the working grid
             for j in range(1, n2):
                 if st2[j, cv2.CC_STAT_AREA] < min_px_work and not over_hole(
-                    st2[j], px0, py0, hole_w, lab2, j
+                    st2[j], cx0, cy0, hole_w, lab2, j
                 ):
                     continue
                 rx, ry, rw, rh = (int(v) for v in st2[j, :4])
@@ -331,8 +351,8 @@ def segment(
                     background,
                     level,
                     rmask,
-                    px0 + rx,
-                    py0 + ry,
+                    cx0 + rx,
+                    cy0 + ry,
                     f,
                     rid,
                     fid,
@@ -342,23 +362,26 @@ def segment(
                     sub_rel,
                 )
                 if reg is not None:
-                    labels[py0 + ry : py0 + ry + rh, px0 + rx : px0 + rx + rw][rmask] = rid
+                    labels[cy0 + ry : cy0 + ry + rh, cx0 + rx : cx0 + rx + rw][rmask] = rid
                     regions.append(reg)
                     rids.append(rid)
-        ys, xs = np.nonzero(fmask)
+        ys, xs = _grid.nonzero(fmask)
         bx0, bx1, by0, by1 = xs.min(), xs.max(), ys.min(), ys.max()
         crop = fmask[by0 : by1 + 1, bx0 : bx1 + 1]
-        full = full_crop_mask(crop, f)
-        yy, xx = np.nonzero(full)
-        area_px = int(len(yy))
+        # Area and centroid of the full-resolution pixels (f x f per working pixel), in whole
+        # numbers: working pixel j covers full columns f j .. f j + f - 1, each in f rows.
+        n_work = len(xs)
+        area_px = n_work * f * f
+        sum_x = f**3 * int((xs - bx0).sum()) + n_work * f * f * (f - 1) // 2
+        sum_y = f**3 * int((ys - by0).sum()) + n_work * f * f * (f - 1) // 2
         ox, oy = (px0 + bx0) * f, (py0 + by0) * f
         flakes.append(
             Flake(
                 id=fid,
                 area_px=area_px,
                 area_um2=float(area_px * um_per_px**2),
-                bbox_px=(ox, oy, ox + full.shape[1] - 1, oy + full.shape[0] - 1),
-                centroid_px=(float(xx.mean() + ox), float(yy.mean() + oy)),
+                bbox_px=(ox, oy, ox + crop.shape[1] * f - 1, oy + crop.shape[0] * f - 1),
+                centroid_px=(float(sum_x / area_px + ox), float(sum_y / area_px + oy)),
                 outline_px=flake_outline(
                     image,
                     background,

@@ -219,7 +219,7 @@ def _share_over_hole(seg: Segmentation, reg: Region, hole: Hole) -> float:
     n = int(np.count_nonzero(lab))
     if n == 0:
         return 0.0
-    yy, xx = np.nonzero(lab)
+    yy, xx = _grid.nonzero(lab)
     d = np.hypot(_grid.to_full(xx + wx0, f) - cx, _grid.to_full(yy + wy0, f) - cy)
     return float(np.count_nonzero(d <= r)) / n
 
@@ -274,7 +274,7 @@ def survey_image(
     Returns:
         A :class:`SurveyResult`.
     """
-    from flakebook.optics.layers import layer_likelihood
+    from flakebook.optics.layers import layer_likelihood, layer_likelihoods
     from flakebook.optics.materials import Material, get_material
     from flakebook.optics.substrate import Hole as OpticsHole
     from flakebook.optics.substrate import Substrate, parse_substrate
@@ -368,7 +368,9 @@ def survey_image(
     report(0.7, "layer evidence")
     ohole = hole if hole is not None else OpticsHole()
     sat_channels = ()
-    out_regions: list[SurveyRegion] = []
+    # Each terrace's geometry, then the layer evidence of all terraces of one geometry at once
+    # (layer_likelihoods is vectorised over measurements; the rows are independent).
+    placed: list[tuple[Region, str, int | None]] = []
     for reg in seg.regions:
         check_cancel(cancel)
         geometry, hidx = "supported", None
@@ -376,25 +378,49 @@ def survey_image(
             if _share_over_hole(seg, reg, h) >= 0.5:
                 geometry, hidx = "suspended", k
                 break
-        rwarn: list[str] = []
+        placed.append((reg, geometry, hidx))
+    likes: list = [None] * len(placed)
+    for geometry in ("supported", "suspended"):
+        rows = [i for i, (_, g, _) in enumerate(placed) if g == geometry]
+        if not rows:
+            continue
+        opts = dict(
+            material=mat,
+            substrate=sub,
+            microscope=microscope,
+            max_layers=max_layers,
+            oxide_err_nm=oxide_err_nm,
+            contrast_scale=contrast_scale,
+            contrast_scale_err=contrast_scale_err,
+            calibration=calibration,
+            geometry=geometry,
+            hole=ohole if geometry == "suspended" else None,
+            saturated=sat_channels,
+            cancel=cancel,
+        )
         try:
-            like = layer_likelihood(
-                reg.contrast,
-                reg.contrast_err,
-                material=mat,
-                substrate=sub,
-                microscope=microscope,
-                max_layers=max_layers,
-                oxide_err_nm=oxide_err_nm,
-                contrast_scale=contrast_scale,
-                contrast_scale_err=contrast_scale_err,
-                calibration=calibration,
-                geometry=geometry,
-                hole=ohole if geometry == "suspended" else None,
-                saturated=sat_channels,
+            got = layer_likelihoods(
+                [placed[i][0].contrast for i in rows],
+                [placed[i][0].contrast_err for i in rows],
+                **opts,
             )
-        except InputError as exc:
-            rwarn.append(f"no layer evidence: {exc}")
+        except InputError:
+            # One bad row refuses the whole batch: take them one by one to name it.
+            got = []
+            for i in rows:
+                try:
+                    got.append(
+                        layer_likelihood(placed[i][0].contrast, placed[i][0].contrast_err, **opts)
+                    )
+                except InputError as exc:
+                    got.append(exc)
+        for i, g in zip(rows, got):
+            likes[i] = g
+    out_regions: list[SurveyRegion] = []
+    for (reg, geometry, hidx), like in zip(placed, likes):
+        rwarn: list[str] = []
+        if isinstance(like, InputError):
+            rwarn.append(f"no layer evidence: {like}")
             out_regions.append(
                 SurveyRegion(reg, geometry, hidx, None, None, (), None, None, 0.0, "", tuple(rwarn))
             )

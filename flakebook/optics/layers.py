@@ -27,17 +27,16 @@ import math
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy.interpolate import CubicSpline
-from scipy.special import chdtri
 
 from flakebook import __version__, evidence
 from flakebook.errors import InputError, check_cancel
+from flakebook.optics._layer_rows import _CHI2_999, _chi2_upper_1e3, flat_posteriors  # noqa: F401
 from flakebook.optics.layers_explain import (
     ContrastCurve,
     decider,
     model_contrast_curve,
     oxide_sensitivity,
-    separation_needed,
+    separation_needed_rows,
 )
 from flakebook.optics.materials import Material
 from flakebook.optics.microscope import Microscope, channel_contrast
@@ -548,6 +547,8 @@ def layer_likelihoods(
     )
     mean_all, u_all = _moments(material, unc, targs)
     if ox_fine is not None and len(ox_nodes) > 1:
+        from scipy.interpolate import CubicSpline
+
         spline_x = np.asarray(ox_nodes, float)
         mean_all = CubicSpline(spline_x, mean_all, axis=0)(ox_fine)
         u_all = (
@@ -593,7 +594,7 @@ def layer_likelihoods(
         res = _rows(meas, err, use, mean_all[..., idx], u_all[..., idx, :], ctx, cancel)
         for i, r in zip(rows, res):
             sat = [f"channel {c} left out: saturated" for c in saturated if c in contrasts[i]]
-            out[i] = replace(r, warnings=tuple(sat) + r.warnings)
+            out[i] = replace(r, warnings=tuple(sat) + r.warnings) if sat else r
     return out
 
 
@@ -649,7 +650,7 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     k0 = 0 if nodes is None or t0 is None else int(np.argmin(np.abs(nodes - t0)))
     model_c = s0 * mean[k0, 0, :max_layers]
     var0 = np.diagonal(base[k0, 0, :max_layers], axis1=-2, axis2=-1)  # (N, C)
-    thresh = float(chdtri(n_c, 1e-3))  # chi2 quantile with upper tail 1e-3
+    thresh = _chi2_upper_1e3(n_c)  # chi2 quantile with upper tail 1e-3
     sens = None
     if ctx["oxide_err_nm"] == 0 and ctx["oxide_grid"] is None and t0 is not None:
         sens = oxide_sensitivity(
@@ -670,6 +671,8 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
     tots = np.sqrt(var0[None] + (err**2)[:, None, :])  # (R, N, C)
     resids = (meas[:, None, :] - model_c[None]) / tots
     results = []
+    flat = flat_posteriors(posts)
+    seps = None
     said: dict[tuple, str] = {}
     for r in range(meas.shape[0]):
         if r % 1000 == 0:
@@ -679,7 +682,7 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
         grid = None
         if ctx["oxide_grid"] is not None:
             grid = evidence.GridLikelihood(ctx["oxide_grid"], grid_ll[r], method=prov["method"])
-        post = _flat_posterior(posts[r])
+        post = flat[r]
         warnings = []
         if best_chi2[r] > thresh:
             warnings.append(
@@ -703,7 +706,9 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
         text = ""
         if ctx["explain"] and post.ambiguous_with:
             cands = [min(n, max_layers + 1) for n in [post.layers, *post.ambiguous_with]]
-            key = (cands[0], cands[1], separation_needed(err[r], ctx["model_err"]))
+            if seps is None:  # of every row at once, when first needed
+                seps = separation_needed_rows(err, ctx["model_err"])
+            key = (cands[0], cands[1], seps[r])
             if key in said:
                 text = said[key]
             else:
@@ -739,23 +744,6 @@ def _rows(meas, err, use, mean, u, ctx, cancel) -> list[LayerLikelihood]:
             )
         )
     return results
-
-
-def _flat_posterior(post: np.ndarray) -> evidence.Posterior:
-    """evidence.combine of one likelihood with a flat prior, from its normalised values (the
-    same rule: most likely bin, its probability, others at >= evidence.AMBIGUITY_THRESHOLD)."""
-    post = post.copy()
-    post.setflags(write=False)
-    best = int(np.argmax(post))
-    order = np.argsort(-post, kind="stable")
-    amb = tuple(int(i) + 1 for i in order if i != best and post[i] >= evidence.AMBIGUITY_THRESHOLD)
-    return evidence.Posterior(
-        posterior=post,
-        layers=best + 1,
-        probability=float(post[best]),
-        ambiguous_with=amb,
-        max_layers=post.size - 1,
-    )
 
 
 def _provenance(ctx) -> dict:

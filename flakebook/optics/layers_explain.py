@@ -130,6 +130,13 @@ def separation_needed(meas_err: np.ndarray, model_err: float) -> float:
     return round(3.0 * math.sqrt(float(np.mean(np.asarray(meas_err) ** 2)) + model_err**2), 4)
 
 
+def separation_needed_rows(meas_errs: np.ndarray, model_err: float) -> list[float]:
+    """:func:`separation_needed` of every row of ``meas_errs`` [rows, channels] (the same
+    values; the mean square of all rows at once)."""
+    mean_sq = np.mean(np.asarray(meas_errs) ** 2, axis=1)
+    return [round(3.0 * math.sqrt(float(v) + model_err**2), 4) for v in mean_sq]
+
+
 @dataclass(frozen=True)
 class ContrastCurve:
     """Model contrast versus N per channel with its 16-84% band from the systematics.

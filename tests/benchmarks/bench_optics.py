@@ -5,7 +5,9 @@ Contrast of MoSe2 on 285 nm SiO2/Si for N = 1..50, 400-800 nm at 2 nm, illuminat
 per point) is timed on a random sample of the same points and scaled to the full count; the same
 sample checks that both agree to 1e-9 in R. Targets: >= 500x faster than tmm, under 50 ms.
 
-Run: PYTHONPATH=. python tests/benchmarks/bench_optics.py
+Second: ``flakebook layers --csv`` with 10,000 rows against one row (bench_layers_csv).
+
+Run: PYTHONPATH=. python tests/benchmarks/bench_optics.py [--layers-csv: the second only]
 """
 
 from __future__ import annotations
@@ -146,10 +148,18 @@ def bench_layers_csv(n_rows: int = 10_000) -> None:
         many = run(n_rows)
         again = run(n_rows)
     print(f"layers --csv: 1 row {one:.3f} s, {n_rows} rows {many:.2f} s (again: {again:.2f} s)")
-    print(f"  extra cost of {n_rows} rows: {many - one:.2f} s (target <= 3 s)")
+    extra = min(many, again) - one
+    print(
+        f"  extra cost of {n_rows} rows: {extra:.2f} s, the better of two runs (target <= 3 s: "
+        f"{'reached' if extra <= 3.0 else 'NOT reached'})"
+    )
     print(f"  ratio {n_rows} rows / 1 row: {many / one:.0f}x")
 
 
 if __name__ == "__main__":
-    main()
+    import sys
+
+    # --layers-csv: only the second benchmark (the table benchmark times tmm for a while)
+    if "--layers-csv" not in sys.argv[1:]:
+        main()
     bench_layers_csv()
