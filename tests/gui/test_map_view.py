@@ -224,3 +224,13 @@ def test_import_a_map_file_from_the_view_fits_it_in_a_worker_and_undo_removes_it
     assert window.tabs.currentWidget() is window.views["map"]
     window.undo_stack.undo()
     assert not p.raman_maps_of()
+
+
+def test_weak_pixels_are_not_shown_as_a_layer_number():
+    """A posterior barely above flat (a weak spectrum at a flake's edge) is "not determined":
+    common practice, no source; the threshold is twice the flat value 1/(N_max + 1)."""
+    from flakebook.gui.views.map import undetermined
+
+    flat = 1.0 / 16
+    got = undetermined(np.array([flat * 1.5, flat * 2.5, np.nan]), 15)
+    assert got.tolist() == [True, False, True]

@@ -41,6 +41,19 @@ def _rgb(hex_colour: str) -> tuple[int, int, int]:
     return int(h[0:2], 16), int(h[2:4], 16), int(h[4:6], 16)
 
 
+#: A pixel whose most likely N has less than this many times the probability a flat posterior
+#: gives each bin is shown as "not determined", not as a layer number (a weak spectrum at a
+#: flake's edge says little; its argmax is a coin toss). Common practice, no source.
+UNDETERMINED_FACTOR = 2.0
+UNDETERMINED_COLOUR = "#E6E6E6"
+
+
+def undetermined(probability: np.ndarray, max_layers: int) -> np.ndarray:
+    """Pixels whose top probability is below UNDETERMINED_FACTOR / (max_layers + 1)."""
+    with np.errstate(invalid="ignore"):
+        return ~(probability >= UNDETERMINED_FACTOR / (max_layers + 1))
+
+
 def layer_classes(values: np.ndarray, shown: np.ndarray) -> list[int]:
     """The layer numbers present among the shown pixels, ascending."""
     v = values[shown & np.isfinite(values)]
@@ -53,7 +66,10 @@ def layer_colormap(classes: list[int], max_layers: int) -> pg.ColorMap:
     k = max(1, len(classes))
     pos, colours = [], []
     for i, n in enumerate(classes or [1]):
-        c = _rgb(layer_hex(n) if n <= max_layers else THICK_COLOUR)
+        if n == 0:
+            c = _rgb(UNDETERMINED_COLOUR)
+        else:
+            c = _rgb(layer_hex(n) if n <= max_layers else THICK_COLOUR)
         lo, hi = i / k, (i + 1) / k
         pos += [lo, hi - 1e-6 if i < k - 1 else hi]
         colours += [c, c]
@@ -264,11 +280,14 @@ class MapView(QWidget):
         self.levels = colour_levels(self.values, shown, q)
         coloured = self.values
         classes: list[int] = []
-        if q == "layers":
-            classes = layer_classes(self.values, shown)
+        if q == "layers":  # drawn with "not determined" (0) for weak pixels; exported as stored
+            weak = undetermined(rec.quantity("probability"), rec.max_layers)
+            drawn = np.where(np.isfinite(self.values) & weak, 0.0, self.values)
+            classes = layer_classes(drawn, shown)
             cmap = layer_colormap(classes, rec.max_layers)
-            coloured = np.searchsorted(classes, np.nan_to_num(self.values, nan=0)) + 1.0
-            coloured = np.where(np.isfinite(self.values), coloured, np.nan)
+            coloured = np.searchsorted(classes, np.nan_to_num(drawn, nan=0)) + 1.0
+            coloured = np.where(np.isfinite(drawn), coloured, np.nan)
+            self.levels = (0.5, len(classes) + 0.5) if classes else (0.5, 1.5)
         else:
             cmap = pg.colormap.get("viridis")
         rgba = map_rgba(coloured, shown, cmap, self.levels)
@@ -411,7 +430,10 @@ class MapView(QWidget):
                 p = rec.quantity("probability")[row, col]
                 n = int(v) if np.isfinite(v) else None
                 label = "-" if n is None else (f">{rec.max_layers}" if n > rec.max_layers else n)
-                parts.append(f"N = {label} (p = {p:.2f})")
+                if n is not None and undetermined(np.array(p), rec.max_layers):
+                    parts.append(f"N not determined (most likely {label}, p = {p:.2f})")
+                else:
+                    parts.append(f"N = {label} (p = {p:.2f})")
                 continue
             if name == "probability" and name != q:
                 continue
@@ -479,6 +501,8 @@ class MapView(QWidget):
 
 
 def _layer_text(n: int, max_layers: int) -> str:
+    if n == 0:
+        return "?"  # not determined (the hover says so)
     return f">{max_layers}L" if n > max_layers else f"{n}L"
 
 
