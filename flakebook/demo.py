@@ -43,6 +43,7 @@ HOLE_DEPTH_ERR_NM = 6.0  # its s.d., as a profilometer scan of the chip would gi
 OBJECTIVES = {"10x": (0.345, 0.30), "50x": (0.069, 0.80)}  # um/px, objective NA (examples)
 NA_ILLUMINATION = 0.3
 START = _dt.datetime(2026, 3, 9, 9, 0, 0, tzinfo=_dt.UTC)
+JPEG_QUALITY = 90  # the overviews' JPEG quality (a camera's default)
 
 
 @dataclass(frozen=True)
@@ -92,6 +93,33 @@ FLAKES: tuple[DemoFlake, ...] = (
     DemoFlake("K7S-06", "K7-south", 2, (-144.0, 84.0), 8.5, 5.0, tags=("raman-next",)),
 )
 
+# Bulk pieces torn off beside thin flakes (each in its neighbour's 50x frame and in the
+# overview): far thicker than contrast resolves, so the survey reports them as thick flakes
+# (flagged, never dropped) and the catalogue keeps what the survey finds. No spectra.
+BULK_PIECES: tuple[DemoFlake, ...] = (
+    DemoFlake(
+        "K7N-07",
+        "K7-north",
+        30,
+        (-132.0, 62.0),
+        4.5,
+        22.0,
+        tags=("bulk",),
+        notes="bulk piece beside K7N-06 (about 30 layers)",
+    ),  # fmt: skip
+    DemoFlake(
+        "K7N-08",
+        "K7-north",
+        65,
+        (-40.0, 92.0),
+        5.0,
+        112.0,
+        tags=("bulk",),
+        notes="bulk piece beside K7N-04 (about 65 layers)",
+    ),  # fmt: skip
+)
+PIECES: tuple[DemoFlake, ...] = FLAKES + BULK_PIECES  # everything drawn on the chips
+
 # Flakes that go through thermometry (suspended over a hole), with an invented "true" kappa
 # used to draw their power series.
 THERMOMETRY = {"K7S-01": 33.0, "K7S-03": 24.0, "K7S-06": 28.0}
@@ -117,9 +145,9 @@ def _clock() -> Callable[[], _dt.datetime]:
 # ---- geometry ------------------------------------------------------------------------------
 
 
-def flake_polygon_um(flake: DemoFlake) -> np.ndarray:
-    """A cleaved outline: a hexagon-like polygon with edges along the crystal's 60-degree
-    directions, at seeded random distances (um, chip coordinates)."""
+def _hexagon_um(flake: DemoFlake) -> np.ndarray:
+    """The cleaved hexagon: edges along the crystal's 60-degree directions, at seeded random
+    distances from the centre (um, chip coordinates)."""
     rng = np.random.default_rng(abs(hash_label(flake.label)))
     angles = np.deg2rad(flake.angle_deg + 60.0 * np.arange(6))
     dist = flake.radius_um * rng.uniform(0.55, 1.15, size=6)
@@ -129,8 +157,45 @@ def flake_polygon_um(flake: DemoFlake) -> np.ndarray:
         a1, a2 = angles[i], angles[(i + 1) % 6]
         m = np.array([[math.cos(a1), math.sin(a1)], [math.cos(a2), math.sin(a2)]])
         pts.append(np.linalg.solve(m, [dist[i], dist[(i + 1) % 6]]))
-    poly = np.array(pts) + np.asarray(flake.center_um)
-    return poly
+    return np.array(pts) + np.asarray(flake.center_um)
+
+
+TEAR_STEP_UM = 0.12  # spacing of the points along a torn stretch
+TEAR_ROUGHNESS_UM = 0.22  # s.d. of a torn stretch's jag about its mean line
+TEAR_BITE_UM = 0.25  # how far a torn stretch runs inside the cleaved line, on average
+
+
+def flake_polygon_um(flake: DemoFlake) -> np.ndarray:
+    """A flake's outline (um, chip coordinates): the cleaved hexagon, its edges straight along
+    the crystal directions, with torn stretches along parts of some edges (a jagged line that
+    bites a fraction of a um into the flake and wanders a few 50x pixels in and out; seeded by
+    the label, so the same outline every time). A simple polygon: the tears stay well away from
+    the corners and far smaller than the flake."""
+    hexagon = _hexagon_um(flake)
+    rng = np.random.default_rng(abs(hash_label(flake.label + "/torn")))
+    centre = np.asarray(flake.center_um, float)
+    out: list[np.ndarray] = []
+    torn = rng.permutation(6)[: int(rng.integers(2, 5))]  # 2 to 4 of the 6 edges
+    for i in range(6):
+        p, q = hexagon[i], hexagon[(i + 1) % 6]
+        out.append(p)
+        length = float(np.hypot(*(q - p)))
+        t0, t1 = rng.uniform(0.12, 0.35), rng.uniform(0.65, 0.88)
+        if i not in torn or length < 2.5:
+            continue
+        k = max(int((t1 - t0) * length / TEAR_STEP_UM), 8)
+        t = np.linspace(t0, t1, k)
+        line = p[None, :] + t[:, None] * (q - p)[None, :]
+        inward = centre - 0.5 * (p + q)
+        normal = np.array([-(q - p)[1], (q - p)[0]]) / length
+        if normal @ inward < 0:
+            normal = -normal
+        # correlated jag over a few points, tapered to nothing at the stretch's ends
+        jag = np.convolve(rng.normal(0.0, 1.0, k + 4), np.ones(5) / math.sqrt(5), "valid")
+        jag = jag * TEAR_ROUGHNESS_UM + TEAR_BITE_UM
+        taper = np.sqrt(np.clip(np.sin(np.pi * (t - t0) / (t1 - t0)), 0.0, None))
+        out.extend(line + (jag * taper)[:, None] * normal[None, :])
+    return np.array(out)
 
 
 def hash_label(label: str) -> int:
@@ -221,18 +286,43 @@ def _hole():
     return Hole("au", HOLE_DEPTH_NM)
 
 
+DEFOCUS_PX = {"10x": 0.6, "50x": 1.0}  # s.d. of the defocus blur, camera pixels
+SPECKS_PER_UM2 = 1.0 / 120.0  # tape residue on the chips (invented)
+
+
+def speck_table(sample: str) -> np.ndarray:
+    """The chip's tape-residue specks: rows of (x um, y um, radius um, darkening fraction),
+    seeded by the chip's name. Radii of 0.08-0.2 um (one to three 50x pixels): far below any
+    flake's size, so the survey must not report them."""
+    rng = np.random.default_rng(hash_label(sample + "/specks"))
+    x0, x1, y0, y1 = -220.0, 220.0, -160.0, 160.0
+    n = int(round((x1 - x0) * (y1 - y0) * SPECKS_PER_UM2))
+    return np.column_stack(
+        [
+            rng.uniform(x0, x1, n),
+            rng.uniform(y0, y1, n),
+            rng.uniform(0.08, 0.2, n),
+            rng.uniform(0.04, 0.12, n),
+        ]
+    )
+
+
 def render_view(view: View, flakes: tuple[DemoFlake, ...], rng: np.random.Generator) -> np.ndarray:
     """An 8-bit sRGB micrograph (rows, cols, RGB) of ``view``, from the contrast model.
 
     Each pixel's linear intensity is base x (1 - C(N, geometry)) per channel, supersampled 3x for
-    anti-aliased edges, times a vignetting falloff, plus the dark offset and camera noise.
+    anti-aliased edges, darkened a few per cent under tape-residue specks, blurred slightly
+    (defocus), times a vignetting falloff, plus the dark offset and camera noise. A bulk piece
+    is as bright as its contrast makes it: the exposure is set for the thin flakes (N up to 9),
+    as a user sets it.
     """
     import cv2
 
     from flakebook.imaging.io import linear_to_srgb
 
     holes = view.sample == "K7-south"
-    tables = _contrast_tables(view.sample, holes)
+    max_n = max([9] + [f.rendered_layers for f in flakes if f.sample == view.sample])
+    tables = _contrast_tables(view.sample, holes, max_n)
     ss = 3
     h, w = view.height_px * ss, view.width_px * ss
     layer_map = np.zeros((h, w), np.uint8)
@@ -249,14 +339,37 @@ def render_view(view: View, flakes: tuple[DemoFlake, ...], rng: np.random.Genera
         if fl.sample != view.sample:
             continue
         poly = flake_polygon_um(fl)
-        cv2.fillPoly(
-            layer_map, [to_ss(poly)], int(fl.rendered_layers), lineType=cv2.LINE_8, shift=shift
-        )
+        mask = np.zeros((h, w), np.uint8)
+        cv2.fillPoly(mask, [to_ss(poly)], 1, lineType=cv2.LINE_8, shift=shift)
+        layer_map[mask > 0] = int(fl.rendered_layers)
         if fl.step_layers:
+            # the thicker terrace: the flake's part beyond the step line (a half-plane, cut
+            # from a square around the flake, filled and intersected with the flake)
             n, c = step_line(fl)
-            inside = np.array([p for p in _clip_halfplane(poly, n, c)])
-            if len(inside) >= 3:
-                cv2.fillPoly(layer_map, [to_ss(inside)], int(fl.step_layers), shift=shift)
+            r = 3.0 * fl.radius_um
+            cx, cy = fl.center_um
+            square = np.array(
+                [[cx - r, cy - r], [cx + r, cy - r], [cx + r, cy + r], [cx - r, cy + r]]
+            )
+            half = np.array(_clip_halfplane(square, n, c))
+            beyond = np.zeros((h, w), np.uint8)
+            if len(half) >= 3:
+                cv2.fillPoly(beyond, [to_ss(half)], 1, lineType=cv2.LINE_8, shift=shift)
+            layer_map[(mask > 0) & (beyond > 0)] = int(fl.step_layers)
+    # Tape residue: specks of a few 50x pixels, a few per cent darker, drawn at chip
+    # coordinates (the same specks in the overview and the close-ups).
+    specks = np.zeros((h, w), np.float32)
+    x0, x1, y0, y1 = view.window_um()
+    sp = speck_table(view.sample)
+    near = (sp[:, 0] > x0 - 1) & (sp[:, 0] < x1 + 1) & (sp[:, 1] > y0 - 1) & (sp[:, 1] < y1 + 1)
+    for (_x, _y, sr, depth), c in zip(sp[near], to_ss(sp[near, :2])):
+        r_fix = int(round(sr / view.um_per_px * ss * (1 << shift)))
+        if r_fix < (1 << shift):  # under one supersampled pixel: a dot of that area
+            cv2.circle(specks, (int(c[0]), int(c[1])), 0, float(depth) * (r_fix / (1 << shift))
+                       ** 2 * math.pi, -1, lineType=cv2.LINE_8, shift=shift)  # fmt: skip
+        else:
+            cv2.circle(specks, (int(c[0]), int(c[1])), r_fix, float(depth), -1,
+                       lineType=cv2.LINE_8, shift=shift)  # fmt: skip
     if holes:
         x0, x1, y0, y1 = view.window_um()
         r_ss = HOLE_DIAMETER_UM / 2 / view.um_per_px * ss
@@ -270,8 +383,8 @@ def render_view(view: View, flakes: tuple[DemoFlake, ...], rng: np.random.Genera
     levels = [np.ones_like(tables["supported"]) - tables["supported"]]
     if holes:
         levels.append(1.0 - tables["suspended"])
-    brightest = max(float((lv * ref[None, :]).max()) for lv in levels)
-    exposure = 0.82 / brightest  # the brightest thing in view sits at 82% of full scale
+    brightest = max(float((lv[:10] * ref[None, :]).max()) for lv in levels)
+    exposure = 0.82 / brightest  # the brightest thin flake (N <= 9) sits at 82% of full scale
     lin = np.empty((h, w, 3), np.float32)
     for ch in range(3):
         lut_sup = (ref[ch] * exposure * (1.0 - tables["supported"][:, ch])).astype(np.float32)
@@ -280,7 +393,10 @@ def render_view(view: View, flakes: tuple[DemoFlake, ...], rng: np.random.Genera
             lut_sus = (ref[ch] * exposure * (1.0 - tables["suspended"][:, ch])).astype(np.float32)
             val = np.where(hole_map.astype(bool), lut_sus[layer_map], val)
         lin[:, :, ch] = val
+    lin *= (1.0 - specks)[:, :, None]
     lin = cv2.resize(lin, (view.width_px, view.height_px), interpolation=cv2.INTER_AREA)
+    # Slight defocus: a Gaussian blur of about a pixel at 50x.
+    lin = cv2.GaussianBlur(lin, (0, 0), DEFOCUS_PX[view.objective])
     # Vignetting: a smooth radial falloff of 12% at the corners.
     yy, xx = np.mgrid[0 : view.height_px, 0 : view.width_px].astype(np.float32)
     r2 = ((xx - view.width_px / 2) / (view.width_px / 2)) ** 2 + (
@@ -542,7 +658,7 @@ def build_demo(
                 method="nominal (chip datasheet oxide, camera dark offset)",
             )
         flakes = {f.label: project.add_flake(samples[f.sample], f.label, tags=f.tags,
-                                             notes=f.notes) for f in FLAKES}  # fmt: skip
+                                             notes=f.notes) for f in PIECES}  # fmt: skip
 
         # The 50x shots first (each names its flake), then the overviews, whose flakes are
         # linked to those by stage position.
@@ -555,11 +671,15 @@ def build_demo(
         for k, view in enumerate(views):
             check_cancel(cancel)
             report(0.05 + 0.6 * k / len(views), f"rendering {view.name}")
-            img = render_view(view, FLAKES, rng)
+            img = render_view(view, PIECES, rng)
             import cv2
 
-            file = folder / "images" / f"{view.name}.png"
-            cv2.imwrite(str(file), img[:, :, ::-1])
+            if view.objective == "10x":  # overviews saved as a camera's JPEG
+                file = folder / "images" / f"{view.name}.jpg"
+                cv2.imwrite(str(file), img[:, :, ::-1], [cv2.IMWRITE_JPEG_QUALITY, JPEG_QUALITY])
+            else:
+                file = folder / "images" / f"{view.name}.png"
+                cv2.imwrite(str(file), img[:, :, ::-1])
             um_px, na_obj = OBJECTIVES[view.objective]
             image = project.add_image(
                 samples[view.sample],
@@ -627,7 +747,7 @@ def _store_survey(project, image, view, result, flakes) -> None:
         store_survey(project, image, result, flake_for=link_by_stage(project, image), assign=False,
                      parameters={"objective": view.objective})  # fmt: skip
         return
-    here = [f for f in FLAKES if f.sample == view.sample]
+    here = [f for f in PIECES if f.sample == view.sample]
     centres = view.to_px(np.array([f.center_um for f in here]))
 
     def flake_for(sf):

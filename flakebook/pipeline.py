@@ -366,6 +366,8 @@ def store_survey(
                                     k: float(v) for k, v in result.segmentation.substrate.items()
                                 },
                                 "model": model,
+                                # a thick or saturated piece's flags, kept with its evidence
+                                **({"warnings": list(r.warnings)} if r.warnings else {}),
                                 **extra,
                             },
                             source=source,

@@ -161,3 +161,152 @@ def test_raman_map_reads_the_layers_of_the_terraces_it_covers(fresh):
         else:
             read = np.where(empty, 0, layers)[inner]
             assert np.mean(read == n) >= 0.97, (n, np.unique(read, return_counts=True))
+
+
+def _shoelace(p) -> float:
+    """A polygon's area (shoelace formula)."""
+    import numpy as np
+
+    x, y = np.asarray(p, float).T
+    return 0.5 * abs(float(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1))))
+
+
+def test_outlines_follow_the_drawn_torn_blurred_edges(fresh):
+    """Every flake and bulk piece in the 50x micrographs (cleaved edges with torn stretches,
+    defocus of about a pixel, tape-residue specks) is outlined by the survey to within 3% of
+    the area of the polygon it was drawn from. Truth: the drawn polygon's area (shoelace
+    formula, on the scenario's polygon put on the image's pixels); measured: the area of the
+    outline the demo stored from the survey (issue 11: "areas within a few per cent")."""
+    import numpy as np
+
+    from flakebook.store import Image
+
+    with Project.open(fresh / demo.PROJECT_NAME, read_only=True) as p:
+        seen = set()
+        for f in demo.PIECES:
+            for app in p.appearances_of(p.find_flake(f.label)):
+                image = p.get(Image, app.image_id)
+                if image.objective != "50x":
+                    continue
+                view = demo.View(
+                    "v", f.sample, "50x", (image.stage_x_um, image.stage_y_um),
+                    image.width_px, image.height_px,
+                )  # fmt: skip
+                truth = _shoelace(view.to_px(demo.flake_polygon_um(f)))
+                got = _shoelace(np.asarray(app.outline_px))
+                assert got == pytest.approx(truth, rel=0.03), (f.label, image.path, got, truth)
+                seen.add(f.label)
+    assert seen == {f.label for f in demo.PIECES}  # the bulk pieces are outlined at 50x too
+
+
+def _segments_cross(poly) -> bool:
+    """Whether any two non-adjacent edges of a closed polygon cross (orientation test)."""
+    import numpy as np
+
+    p = np.asarray(poly, float)
+    q = np.roll(p, -1, axis=0)
+    n = len(p)
+
+    def orient(a, b, c):
+        return np.sign((b[..., 0] - a[..., 0]) * (c[..., 1] - a[..., 1])
+                       - (b[..., 1] - a[..., 1]) * (c[..., 0] - a[..., 0]))  # fmt: skip
+
+    for i in range(n):
+        j = np.arange(i + 2, n if i > 0 else n - 1)
+        if not len(j):
+            continue
+        o1, o2 = orient(p[i], q[i], p[j]), orient(p[i], q[i], q[j])
+        o3, o4 = orient(p[j], q[j], p[i]), orient(p[j], q[j], q[i])
+        if np.any((o1 * o2 < 0) & (o3 * o4 < 0)):
+            return True
+    return False
+
+
+def test_drawn_outlines_are_cleaved_and_torn():
+    """The drawn outlines are what the survey is tried on: straight edges along the crystal's
+    60-degree directions (the hexagonal lattice of the TMDs; common practice, no source) with
+    torn stretches along parts of them (many short segments), and simple polygons (no edge
+    crosses another, so the shoelace area above is the drawn area). The tears stay within a um
+    of the cleaved line and change the area by a few per cent at most."""
+    import cv2
+    import numpy as np
+
+    for f in demo.PIECES:
+        poly = demo.flake_polygon_um(f)
+        assert not _segments_cross(poly), f.label
+        seg = np.diff(np.vstack([poly, poly[:1]]), axis=0)
+        length = np.hypot(seg[:, 0], seg[:, 1])
+        angle = np.degrees(np.arctan2(seg[:, 1], seg[:, 0]))
+        long_ = length > 1.0  # the cleaved stretches
+        off = (angle[long_] - f.angle_deg - 90.0) % 60.0
+        assert np.all(np.minimum(off, 60.0 - off) < 1e-6), f.label
+        assert np.sum(~long_) >= 8, f"{f.label}: no torn stretch"
+        hexagon = demo._hexagon_um(f).astype(np.float32)
+        dist = [abs(cv2.pointPolygonTest(hexagon, (float(x), float(y)), True)) for x, y in poly]
+        assert max(dist) < 1.0, f.label
+        assert _shoelace(poly) == pytest.approx(_shoelace(hexagon), rel=0.05), f.label
+
+
+def test_bulk_pieces_are_catalogued_as_thick_and_flagged(fresh):
+    """The bulk pieces beside the thin flakes (30 and 65 layers, far beyond what contrast
+    resolves) are flakes of the catalogue: the survey's layer number is the "more than N_max"
+    bin, and its evidence keeps the survey's flag ("thick"). Truth: the scenario's drawn
+    thickness (demo.BULK_PIECES)."""
+    from flakebook.pipeline import CONTRAST_METHOD
+
+    with Project.open(fresh / demo.PROJECT_NAME, read_only=True) as p:
+        for f in demo.BULK_PIECES:
+            flake = p.find_flake(f.label)
+            latest = p.latest_assignment(flake)
+            assert latest is not None and latest.layers > 15, (f.label, latest)
+            contrast = [e for e in p.evidence_of(flake) if e.method == CONTRAST_METHOD]
+            assert {e.parameters.get("objective") for e in contrast} == {"50x", "10x"}
+            for e in contrast:
+                text = " ".join(e.parameters.get("warnings", []))
+                assert "thick" in text or "saturated in a channel" in text, (f.label, text)
+        # the thin flakes are not flagged thick
+        for f in demo.FLAKES:
+            for e in p.evidence_of(p.find_flake(f.label)):
+                assert not any("thick" in w for w in e.parameters.get("warnings", [])), f.label
+
+
+def test_specks_are_drawn_but_never_flakes(fresh):
+    """Tape-residue specks (radius 0.08-0.2 um: a few 50x pixels) are in the micrographs but
+    never become flakes: every flake of the project is a drawn piece (demo.PIECES)."""
+    import numpy as np
+
+    with Project.open(fresh / demo.PROJECT_NAME, read_only=True) as p:
+        labels = {f.label for s in p.samples() for f in p.flakes_of(s)}
+    assert labels == {f.label for f in demo.PIECES}
+    for sample in ("K7-north", "K7-south"):
+        sp = demo.speck_table(sample)
+        assert len(sp) > 500 and np.all(sp[:, 2] / demo.OBJECTIVES["50x"][0] < 3.0)
+    # specks show: a 50x frame with specks on bare substrate darker there than around them
+    f = demo.FLAKES[0]
+    view = demo.View("v", f.sample, "50x", f.center_um, 800, 600)
+    plain = demo.render_view(view, (), np.random.default_rng(0)).astype(float).mean(axis=2)
+    sp = demo.speck_table(f.sample)
+    px = view.to_px(sp[:, :2])
+    inside = (px[:, 0] > 5) & (px[:, 0] < 795) & (px[:, 1] > 5) & (px[:, 1] < 595)
+    big = inside & (sp[:, 2] > 0.12) & (sp[:, 3] > 0.07)
+    assert big.sum() >= 3
+    for x, y in np.round(px[big]).astype(int):
+        assert plain[y, x] < np.median(plain[y - 5 : y + 6, x - 5 : x + 6]) - 1.0, (x, y)
+
+
+def test_overviews_are_jpeg_and_read_back(fresh):
+    """The 10x overviews are written as JPEG (a camera's usual format; ISO/IEC 10918-1 starts a
+    file with the SOI marker FF D8) and are read back by the program (their flakes linked to
+    the close-ups by stage position)."""
+    from flakebook.imaging.io import read_image
+
+    with Project.open(fresh / demo.PROJECT_NAME, read_only=True) as p:
+        overviews = [im for s in p.samples() for im in p.images_of(s) if im.objective == "10x"]
+        assert len(overviews) == 2
+        for im in overviews:
+            path = fresh / im.path
+            assert path.suffix == ".jpg" and path.read_bytes()[:2] == b"\xff\xd8"
+            assert read_image(path).intensity.shape == (im.height_px, im.width_px, 3)
+            assert any(
+                a.image_id == im.id for f in p.flakes_of(im.sample_id) for a in p.appearances_of(f)
+            )

@@ -1,6 +1,6 @@
 """The chip map's drawing, from the sample project (read-only).
 
-Truth: the demo scenario's own chip coordinates of each flake (flakebook.demo.FLAKES, from which
+Truth: the demo scenario's own chip coordinates of each flake (flakebook.demo.PIECES, from which
 the micrographs were rendered); the map reaches the chip only through the images' stage
 positions, and the picture is read back with OpenCV (cv2.imread) and the SVG with the standard
 library's xml.etree, neither of them part of the drawing.
@@ -62,7 +62,7 @@ def test_png_puts_each_flake_in_its_colour_where_the_scenario_put_it(maps, sampl
     assert img.std() > 20 and len(np.unique(img[::3, ::3].reshape(-1, 3), axis=0)) > 50
     frame = _frame(m, pattern)
     assert frame is not None
-    truth = {f.label: f for f in demo.FLAKES if f.sample == sample}
+    truth = {f.label: f for f in demo.PIECES if f.sample == sample}  # bulk pieces too
     widths = {im.image_id: im.width_um for im in m.images}
     assert {f.label for f in m.flakes} == set(truth)
     for f in m.flakes:

@@ -1,6 +1,6 @@
 """The chip map of the demo campaign: flakes, holes and images where the scenario put them.
 
-The truth is the demo scenario's own chip coordinates (flakebook.demo.FLAKES centres and the
+The truth is the demo scenario's own chip coordinates (flakebook.demo.PIECES centres and the
 K7-south hole lattice, pitch 12 um with a hole at the origin), from which the micrographs were
 rendered; the map reaches the chip only through the images' stage positions and pixel sizes.
 """
@@ -27,18 +27,24 @@ def project(tmp_path_factory):
 @pytest.mark.parametrize("sample", ["K7-north", "K7-south"])
 def test_every_flake_lies_where_the_scenario_put_it(project, sample):
     m = chip_map(project, sample)
-    truth = {f.label: f.center_um for f in demo.FLAKES if f.sample == sample}
+    # every piece drawn on the chip, the bulk pieces beside the thin flakes too
+    truth = {f.label: f.center_um for f in demo.PIECES if f.sample == sample}
     assert {f.label for f in m.flakes} == set(truth)
     widths = {im.image_id: im.width_um for im in m.images}
     for f in m.flakes:
         dist = np.hypot(*(np.subtract(f.centroid_um, truth[f.label])))
         assert dist < widths[f.image_id], f"{f.label} placed {dist:.1f} um off"
         # and closer than the flake's own size: the outline is on the flake, not just the frame
-        radius = next(d.radius_um for d in demo.FLAKES if d.label == f.label)
+        radius = next(d.radius_um for d in demo.PIECES if d.label == f.label)
         assert dist < 2 * radius, f"{f.label} placed {dist:.1f} um off"
     layers = {d.label: d.layers for d in demo.FLAKES}
-    assigned = [f for f in m.flakes if f.layers is not None]
+    assigned = [f for f in m.flakes if f.layers is not None and f.label in layers]
     assert assigned and sum(f.layers == layers[f.label] for f in assigned) >= len(assigned) - 1
+    # a bulk piece (30 layers and more) is on the map in the "more than N_max" bin
+    bulk = {d.label for d in demo.BULK_PIECES if d.sample == sample}
+    for f in m.flakes:
+        if f.label in bulk:
+            assert f.layers is not None and f.layers > 15, (f.label, f.layers)
 
 
 def test_holes_fall_on_the_lattice(project):
