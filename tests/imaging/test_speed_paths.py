@@ -120,6 +120,32 @@ def test_close_pairs_are_the_k_d_trees():
         np.testing.assert_array_equal(got, want)
 
 
+def test_cross_pairs_table_is_the_binary_search_and_the_k_d_trees():
+    from scipy.spatial import cKDTree
+
+    rng = np.random.default_rng(8)
+    for _ in range(80):
+        n, m = (int(v) for v in rng.integers(0, 250, 2))
+        side = rng.uniform(5, 400)
+        p, q = rng.uniform(0, side, (n, 2)), rng.uniform(0, side, (m, 2))
+        if rng.random() < 0.4:
+            p, q = np.round(p), np.round(q)  # ties at exactly the radius
+        radius = float(rng.uniform(0.5, 30))
+        dense = _grid.cross_pairs(p, q, radius, dense=True)
+        search = _grid.cross_pairs(p, q, radius, dense=False)
+        np.testing.assert_array_equal(dense, search)  # the same pairs in the same order
+        want = (
+            cKDTree(p).sparse_distance_matrix(cKDTree(q), radius, output_type="ndarray")
+            if n and m
+            else np.zeros(0, dtype=[("i", int), ("j", int)])
+        )
+        want = {(int(i), int(j)) for i, j in zip(want["i"], want["j"])}
+        got = {(int(i), int(j)) for i, j in dense}
+        # (the k-d tree's distance is sqrt-rounded: compare away from the radius)
+        off = {(i, j) for i, j in got ^ want if abs(np.hypot(*(p[i] - q[j])) - radius) > 1e-9}
+        assert off == set()
+
+
 def test_nearest_distance_is_the_k_d_trees():
     from scipy.spatial import cKDTree
 
