@@ -18,6 +18,7 @@ import numpy as np
 
 from flakebook.errors import InputError, check_cancel
 from flakebook.imaging import _grid
+from flakebook.imaging._threads import with_one_blas_thread
 from flakebook.imaging.coverage import (
     circle_polygon_area,
     coverage_pairs,
@@ -62,6 +63,7 @@ __all__ = [
 MIN_HOLE_RADIUS_PX = 6.0  # smallest hole radius (full-resolution pixels) the default search finds
 
 
+@with_one_blas_thread
 def detect_holes(
     intensity: np.ndarray,
     *,

@@ -206,3 +206,25 @@ def test_labels_of_an_even_crop_are_those_of_the_whole():
         assert n2 == n
         np.testing.assert_array_equal(lab2, lab[oy : oy + crop.shape[0], ox : ox + crop.shape[1]])
         np.testing.assert_array_equal(st2[1:, 2:], st[1:, 2:])
+
+
+def test_terrace_classes_with_one_blas_thread_are_those_with_two():
+    threadpoolctl = pytest.importorskip("threadpoolctl")
+    from flakebook.imaging._threads import one_blas_thread
+    from flakebook.imaging.modes import terrace_labels
+
+    rng = np.random.default_rng(9)
+    for _ in range(8):
+        k = int(rng.integers(1, 6))
+        centres = rng.normal(0, 4, (k, 3))
+        z = centres[rng.integers(0, k, 4000)] + rng.normal(0, 0.3, (4000, 3))
+        bw = rng.uniform(0.5, 1.5, 3)
+        with threadpoolctl.threadpool_limits(2, user_api="blas"):
+            many = terrace_labels(z, bw)
+        with one_blas_thread():
+            one = terrace_labels(z, bw)
+        # The classes are the same; a centre may differ in its last digit, since a threaded
+        # product splits its sums in another order (so one thread also makes the result the
+        # same on every machine, whatever its number of cores).
+        np.testing.assert_array_equal(one[0], many[0])
+        np.testing.assert_allclose(one[1], many[1], rtol=1e-13, atol=1e-13)
