@@ -87,10 +87,16 @@ def close_pairs(points: np.ndarray, radius: float, ordered: bool = True) -> np.n
     return pairs[np.lexsort((pairs[:, 1], pairs[:, 0]))] if ordered else pairs
 
 
-def cross_pairs(p: np.ndarray, q: np.ndarray, radius: float) -> np.ndarray:
+def cross_pairs(
+    p: np.ndarray, q: np.ndarray, radius: float, dense: bool | None = None
+) -> np.ndarray:
     """Index pairs ``[m, 2]`` (into ``p``, into ``q``; in no set order) of points ``p [n, 2]``
     and ``q [k, 2]`` with squared distance ``dx*dx + dy*dy`` at most ``radius**2`` (``q``
-    binned into cells of side ``radius``, each point of ``p`` compared with its 9 cells)."""
+    binned into cells of side ``radius``, each point of ``p`` compared with its 9 cells).
+
+    The cells of ``q`` are found in a table of every cell (``dense``; the default when the
+    table is not much larger than the points) or by binary search in the sorted cell keys:
+    the same pairs in the same order either way."""
     p = np.asarray(p, np.float64).reshape(-1, 2)
     q = np.asarray(q, np.float64).reshape(-1, 2)
     if not len(p) or not len(q) or not radius > 0:
@@ -103,12 +109,24 @@ def cross_pairs(p: np.ndarray, q: np.ndarray, radius: float) -> np.ndarray:
     order = np.argsort(key, kind="stable")
     skey = key[order]
     pkey = (cp[:, 0] + 1) * span + (cp[:, 1] + 1)
+    n_cells = (int(max(cq[:, 0].max(), cp[:, 0].max())) + 3) * span
+    if dense is None:
+        dense = n_cells <= 8 * (len(p) + len(q)) + 65536
+    if dense:
+        # counts[key] and the first index of each key in the sorted keys (what the binary
+        # search returns: the number of keys below it); every target lies in the table.
+        counts = np.bincount(key, minlength=n_cells)
+        starts = np.cumsum(counts) - counts
     found = []
     for dx in (-1, 0, 1):
         for dy in (-1, 0, 1):
             target = pkey + dx * span + dy
-            lo = np.searchsorted(skey, target, "left")
-            cnt = np.searchsorted(skey, target, "right") - lo
+            if dense:
+                lo = starts[target]
+                cnt = counts[target]
+            else:
+                lo = np.searchsorted(skey, target, "left")
+                cnt = np.searchsorted(skey, target, "right") - lo
             if not cnt.any():
                 continue
             a = np.repeat(np.arange(len(p)), cnt)
@@ -117,8 +135,10 @@ def cross_pairs(p: np.ndarray, q: np.ndarray, radius: float) -> np.ndarray:
     if not found:
         return np.zeros((0, 2), np.int64)
     pairs = np.concatenate(found)
-    d = p[pairs[:, 0]] - q[pairs[:, 1]]
-    return pairs[d[:, 0] * d[:, 0] + d[:, 1] * d[:, 1] <= radius * radius]
+    # (gathers from contiguous columns: the same differences as from the rows)
+    dx = np.ascontiguousarray(p[:, 0])[pairs[:, 0]] - np.ascontiguousarray(q[:, 0])[pairs[:, 1]]
+    dy = np.ascontiguousarray(p[:, 1])[pairs[:, 0]] - np.ascontiguousarray(q[:, 1])[pairs[:, 1]]
+    return pairs[dx * dx + dy * dy <= radius * radius]
 
 
 def to_full(x: np.ndarray | float, f: int) -> np.ndarray | float:

@@ -18,6 +18,7 @@ import numpy as np
 
 from flakebook.errors import InputError, check_cancel
 from flakebook.imaging import _grid
+from flakebook.imaging._threads import with_one_blas_thread
 from flakebook.imaging.coverage import (
     circle_polygon_area,
     coverage_pairs,
@@ -62,6 +63,7 @@ __all__ = [
 MIN_HOLE_RADIUS_PX = 6.0  # smallest hole radius (full-resolution pixels) the default search finds
 
 
+@with_one_blas_thread
 def detect_holes(
     intensity: np.ndarray,
     *,
@@ -297,10 +299,12 @@ def _spots(gray: np.ndarray, rmin: float, rmax: float, max_spots: int = 20000) -
     keep = np.ones(len(c), bool)
     if len(pairs):
         i, j = pairs[:, 0], pairs[:, 1]
-        dxy = c[j, :2] - c[i, :2]
-        d = np.hypot(dxy[:, 0], dxy[:, 1])
-        near = d < np.maximum(c[j, 2], c[i, 2]) + 1.0
-        near &= dxy[:, 0] * dxy[:, 0] + dxy[:, 1] * dxy[:, 1] <= (top + 1.0) ** 2
+        # (gathers from contiguous columns: the same values as from c's rows)
+        cx, cy, cr = (np.ascontiguousarray(c[:, k]) for k in range(3))
+        dx, dy = cx[j] - cx[i], cy[j] - cy[i]
+        d = np.hypot(dx, dy)
+        near = d < np.maximum(cr[j], cr[i]) + 1.0
+        near &= dx * dx + dy * dy <= (top + 1.0) ** 2
         lo = np.minimum(i[near], j[near])
         hi = np.maximum(i[near], j[near])
         order = np.argsort(lo, kind="stable")

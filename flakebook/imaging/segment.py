@@ -25,6 +25,7 @@ import numpy as np
 
 from flakebook.errors import InputError, check_cancel
 from flakebook.imaging import _grid
+from flakebook.imaging._threads import with_one_blas_thread
 from flakebook.imaging.background import Background, fit_background
 from flakebook.imaging.contrast import (
     MAX_PIXELS,
@@ -58,6 +59,7 @@ __all__ = [
 ]
 
 
+@with_one_blas_thread
 def segment(
     image: Micrograph,
     *,

@@ -30,6 +30,7 @@ import numpy as np
 
 from flakebook import __version__, evidence
 from flakebook.errors import InputError, check_cancel
+from flakebook.optics import _disk_cache
 from flakebook.optics._layer_rows import _CHI2_999, _chi2_upper_1e3, flat_posteriors  # noqa: F401
 from flakebook.optics.layers_explain import (
     ContrastCurve,
@@ -229,7 +230,14 @@ def _table(material, substrate, microscope, geometry, hole, t, na, f, layers) ->
     mat = (
         material if f == 1.0 else replace(material, layer_spacing_nm=material.layer_spacing_nm * f)
     )
-    return channel_contrast(mat, layers, sub, mic, geometry, hole).contrast
+    # Kept on disk between runs under a key of everything that enters (optics/_disk_cache.py).
+    key = _disk_cache.table_key("contrast-table", mat, layers, sub, mic, geometry, hole)
+    got = _disk_cache.load(key)
+    if got is not None:
+        return got
+    out = channel_contrast(mat, layers, sub, mic, geometry, hole).contrast
+    _disk_cache.store(key, out)
+    return out
 
 
 def _model_tables(

@@ -120,6 +120,32 @@ def test_close_pairs_are_the_k_d_trees():
         np.testing.assert_array_equal(got, want)
 
 
+def test_cross_pairs_table_is_the_binary_search_and_the_k_d_trees():
+    from scipy.spatial import cKDTree
+
+    rng = np.random.default_rng(8)
+    for _ in range(80):
+        n, m = (int(v) for v in rng.integers(0, 250, 2))
+        side = rng.uniform(5, 400)
+        p, q = rng.uniform(0, side, (n, 2)), rng.uniform(0, side, (m, 2))
+        if rng.random() < 0.4:
+            p, q = np.round(p), np.round(q)  # ties at exactly the radius
+        radius = float(rng.uniform(0.5, 30))
+        dense = _grid.cross_pairs(p, q, radius, dense=True)
+        search = _grid.cross_pairs(p, q, radius, dense=False)
+        np.testing.assert_array_equal(dense, search)  # the same pairs in the same order
+        want = (
+            cKDTree(p).sparse_distance_matrix(cKDTree(q), radius, output_type="ndarray")
+            if n and m
+            else np.zeros(0, dtype=[("i", int), ("j", int)])
+        )
+        want = {(int(i), int(j)) for i, j in zip(want["i"], want["j"])}
+        got = {(int(i), int(j)) for i, j in dense}
+        # (the k-d tree's distance is sqrt-rounded: compare away from the radius)
+        off = {(i, j) for i, j in got ^ want if abs(np.hypot(*(p[i] - q[j])) - radius) > 1e-9}
+        assert off == set()
+
+
 def test_nearest_distance_is_the_k_d_trees():
     from scipy.spatial import cKDTree
 
@@ -180,3 +206,25 @@ def test_labels_of_an_even_crop_are_those_of_the_whole():
         assert n2 == n
         np.testing.assert_array_equal(lab2, lab[oy : oy + crop.shape[0], ox : ox + crop.shape[1]])
         np.testing.assert_array_equal(st2[1:, 2:], st[1:, 2:])
+
+
+def test_terrace_classes_with_one_blas_thread_are_those_with_two():
+    threadpoolctl = pytest.importorskip("threadpoolctl")
+    from flakebook.imaging._threads import one_blas_thread
+    from flakebook.imaging.modes import terrace_labels
+
+    rng = np.random.default_rng(9)
+    for _ in range(8):
+        k = int(rng.integers(1, 6))
+        centres = rng.normal(0, 4, (k, 3))
+        z = centres[rng.integers(0, k, 4000)] + rng.normal(0, 0.3, (4000, 3))
+        bw = rng.uniform(0.5, 1.5, 3)
+        with threadpoolctl.threadpool_limits(2, user_api="blas"):
+            many = terrace_labels(z, bw)
+        with one_blas_thread():
+            one = terrace_labels(z, bw)
+        # The classes are the same; a centre may differ in its last digit, since a threaded
+        # product splits its sums in another order (so one thread also makes the result the
+        # same on every machine, whatever its number of cores).
+        np.testing.assert_array_equal(one[0], many[0])
+        np.testing.assert_allclose(one[1], many[1], rtol=1e-13, atol=1e-13)
