@@ -64,11 +64,9 @@ def store_bare_reference(
         raise InputError("the bare-substrate spectrum needs its laser line (--laser-nm)")
     x = raman_axis(np.asarray(spectrum.x, float), spectrum.x_unit, laser)
     si_line(x, spectrum.y, what="the bare-substrate spectrum")
-    meta = {
-        k: v
-        for k, v in dict(spectrum.metadata).items()
-        if isinstance(v, str | int | float | bool) or v is None
-    }
+    from flakebook.pipeline_spectra import plain_metadata
+
+    meta = plain_metadata(spectrum.metadata)
     meta["role"] = BARE_ROLE
     fields = {}
     if source_path is not None:
@@ -158,14 +156,25 @@ def add_si_from_spectra(
     *,
     reference: Spectrum | None = None,
     spectrum: Spectrum | None = None,
+    bare=None,
+    bare_path: str | Path | None = None,
+    bare_laser_nm: float = 532.0,
 ):
     """Measure the Si-line ratio of the flake's spectrum (default: its latest covering the Si
     line) against the bare-substrate ``reference`` (default: the sample's latest of the same
-    laser line) and record it as evidence; returns (Evidence, SiRatio)."""
+    laser line) and record it as evidence; returns (Evidence, SiRatio). ``bare``: a spectrum
+    read from ``bare_path`` (flakebook.spectra.io), stored first as the sample's reference and
+    used (its laser line from the file, else ``bare_laser_nm``)."""
     from flakebook.pipeline_spectra import add_si_evidence
 
     flake = project.get(Flake, flake) if isinstance(flake, int) else flake
     sample = project.get(Sample, flake.sample_id)
+    if bare is not None:  # a bare-substrate spectrum just read: the sample's reference now
+        ref_laser = None if bare.metadata.get("laser_nm") else bare_laser_nm
+        reference = store_bare_reference(
+            project, project.get(Sample, flake.sample_id), bare, source_path=bare_path,
+            laser_nm=ref_laser,
+        )  # fmt: skip
     spec = spectrum or flake_si_spectrum(project, flake)
     ref = reference or bare_reference(project, sample, spec.laser_nm or 532.0)
     if ref is None:

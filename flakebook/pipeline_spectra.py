@@ -212,6 +212,15 @@ class AttachedSpectrum:
     analysis: object = None
 
 
+def plain_metadata(metadata) -> dict:
+    """The entries of a read spectrum's metadata that a record keeps (plain JSON values)."""
+    return {
+        k: v
+        for k, v in dict(metadata).items()
+        if isinstance(v, str | int | float | bool) or v is None
+    }
+
+
 def attach_spectrum(
     project: Project,
     flake,
@@ -248,11 +257,7 @@ def attach_spectrum(
             fields["source_sha256"] = sha256_file(path)[0]
     if spot is not None:
         fields.update(spot_image_id=spot[0], spot_x_px=float(spot[1]), spot_y_px=float(spot[2]))
-    meta = {
-        k: v
-        for k, v in dict(spectrum.metadata).items()
-        if isinstance(v, str | int | float | bool) or v is None
-    }
+    meta = plain_metadata(spectrum.metadata)
     meta.update(extra.pop("metadata", {}) or {})
     fields.update(extra)
     order = np.argsort(x, kind="stable")
@@ -605,13 +610,15 @@ def _si_item(
     # once. Without one the contrast takes the nominal oxide as exact, and the Si line, far
     # more sensitive to the oxide than to N, gets a 5 nm uncertainty of its own (common
     # practice, no source: a thermal oxide's thickness is known to a few per cent).
-    grid = shared_oxide_grid(project, sample)
+    shared = shared_oxide_grid(project, sample)
+    grid = shared
     if grid is None:
         cal = calibration_values(project, sample)
         grid = parameter_grid("oxide_nm", cal["oxide_nm"] if cal else oxide, 5.0, max_nodes=41)
-    return si_attenuation_evidence(
+    ev = si_attenuation_evidence(
         ratio, ratio_err, sample.material, substrate, grid, max_layers=max_layers, laser_nm=laser_nm
     )
+    return ev, shared is not None
 
 
 def add_si_evidence(
@@ -632,7 +639,9 @@ def add_si_evidence(
 
     flake = project.get(Flake, flake) if isinstance(flake, int) else flake
     sample = project.get(Sample, flake.sample_id)
-    ev = _si_item(project, sample, float(ratio), float(ratio_err), laser_nm, project.max_layers)
+    ev, shared = _si_item(
+        project, sample, float(ratio), float(ratio_err), laser_nm, project.max_layers
+    )
     params = {"ratio": float(ratio), "ratio_err": float(ratio_err), "laser_nm": laser_nm}
     params.update(details or {})
     if spectra:
@@ -645,7 +654,7 @@ def add_si_evidence(
             method=SI_METHOD,
             terrace=terrace,
             inputs=[*_si_inputs(project, sample), *spectra],
-            parameters={**params, **_si_grid(project, sample, ev)},
+            parameters={**params, **_si_grid(sample, ev, shared)},
             source="optical constants of flakebook.optics.materials (see flakebook materials)",
             reason=ev.reason,
         )
@@ -661,12 +670,11 @@ def _si_inputs(project: Project, sample: Sample) -> list:
     return [sample] if cal is None else [sample, cal]
 
 
-def _si_grid(project: Project, sample: Sample, ev) -> dict:
+def _si_grid(sample: Sample, ev, shared: bool) -> dict:
     """``{"grid": ...}`` when the evidence is on the sample's shared oxide grid, else {}."""
-    from flakebook.pipeline import grid_parameters, oxide_grid_name, shared_oxide_grid
+    from flakebook.pipeline import grid_parameters, oxide_grid_name
 
-    shared = shared_oxide_grid(project, sample)
-    if shared is None or ev.grid is None or not ev.grid.grid.same_as(shared):
+    if not shared or ev.grid is None:
         return {}
     return {"grid": grid_parameters(ev.grid, oxide_grid_name(sample))}
 
@@ -680,14 +688,14 @@ def _recompute_si(project: Project, rec: Evidence) -> dict:
         flake_spec, bare_spec = (project.get(Spectrum, i) for i in p["spectrum_ids"])
         result = measure(flake_spec, bare_spec)
         p.update(ratio=result.ratio, ratio_err=result.ratio_err, **details_of(result))
-    ev = _si_item(
+    ev, shared = _si_item(
         project, sample, p["ratio"], p["ratio_err"], p.get("laser_nm", 532.0), rec.max_layers
     )
     params = {k: v for k, v in p.items() if k != "grid"}
     return {
         "likelihood": ev.likelihood,
         "reason": ev.reason,
-        "parameters": {**params, **_si_grid(project, sample, ev)},
+        "parameters": {**params, **_si_grid(sample, ev, shared)},
         "inputs": tuple(
             [*_si_inputs(project, sample), *(x for x in rec.inputs if x.kind == "spectrum")]
         ),

@@ -357,7 +357,7 @@ def _parse_layers(text: str, max_layers: int) -> int:
 def _record_measured_evidence(args: argparse.Namespace) -> bool:
     """Record --afm-height-nm / --si-ratio / --si-from-spectra as evidence and recombine; True
     if any was given."""
-    from flakebook.store import Project, Sample
+    from flakebook.store import Project
 
     afm = (args.afm_height_nm, args.afm_height_err_nm)
     si = (args.si_ratio, args.si_ratio_err)
@@ -375,7 +375,7 @@ def _record_measured_evidence(args: argparse.Namespace) -> bool:
     if afm[0] is None and si[0] is None and spectra is None:
         return False
     from flakebook import pipeline
-    from flakebook.pipeline_si import add_si_from_spectra, store_bare_reference
+    from flakebook.pipeline_si import add_si_from_spectra
 
     bare = None
     if spectra:  # read (and checked) before the project is opened for writing
@@ -391,14 +391,10 @@ def _record_measured_evidence(args: argparse.Namespace) -> bool:
             if si[0] is not None:
                 pipeline.add_si_evidence(project, flake, *si, laser_nm=args.laser_nm)
             if spectra is not None:
-                ref = None
-                if bare is not None:
-                    sample = project.get(Sample, flake.sample_id)
-                    laser = None if bare.metadata.get("laser_nm") else args.laser_nm
-                    ref = store_bare_reference(
-                        project, sample, bare, source_path=spectra, laser_nm=laser
-                    )
-                _, result = add_si_from_spectra(project, flake, reference=ref)
+                _, result = add_si_from_spectra(
+                    project, flake, bare=bare, bare_path=spectra or None,
+                    bare_laser_nm=args.laser_nm,
+                )  # fmt: skip
                 message(
                     f"flakebook: Si line under {flake.label}: {result.ratio:.3f} +- "
                     f"{result.ratio_err:.3f} of the bare substrate ({result.dose_note})"

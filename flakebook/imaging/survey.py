@@ -167,20 +167,23 @@ def _mono(image: Micrograph) -> Micrograph:
     return with_intensity(image, lin, channels=("mono",))
 
 
-def _saturated_share(seg: Segmentation, reg: Region, saturated: np.ndarray) -> float:
-    """Fraction of a region's pixels saturated in some channel (working grid)."""
+def _region_window(seg: Segmentation, reg: Region) -> tuple[np.ndarray, int, int]:
+    """The region's pixels in its bounding box on the working grid, and the box's origin."""
     f = seg.factor
     x0, y0, x1, y1 = reg.bbox_px
     wx0, wy0 = int(x0 // f), int(y0 // f)
     wx1, wy1 = int(x1 // f) + 1, int(y1 // f) + 1
-    lab = seg.labels[wy0:wy1, wx0:wx1] == reg.id
+    return seg.labels[wy0:wy1, wx0:wx1] == reg.id, wx0, wy0
+
+
+def _saturated_share(seg: Segmentation, reg: Region, saturated: np.ndarray) -> float:
+    """Fraction of a region's pixels saturated in some channel (working grid)."""
+    lab, wx0, wy0 = _region_window(seg, reg)
     n = int(np.count_nonzero(lab))
     if n == 0:
         return 0.0
-    return (
-        float(np.count_nonzero(lab & saturated[wy0:wy1, wx0:wx1][: lab.shape[0], : lab.shape[1]]))
-        / n
-    )
+    sat = saturated[wy0 : wy0 + lab.shape[0], wx0 : wx0 + lab.shape[1]]
+    return float(np.count_nonzero(lab & sat)) / n
 
 
 def _thick_or_saturated(
@@ -213,9 +216,7 @@ def _share_over_hole(seg: Segmentation, reg: Region, hole: Hole) -> float:
     cx, cy, r = hole.center_px[0], hole.center_px[1], hole.radius_px
     if cx + r < x0 or cx - r > x1 or cy + r < y0 or cy - r > y1:
         return 0.0
-    wx0, wy0 = int(x0 // f), int(y0 // f)
-    wx1, wy1 = int(x1 // f) + 1, int(y1 // f) + 1
-    lab = seg.labels[wy0:wy1, wx0:wx1] == reg.id
+    lab, wx0, wy0 = _region_window(seg, reg)
     n = int(np.count_nonzero(lab))
     if n == 0:
         return 0.0

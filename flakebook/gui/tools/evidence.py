@@ -31,7 +31,7 @@ from PySide6.QtWidgets import (
 
 from flakebook.errors import InputError
 from flakebook.gui.commands import Undo
-from flakebook.store import Assignment, Evidence, Flake, Sample, Spectrum
+from flakebook.store import Assignment, Evidence, Flake, Spectrum
 
 
 def _spin(lo: float, hi: float, decimals: int, step: float, suffix: str = "") -> QDoubleSpinBox:
@@ -157,7 +157,7 @@ class SessionEdits:
         stores nothing), recombine the flake. Returns the undo and, as ``self.last_si``, the
         measured Si ratio (or None)."""
         from flakebook import pipeline
-        from flakebook.pipeline_si import add_si_from_spectra, store_bare_reference
+        from flakebook.pipeline_si import add_si_from_spectra
 
         p = self.project
         fid = self._r("flake", flake_id)
@@ -180,15 +180,15 @@ class SessionEdits:
                 ev = pipeline.add_si_evidence(p, flake, si[1], si[2], laser_nm=si[3])
                 made.append((Evidence, ev.id))
             elif si is not None:
-                ref = None
-                if bare is not None:
-                    laser = None if bare.metadata.get("laser_nm") else 532.0
-                    ref = store_bare_reference(
-                        p, p.get(Sample, flake.sample_id), bare, source_path=si[1], laser_nm=laser
-                    )
-                    made.append((Spectrum, ref.id))
-                ev, self.last_si = add_si_from_spectra(p, flake, reference=ref)
-                made.insert(0, (Evidence, ev.id))
+                before = {x.id for x in p.spectra_of_sample(flake.sample_id)}
+                ev, self.last_si = add_si_from_spectra(
+                    p, flake, bare=bare, bare_path=si[1] if bare is not None else None
+                )
+                made.append((Evidence, ev.id))
+                made += [
+                    (Spectrum, x.id) for x in p.spectra_of_sample(flake.sample_id)
+                    if x.id not in before
+                ]  # fmt: skip
             pipeline.assign_flake(p, flake)
             made += [(Assignment, a.id) for a in p.assignments_of(fid) if a.id not in had]
         delete = self._undo_made(made)
